@@ -1,0 +1,218 @@
+"""Fast kernel: blackbody magnitudes on a precomputed (temperature, reddening) grid.
+
+For every passband, extinction law and R_V, the synthetic magnitude of a
+reddened blackbody of unit solid angle,
+
+    M(T, E) = −2.5 log10 ∫ B_λ(T) 10^(−0.4 R_V E k(λ)) λ S(λ) dλ + c_band,
+
+is tabulated with its exact partial derivatives ∂M/∂lnT, ∂M/∂E and
+∂²M/∂lnT∂E on a grid uniform in ln T (1,000–100,000 K) and E(B−V)
+(−0.5 to 6.0).  Between nodes a bicubic Hermite patch reproduces value
+and derivatives exactly at the nodes; with the derivatives exact, the
+interpolation error falls as the fourth power of the step, and the test
+suite measures it below 1e-6 mag everywhere on the grid (the documented
+target is 1e-4 mag).  A star of angular diameter θ (radians) has
+m = M(T, E) − 2.5 log10(π θ² / 4).
+
+Evaluating a table costs four gathers and a few dozen array operations per
+point, so millions of temperatures evaluate in a fraction of a second.
+Colour tables are differences of band tables (Hermite interpolation is
+linear in the tabulated data), so a colour costs one evaluation.
+"""
+
+from dataclasses import dataclass
+from functools import lru_cache
+
+import numpy as np
+
+from .errors import StelltempError
+from .extinction import DEFAULT_LAW, DEFAULT_RV, check_law, relative_extinction
+from .passbands import get_passband
+from .photometry import mag_offset
+from .planck import dlnb_dlnt, planck_lambda_cgs
+
+T_MIN, T_MAX = 1000.0, 100000.0
+N_T = 241
+E_MIN, E_MAX, E_STEP = -0.5, 6.0, 0.1
+#: integration step inside a passband, Å (kinks of the tabulated curve are kept as nodes)
+FINE_STEP = 2.0
+
+LN10_04 = 0.4 * np.log(10.0)
+MAG = 2.5 / np.log(10.0)
+
+
+def fine_grid(band):
+    """Integration wavelengths for a passband: its nodes plus a FINE_STEP Å grid."""
+    lo, hi = band.wave[0], band.wave[-1]
+    n = int(np.ceil((hi - lo) / FINE_STEP)) + 1
+    return np.union1d(band.wave, np.linspace(lo, hi, n))
+
+
+def trapezoid_weights(x):
+    """Weights w with Σ w f = trapezoid(f, x)."""
+    dx = np.diff(x)
+    w = np.zeros_like(x)
+    w[:-1] += dx / 2
+    w[1:] += dx / 2
+    return w
+
+
+@dataclass(frozen=True)
+class HermiteTable:
+    """Bicubic Hermite table over (ln T, E(B−V)).
+
+    ``coef[i, j] = (f, h_T ∂f/∂lnT, h_E ∂f/∂E, h_T h_E ∂²f/∂lnT∂E)`` at node (i, j).
+    """
+
+    coef: np.ndarray
+    lnt0: float
+    h_t: float
+    e0: float
+    h_e: float
+
+    @property
+    def shape(self):
+        return self.coef.shape[:2]
+
+    def __sub__(self, other):
+        return HermiteTable(self.coef - other.coef, self.lnt0, self.h_t, self.e0, self.h_e)
+
+    def evaluate(self, lnt, ebv, want_de=True):
+        """Value, ∂/∂lnT and ∂/∂E at points (ln T, E); arrays broadcast together.
+
+        Points outside the grid are extrapolated with the edge patch; callers
+        flag them (see :func:`inside`).  With ``want_de=False`` the third
+        result is None (saves a third of the work).
+        """
+        lnt, ebv = np.broadcast_arrays(np.asarray(lnt, float), np.asarray(ebv, float))
+        shape = lnt.shape
+        lnt, ebv = lnt.ravel(), ebv.ravel()
+        nt, ne = self.shape
+        u = (lnt - self.lnt0) / self.h_t
+        v = (ebv - self.e0) / self.h_e
+        # NaN inputs map to cell 0 and still give NaN results through t or s
+        i = np.clip(np.floor(np.nan_to_num(u)), 0, nt - 2).astype(np.intp)
+        j = np.clip(np.floor(np.nan_to_num(v)), 0, ne - 2).astype(np.intp)
+        t = u - i
+        s = v - j
+        flat = self.coef.reshape(-1, 4)
+        k = i * ne + j
+        lo_lo, lo_hi, hi_lo, hi_hi = flat[k], flat[k + 1], flat[k + ne], flat[k + ne + 1]
+
+        # Hermite basis in s (E direction): a* weight node values, b* weight slopes
+        s2 = s * s
+        s3 = s2 * s
+        as0, as1 = 2 * s3 - 3 * s2 + 1, 3 * s2 - 2 * s3
+        bs0, bs1 = s3 - 2 * s2 + s, s3 - s2
+        # collapse the E direction first: value f and scaled T-slope g at both T nodes
+        f0 = lo_lo[:, 0] * as0 + lo_hi[:, 0] * as1 + lo_lo[:, 2] * bs0 + lo_hi[:, 2] * bs1
+        f1 = hi_lo[:, 0] * as0 + hi_hi[:, 0] * as1 + hi_lo[:, 2] * bs0 + hi_hi[:, 2] * bs1
+        g0 = lo_lo[:, 1] * as0 + lo_hi[:, 1] * as1 + lo_lo[:, 3] * bs0 + lo_hi[:, 3] * bs1
+        g1 = hi_lo[:, 1] * as0 + hi_hi[:, 1] * as1 + hi_lo[:, 3] * bs0 + hi_hi[:, 3] * bs1
+
+        t2 = t * t
+        t3 = t2 * t
+        at0, at1 = 2 * t3 - 3 * t2 + 1, 3 * t2 - 2 * t3
+        bt0, bt1 = t3 - 2 * t2 + t, t3 - t2
+        value = f0 * at0 + f1 * at1 + g0 * bt0 + g1 * bt1
+        d_lnt = ((f1 - f0) * (6 * t - 6 * t2) + g0 * (3 * t2 - 4 * t + 1) + g1 * (3 * t2 - 2 * t)) / self.h_t
+        d_e = None
+        if want_de:
+            das = 6 * s - 6 * s2  # d(as1)/ds = -d(as0)/ds
+            dbs0, dbs1 = 3 * s2 - 4 * s + 1, 3 * s2 - 2 * s
+            df0 = (lo_hi[:, 0] - lo_lo[:, 0]) * das + lo_lo[:, 2] * dbs0 + lo_hi[:, 2] * dbs1
+            df1 = (hi_hi[:, 0] - hi_lo[:, 0]) * das + hi_lo[:, 2] * dbs0 + hi_hi[:, 2] * dbs1
+            dg0 = (lo_hi[:, 1] - lo_lo[:, 1]) * das + lo_lo[:, 3] * dbs0 + lo_hi[:, 3] * dbs1
+            dg1 = (hi_hi[:, 1] - hi_lo[:, 1]) * das + hi_lo[:, 3] * dbs0 + hi_hi[:, 3] * dbs1
+            d_e = ((df0 * at0 + df1 * at1 + dg0 * bt0 + dg1 * bt1) / self.h_e).reshape(shape)
+        return value.reshape(shape), d_lnt.reshape(shape), d_e
+
+    def nodes(self):
+        """(ln T nodes, E nodes) of the table."""
+        nt, ne = self.shape
+        return self.lnt0 + self.h_t * np.arange(nt), self.e0 + self.h_e * np.arange(ne)
+
+
+def inside(temperature_k, ebv):
+    """True where (T, E(B−V)) lies on the tabulated grid."""
+    t = np.asarray(temperature_k, float)
+    e = np.asarray(ebv, float)
+    return (t >= T_MIN) & (t <= T_MAX) & (e >= E_MIN - 1e-12) & (e <= E_MAX + 1e-12)
+
+
+def blackbody_band_terms(band, temperature_k, ebv, law=DEFAULT_LAW, rv=DEFAULT_RV):
+    """Direct integration: M, ∂M/∂lnT, ∂M/∂E, ∂²M/∂lnT∂E for a grid of T × E.
+
+    Returns four arrays of shape (len(T), len(E)).  This is the brute-force
+    computation the tables are built from, also used to check them.
+    """
+    band = get_passband(band)
+    lam = fine_grid(band)
+    weight = trapezoid_weights(lam) * lam * np.interp(lam, band.wave, band.photon_response)
+    t = np.atleast_1d(np.asarray(temperature_k, float))
+    e = np.atleast_1d(np.asarray(ebv, float))
+    b = planck_lambda_cgs(t[:, None], lam[None, :]) * weight  # (nT, nλ)
+    g = dlnb_dlnt(t[:, None], lam[None, :])
+    ext = -LN10_04 * float(rv) * relative_extinction(lam, law, rv)  # d ln(transmission)/dE
+    tau = np.exp(np.outer(ext, e))  # (nλ, nE)
+    i0 = b @ tau
+    i_t = (b * g) @ tau
+    i_e = b @ (tau * ext[:, None])
+    i_te = (b * g) @ (tau * ext[:, None])
+    m = -MAG * np.log(i0) + mag_offset(band)
+    m_t = -MAG * i_t / i0
+    m_e = -MAG * i_e / i0
+    m_te = -MAG * (i_te / i0 - i_t * i_e / i0**2)
+    return m, m_t, m_e, m_te
+
+
+@lru_cache(maxsize=256)
+def _band_table(key, law, rv):
+    lnt = np.linspace(np.log(T_MIN), np.log(T_MAX), N_T)
+    n_e = int(round((E_MAX - E_MIN) / E_STEP)) + 1
+    e = np.linspace(E_MIN, E_MAX, n_e)
+    h_t, h_e = lnt[1] - lnt[0], e[1] - e[0]
+    m, m_t, m_e, m_te = blackbody_band_terms(key, np.exp(lnt), e, law, rv)
+    coef = np.stack([m, h_t * m_t, h_e * m_e, h_t * h_e * m_te], axis=-1)
+    coef.flags.writeable = False
+    return HermiteTable(coef, float(lnt[0]), float(h_t), float(e[0]), float(h_e))
+
+
+def band_table(passband, law=DEFAULT_LAW, rv=DEFAULT_RV):
+    """The Hermite table of blackbody magnitudes through one passband (cached)."""
+    check_law(law, rv)
+    band = get_passband(passband)
+    if band.system == "user":
+        return _band_table.__wrapped__(band, law, float(rv))
+    return _band_table(band.key, law, float(rv))
+
+
+def colour_table(blue, red, law=DEFAULT_LAW, rv=DEFAULT_RV):
+    """Hermite table of the blackbody colour m_blue − m_red."""
+    return band_table(blue, law, rv) - band_table(red, law, rv)
+
+
+def blackbody_mag(passband, temperature_k, ebv=0.0, law=DEFAULT_LAW, rv=DEFAULT_RV, angular_diameter_rad=None):
+    """Synthetic magnitude of a (reddened) blackbody from the fast tables.
+
+    Without ``angular_diameter_rad`` the blackbody has unit solid angle
+    (F_λ = B_λ × 1 sr), useful for colours.
+    """
+    table = band_table(passband, law, rv)
+    m, _, _ = table.evaluate(np.log(np.asarray(temperature_k, float)), ebv)
+    if angular_diameter_rad is not None:
+        m = m - 2.5 * np.log10(np.pi * np.asarray(angular_diameter_rad, float) ** 2 / 4)
+    return m
+
+
+def constant_coefficient(passband, law=DEFAULT_LAW, rv=DEFAULT_RV, reference_temperature=10000.0):
+    """Shortcut A_band / E(B−V) for a blackbody at one reference temperature, for E → 0.
+
+    Documented shortcut only: the engine never uses it, because the true
+    coefficient depends on the star's spectrum (it differs by ~0.1 mag per
+    unit E(B−V) between a 3,500 K and a 30,000 K star in B−V).
+    """
+    if not (T_MIN <= reference_temperature <= T_MAX):
+        raise StelltempError(f"reference temperature must lie in {T_MIN:g}–{T_MAX:g} K")
+    _, _, dm_de = band_table(passband, law, rv).evaluate(np.log(reference_temperature), 0.0)
+    return float(dm_de)

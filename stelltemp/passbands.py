@@ -1,0 +1,323 @@
+"""Passbands: the built-in registry and user curves.
+
+A :class:`Passband` is a tabulated response curve plus what one needs to
+use it correctly: its photometric system, its magnitude system (Vega or
+AB), and its *detector convention*.  The last matters: the Bessell (1990)
+UBVRI curves are energy-response curves, to be integrated as ∫ F_λ R dλ,
+whereas CCD-era curves (SDSS, 2MASS, Gaia, Pan-STARRS) are photon-counting
+curves, integrated as ∫ F_λ λ R dλ (Bessell & Murphy 2012, PASP 124, 140,
+§2).  stelltemp integrates everything in photon-counting form, using
+:attr:`Passband.photon_response`, which equals the curve for photon-counting
+bands and R/λ for energy bands.
+
+Built-in curves come from the data files of the ``speclite`` package; the
+registry of keys, systems and adopted Vega magnitudes with citations is the
+package data file ``data/passbands.ecsv``.
+"""
+
+from dataclasses import dataclass, field
+from functools import cached_property, lru_cache
+from importlib import resources
+from pathlib import Path
+
+import numpy as np
+from astropy import units as u
+from astropy.table import Table
+
+from .errors import StelltempError
+
+__all__ = ["Passband", "get_passband", "builtin_keys", "load_passband_file", "registry_table"]
+
+DETECTORS = ("energy", "photon")
+MAGSYSTEMS = ("Vega", "AB", "ST")
+
+
+@dataclass(frozen=True, eq=False)
+class Passband:
+    """A passband response curve with its conventions.
+
+    Parameters
+    ----------
+    key : str
+        Unique key, ``<system>.<band>`` for built-ins (e.g. ``jc.V``).
+    system, band : str
+        Photometric system and the band's usual name.
+    magsys : {'Vega', 'AB', 'ST'}
+        Magnitude system in which magnitudes through this band are quoted.
+    detector : {'energy', 'photon'}
+        Convention of the tabulated curve (see module docstring).
+    wave : ndarray
+        Wavelengths in Å, strictly increasing.
+    response : ndarray
+        Response as tabulated, normalised to a peak of 1.
+    vega_mag : float
+        Adopted magnitude of Vega in this band (Vega systems only).
+    citation : str
+        Source of the curve (and of the adopted Vega magnitude).
+    """
+
+    key: str
+    system: str
+    band: str
+    magsys: str
+    detector: str
+    wave: np.ndarray = field(repr=False)
+    response: np.ndarray = field(repr=False)
+    vega_mag: float = float("nan")
+    citation: str = ""
+
+    @cached_property
+    def photon_response(self):
+        """Response for the photon-counting integral ∫ F_λ λ S dλ, peak 1."""
+        s = self.response if self.detector == "photon" else self.response / self.wave
+        return s / s.max()
+
+    def _moment(self, power):
+        return np.trapezoid(self.photon_response * self.wave**power, self.wave)
+
+    @property
+    def pivot_wavelength(self):
+        """Pivot wavelength √(∫S λ dλ / ∫S/λ dλ) (Tokunaga & Vacca 2005, PASP 117, 421)."""
+        return np.sqrt(self._moment(1) / self._moment(-1)) * u.AA
+
+    @property
+    def mean_wavelength(self):
+        """Photon-weighted mean wavelength ∫S λ dλ / ∫S dλ."""
+        return self._moment(1) / self._moment(0) * u.AA
+
+    @property
+    def equivalent_width(self):
+        """∫S dλ with S normalised to a peak of 1."""
+        return self._moment(0) * u.AA
+
+    @property
+    def fwhm(self):
+        """Full width at half maximum of the photon response (outermost half-maximum crossings)."""
+        s, w = self.photon_response, self.wave
+        above = np.nonzero(s >= 0.5)[0]
+        i, j = above[0], above[-1]
+        lo = w[i] if i == 0 else np.interp(0.5, [s[i - 1], s[i]], [w[i - 1], w[i]])
+        hi = w[j] if j == len(w) - 1 else np.interp(0.5, [s[j + 1], s[j]], [w[j + 1], w[j]])
+        return (hi - lo) * u.AA
+
+    @property
+    def wave_range(self):
+        """(first, last) wavelength where the response is non-zero, in Å."""
+        nz = np.nonzero(self.response > 0)[0]
+        return self.wave[max(nz[0] - 1, 0)], self.wave[min(nz[-1] + 1, len(self.wave) - 1)]
+
+    def summary(self):
+        """Plain dict of the passband's properties (units in the key names)."""
+        return {
+            "key": self.key,
+            "system": self.system,
+            "band": self.band,
+            "magsys": self.magsys,
+            "detector": self.detector,
+            "vega_mag": None if np.isnan(self.vega_mag) else float(self.vega_mag),
+            "pivot_wavelength_nm": round(float(self.pivot_wavelength.to_value(u.nm)), 2),
+            "mean_wavelength_nm": round(float(self.mean_wavelength.to_value(u.nm)), 2),
+            "equivalent_width_nm": round(float(self.equivalent_width.to_value(u.nm)), 2),
+            "fwhm_nm": round(float(self.fwhm.to_value(u.nm)), 2),
+            "source": self.citation,
+        }
+
+
+def _checked_curve(wave, response, origin):
+    """Validate a curve; return (wave Å, response peak-normalised) as float arrays."""
+    wave = np.asarray(wave, dtype=float)
+    response = np.asarray(response, dtype=float)
+    if wave.ndim != 1 or wave.shape != response.shape or wave.size < 3:
+        raise StelltempError(f"{origin}: need at least 3 rows of wavelength and response")
+    if not (np.all(np.isfinite(wave)) and np.all(np.isfinite(response))):
+        raise StelltempError(f"{origin}: wavelength and response must be finite numbers")
+    if np.any(np.diff(wave) <= 0):
+        i = int(np.nonzero(np.diff(wave) <= 0)[0][0]) + 1
+        raise StelltempError(f"{origin}: wavelengths must increase strictly (row {i + 1}: {wave[i]})")
+    if np.any(wave <= 0):
+        raise StelltempError(f"{origin}: wavelengths must be positive")
+    if np.any(response < 0):
+        raise StelltempError(f"{origin}: response must not be negative (min {response.min()})")
+    if not np.any(response > 0):
+        raise StelltempError(f"{origin}: response is zero everywhere")
+    return wave, response / response.max()
+
+
+def registry_table():
+    """The built-in registry as an astropy Table (keys, systems, citations)."""
+    return _registry().copy()
+
+
+@lru_cache(maxsize=1)
+def _registry():
+    path = resources.files("stelltemp") / "data" / "passbands.ecsv"
+    with resources.as_file(path) as p:
+        return Table.read(p, format="ascii.ecsv")
+
+
+def builtin_keys():
+    """Keys of all built-in passbands, in registry order."""
+    return list(_registry()["key"])
+
+
+@lru_cache(maxsize=None)
+def _builtin(key):
+    reg = _registry()
+    rows = reg[reg["key"] == key]
+    if len(rows) == 0:
+        close = [k for k in reg["key"] if k.lower() == key.lower() or k.split(".")[-1] == key]
+        hint = f" (did you mean {', '.join(close)}?)" if close else ""
+        raise StelltempError(f"unknown passband {key!r}{hint}; `stelltemp passbands` lists them")
+    row = rows[0]
+    curve = resources.files("speclite") / "data" / "filters" / f"{row['curve_file']}.ecsv"
+    with resources.as_file(curve) as p:
+        tab = Table.read(p, format="ascii.ecsv")
+    wave = u.Quantity(tab["wavelength"], u.AA if tab["wavelength"].unit is None else None)
+    wave, response = _checked_curve(wave.to_value(u.AA), tab["response"], key)
+    citation = str(row["curve_source"])
+    if row["magsys"] == "Vega":
+        citation += f"; Vega magnitude {row['vega_mag']:g} from {row['zero_point_source']}"
+    return Passband(
+        key=key,
+        system=str(row["system"]),
+        band=str(row["band"]),
+        magsys=str(row["magsys"]),
+        detector=str(row["detector"]),
+        wave=wave,
+        response=response,
+        vega_mag=float(row["vega_mag"]),
+        citation=citation,
+    )
+
+
+def get_passband(key_or_path, **file_options):
+    """A built-in passband by key, or a user passband from a file path.
+
+    Parameters
+    ----------
+    key_or_path : str, Path or Passband
+        A registry key such as ``'jc.V'`` or ``'gaia3.BP'``, or a path to a
+        curve file (see :func:`load_passband_file`).  A Passband is
+        returned unchanged.
+    **file_options
+        Passed to :func:`load_passband_file` for a path.
+    """
+    if isinstance(key_or_path, Passband):
+        return key_or_path
+    text = str(key_or_path)
+    if text in set(builtin_keys()):
+        return _builtin(text)
+    if Path(text).suffix.lower() in (".ecsv", ".csv", ".txt", ".dat") or Path(text).exists():
+        return load_passband_file(text, **file_options)
+    return _builtin(text)  # raises with a helpful message
+
+
+_UNIT_ALIASES = {"a": "Angstrom", "aa": "Angstrom", "angstrom": "Angstrom", "angstroms": "Angstrom",
+                 "nm": "nm", "um": "micron", "micron": "micron", "microns": "micron", "µm": "micron"}
+
+
+def _parse_wave_unit(text, origin):
+    unit = _UNIT_ALIASES.get(str(text).strip().lower(), str(text).strip())
+    try:
+        unit = u.Unit(unit)
+        (1 * unit).to(u.AA)
+    except (ValueError, u.UnitConversionError, TypeError):
+        raise StelltempError(f"{origin}: unknown wavelength unit {text!r} (use Angstrom, nm or micron)") from None
+    return unit
+
+
+def load_passband_file(path, wave_unit=None, detector="photon", magsys="AB", key=None, vega_mag=0.0):
+    """Read a user passband curve.
+
+    Accepted files:
+
+    * ECSV with columns ``wavelength`` (with a unit) and ``response``;
+    * CSV with a header ``wavelength,response``, where the wavelength header
+      carries its unit in brackets (``wavelength[nm]``) or ``wave_unit`` is given;
+    * a two-column whitespace text file (``#`` comments) with ``wave_unit``
+      given, or a comment line ``# unit: nm``.
+
+    Parameters
+    ----------
+    path : str or Path
+    wave_unit : str, optional
+        Wavelength unit when the file does not carry one.
+    detector : {'photon', 'energy'}
+        Convention of the curve (photon-counting for a filter × QE product).
+    magsys : {'AB', 'Vega', 'ST'}
+    key : str, optional
+        Key for the passband; defaults to ``file:<stem>``.
+    vega_mag : float
+        Adopted Vega magnitude when ``magsys='Vega'``.
+
+    Raises
+    ------
+    StelltempError
+        Unreadable file, unknown unit, non-monotonic wavelengths, negative or
+        all-zero response.
+    """
+    path = Path(path)
+    origin = str(path)
+    if detector not in DETECTORS:
+        raise StelltempError(f"{origin}: detector must be one of {DETECTORS}, got {detector!r}")
+    if magsys not in MAGSYSTEMS:
+        raise StelltempError(f"{origin}: magnitude system must be one of {MAGSYSTEMS}, got {magsys!r}")
+    if not path.is_file():
+        raise StelltempError(f"passband file not found: {origin}")
+    suffix = path.suffix.lower()
+    try:
+        if suffix == ".ecsv":
+            tab = Table.read(path, format="ascii.ecsv")
+            wave_col, resp_col = _pick_columns(tab, origin)
+            col_unit = tab[wave_col].unit
+            unit = _parse_wave_unit(wave_unit or col_unit, origin) if (wave_unit or col_unit) else None
+            wave, resp = np.asarray(tab[wave_col], float), np.asarray(tab[resp_col], float)
+        elif suffix == ".csv":
+            tab = Table.read(path, format="ascii.csv")
+            wave_col, resp_col = _pick_columns(tab, origin)
+            unit_text = wave_unit
+            if unit_text is None and "[" in wave_col and wave_col.endswith("]"):
+                unit_text = wave_col[wave_col.index("[") + 1:-1]
+            unit = _parse_wave_unit(unit_text, origin) if unit_text else None
+            wave, resp = np.asarray(tab[wave_col], float), np.asarray(tab[resp_col], float)
+        else:
+            unit_text = wave_unit
+            lines = path.read_text().splitlines()
+            for line in lines:
+                low = line.strip().lower()
+                if low.startswith("#") and "unit:" in low and unit_text is None:
+                    unit_text = line.split(":", 1)[1].strip()
+            data = np.loadtxt(path, comments="#", ndmin=2)
+            if data.shape[1] < 2:
+                raise StelltempError(f"{origin}: need two columns (wavelength, response)")
+            wave, resp = data[:, 0], data[:, 1]
+            unit = _parse_wave_unit(unit_text, origin) if unit_text else None
+    except StelltempError:
+        raise
+    except Exception as exc:  # astropy/numpy readers raise many types
+        raise StelltempError(f"{origin}: cannot read passband file ({exc.__class__.__name__}: {exc})") from None
+    if unit is None:
+        raise StelltempError(f"{origin}: wavelength unit unknown; give it in the file or as wave_unit")
+    wave = (wave * unit).to_value(u.AA)
+    wave, resp = _checked_curve(wave, resp, origin)
+    return Passband(
+        key=key or f"file:{path.stem}",
+        system="user",
+        band=path.stem,
+        magsys=magsys,
+        detector=detector,
+        wave=wave,
+        response=resp,
+        vega_mag=float(vega_mag) if magsys == "Vega" else float("nan"),
+        citation=f"user file {path.name}",
+    )
+
+
+def _pick_columns(tab, origin):
+    names = list(tab.colnames)
+    if len(names) < 2:
+        raise StelltempError(f"{origin}: need two columns (wavelength, response)")
+    wave_col = next((n for n in names if n.lower().startswith(("wave", "lam"))), names[0])
+    resp_col = next((n for n in names if n != wave_col and n.lower().startswith(("resp", "trans", "thr"))),
+                    [n for n in names if n != wave_col][0])
+    return wave_col, resp_col

@@ -1,0 +1,254 @@
+"""Planck's law, Wien's displacement law and the Stefan–Boltzmann law.
+
+Two layers:
+
+* plain-array kernels (``*_cgs``) for hot loops: temperature in K,
+  wavelength in Å, frequency in Hz, results in cgs units;
+* Quantity functions for the public edge, which accept temperatures in K,
+  °C or °F (via astropy's temperature equivalency) and return Quantities.
+
+Everything broadcasts temperature against wavelength or frequency.  The
+exponential is evaluated with ``expm1`` for small ``x = hc/λkT`` (the
+Rayleigh–Jeans side, where ``exp(x) - 1`` loses precision) and as
+``exp(-x)`` for large ``x`` (the Wien side, where ``exp(x)`` would
+overflow), so no floating-point warnings arise from 1 K to 10⁶ K and from
+10 nm to 10 cm.
+
+References
+----------
+Planck, M. 1901, Annalen der Physik 309, 553.
+Rybicki, G. B. & Lightman, A. P. 1979, *Radiative Processes in
+Astrophysics*, Wiley, §1.5 (the Wien peaks of B_λ and B_ν differ).
+CODATA 2018 (Tiesinga et al. 2021, Rev. Mod. Phys. 93, 025010) through
+``astropy.constants``.
+"""
+
+from functools import lru_cache
+
+import numpy as np
+from astropy import constants as const
+from astropy import units as u
+from scipy.optimize import brentq
+
+from .errors import StelltempError
+
+H_CGS = const.h.cgs.value  # erg s
+C_CGS = const.c.cgs.value  # cm s^-1
+K_CGS = const.k_B.cgs.value  # erg K^-1
+#: second radiation constant hc/k in Å K
+C2_ANGSTROM_K = H_CGS * C_CGS / K_CGS * 1e8
+
+#: Stefan–Boltzmann constant from its definition 2π⁵k⁴ / (15 c² h³), erg s⁻¹ cm⁻² K⁻⁴
+SIGMA_CGS = 2 * np.pi**5 * K_CGS**4 / (15 * C_CGS**2 * H_CGS**3)
+
+# Beyond this x = hc/λkT, exp(x) is replaced by its reciprocal form.
+_X_SWITCH = 50.0
+
+
+def _inverse_expm1(x):
+    """1 / (exp(x) - 1) without overflow: exp(-x) / (1 - exp(-x)) for large x."""
+    x = np.asarray(x, dtype=float)
+    small = x < _X_SWITCH
+    out = np.empty_like(x)
+    out[small] = 1.0 / np.expm1(x[small])
+    e = np.exp(-x[~small])
+    out[~small] = e / (1.0 - e)
+    return out
+
+
+def planck_lambda_cgs(temperature_k, wave_angstrom):
+    """Spectral radiance per unit wavelength, B_λ(T).
+
+    Parameters
+    ----------
+    temperature_k : array_like
+        Temperature in K (positive, finite).
+    wave_angstrom : array_like
+        Wavelength in Å; broadcast against ``temperature_k``.
+
+    Returns
+    -------
+    ndarray
+        B_λ in erg s⁻¹ cm⁻² Å⁻¹ sr⁻¹.
+    """
+    t, w = np.broadcast_arrays(np.asarray(temperature_k, float), np.asarray(wave_angstrom, float))
+    x = C2_ANGSTROM_K / (w * t)
+    w_cm = w * 1e-8
+    return 2 * H_CGS * C_CGS**2 / w_cm**5 * _inverse_expm1(x) * 1e-8
+
+
+def planck_nu_cgs(temperature_k, freq_hz):
+    """Spectral radiance per unit frequency, B_ν(T), in erg s⁻¹ cm⁻² Hz⁻¹ sr⁻¹."""
+    t, nu = np.broadcast_arrays(np.asarray(temperature_k, float), np.asarray(freq_hz, float))
+    x = H_CGS * nu / (K_CGS * t)
+    return 2 * H_CGS * nu**3 / C_CGS**2 * _inverse_expm1(x)
+
+
+def photon_radiance_lambda_cgs(temperature_k, wave_angstrom):
+    """Photon radiance per unit wavelength, B_λ / (hc/λ), in photons s⁻¹ cm⁻² Å⁻¹ sr⁻¹."""
+    w = np.asarray(wave_angstrom, float)
+    return planck_lambda_cgs(temperature_k, w) * (w * 1e-8) / (H_CGS * C_CGS)
+
+
+def dlnb_dlnt(temperature_k, wave_angstrom):
+    """Logarithmic temperature derivative of B_λ: d ln B_λ / d ln T = x eˣ/(eˣ − 1).
+
+    Written as x / (1 − e⁻ˣ) so that it stays finite for any x > 0.
+    """
+    t, w = np.broadcast_arrays(np.asarray(temperature_k, float), np.asarray(wave_angstrom, float))
+    x = C2_ANGSTROM_K / (w * t)
+    return x / -np.expm1(-x)
+
+
+# ----------------------------------------------------------------------------
+# Wien's displacement law from the roots of the transcendental equations
+# ----------------------------------------------------------------------------
+
+@lru_cache(maxsize=None)
+def wien_root(power):
+    """Positive root of ``power * (1 - exp(-x)) = x``.
+
+    The peak of a Planck-like function ∝ y^power / (exp(x) - 1) sits where
+    ``x = hc/λkT`` solves this equation:
+
+    * power 5: peak of B_λ (energy per unit wavelength), x ≈ 4.965;
+    * power 4: peak of the photon rate per unit wavelength, x ≈ 3.921;
+    * power 3: peak of B_ν (energy per unit frequency), x ≈ 2.821.
+
+    These three peaks are different wavelengths for the same body: "the
+    peak" depends on the variable one differentiates against and on whether
+    one counts energy or photons (Rybicki & Lightman 1979, §1.5).
+    """
+    return brentq(lambda x: power * -np.expm1(-x) - x, 1e-3, power + 1.0, xtol=1e-15, rtol=4e-16)
+
+
+def wien_b_lambda():
+    """Wien displacement constant for B_λ, b = hc / (k x₅), in m K."""
+    return C2_ANGSTROM_K * 1e-10 / wien_root(5)
+
+
+def wien_b_photon():
+    """Displacement constant for the photon-count peak per unit wavelength, in m K."""
+    return C2_ANGSTROM_K * 1e-10 / wien_root(4)
+
+
+def wien_b_nu():
+    """Displacement constant for B_ν: ν_max / T = k x₃ / h, in Hz K⁻¹."""
+    return K_CGS * wien_root(3) / H_CGS
+
+
+# ----------------------------------------------------------------------------
+# Quantity edge
+# ----------------------------------------------------------------------------
+
+def as_kelvin(temperature):
+    """Temperature as a float ndarray in K, checked.
+
+    Parameters
+    ----------
+    temperature : float, array_like or Quantity
+        Plain numbers are taken as K; Quantities may be in K, °C or °F.
+
+    Raises
+    ------
+    StelltempError
+        If a value is not a temperature, or is ≤ 0 K, NaN or infinite.
+    """
+    if isinstance(temperature, u.Quantity):
+        try:
+            t = temperature.to_value(u.K, equivalencies=u.temperature())
+        except u.UnitConversionError:
+            raise StelltempError(f"not a temperature: {temperature!r}") from None
+    else:
+        try:
+            t = np.asarray(temperature, dtype=float)
+        except (TypeError, ValueError):
+            raise StelltempError(f"not a temperature: {temperature!r}") from None
+    t = np.asarray(t, dtype=float)
+    bad = ~np.isfinite(t) | (t <= 0)
+    if np.any(bad):
+        first = t[bad].flat[0] if t.ndim else float(t)
+        raise StelltempError(f"temperature must be finite and above 0 K, got {first!r} K")
+    return t
+
+
+def _as_angstrom(wavelength):
+    if isinstance(wavelength, u.Quantity):
+        w = wavelength.to_value(u.AA, equivalencies=u.spectral())
+    else:
+        w = np.asarray(wavelength, float)
+    if np.any(~np.isfinite(w) | (w <= 0)):
+        raise StelltempError("wavelengths must be finite and positive")
+    return w
+
+
+def radiance_lambda(temperature, wavelength):
+    """B_λ(T) as a Quantity in W m⁻² nm⁻¹ sr⁻¹ (wavelength: Quantity or Å)."""
+    b = planck_lambda_cgs(as_kelvin(temperature), _as_angstrom(wavelength))
+    return (b * u.erg / u.s / u.cm**2 / u.AA / u.sr).to(u.W / u.m**2 / u.nm / u.sr)
+
+
+def radiance_nu(temperature, frequency):
+    """B_ν(T) as a Quantity in W m⁻² Hz⁻¹ sr⁻¹ (frequency: Quantity or Hz)."""
+    if isinstance(frequency, u.Quantity):
+        nu = frequency.to_value(u.Hz, equivalencies=u.spectral())
+    else:
+        nu = np.asarray(frequency, float)
+    b = planck_nu_cgs(as_kelvin(temperature), nu)
+    return (b * u.erg / u.s / u.cm**2 / u.Hz / u.sr).to(u.W / u.m**2 / u.Hz / u.sr)
+
+
+def photon_radiance_lambda(temperature, wavelength):
+    """Photon radiance per unit wavelength, photons s⁻¹ m⁻² nm⁻¹ sr⁻¹."""
+    n = photon_radiance_lambda_cgs(as_kelvin(temperature), _as_angstrom(wavelength))
+    return (n / u.s / u.cm**2 / u.AA / u.sr).to(1 / u.s / u.m**2 / u.nm / u.sr)
+
+
+def peak_wavelength(temperature):
+    """Wavelength of the maximum of B_λ (Wien's law), λ_max = b / T."""
+    return (wien_b_lambda() / as_kelvin(temperature) * u.m).to(u.nm)
+
+
+def peak_wavelength_photons(temperature):
+    """Wavelength of the maximum of the photon rate per unit wavelength."""
+    return (wien_b_photon() / as_kelvin(temperature) * u.m).to(u.nm)
+
+
+def peak_frequency(temperature):
+    """Frequency of the maximum of B_ν, ν_max = (k x₃ / h) T."""
+    return (wien_b_nu() * as_kelvin(temperature) * u.Hz).to(u.THz)
+
+
+def surface_flux(temperature):
+    """Bolometric surface flux σT⁴ (Stefan–Boltzmann law), W m⁻²."""
+    return (SIGMA_CGS * as_kelvin(temperature) ** 4 * u.erg / u.s / u.cm**2).to(u.W / u.m**2)
+
+
+def luminosity(radius, temperature):
+    """Luminosity 4πR²σT⁴ of a sphere of the given radius (Quantity), in W."""
+    r = u.Quantity(radius, u.m)
+    if np.any(r.value <= 0) or not np.all(np.isfinite(r.value)):
+        raise StelltempError("radius must be finite and positive")
+    return (4 * np.pi * r**2 * surface_flux(temperature)).to(u.W)
+
+
+def radius_from_luminosity(lum, temperature):
+    """Radius √(L / 4πσT⁴) of a sphere of luminosity ``lum`` (Quantity), in m."""
+    lum = u.Quantity(lum, u.W)
+    if np.any(lum.value <= 0) or not np.all(np.isfinite(lum.value)):
+        raise StelltempError("luminosity must be finite and positive")
+    return np.sqrt(lum / (4 * np.pi * surface_flux(temperature))).to(u.m)
+
+
+def temperature_from_flux(flux):
+    """Temperature (F/σ)^(1/4) of a blackbody surface emitting ``flux`` (Quantity), in K."""
+    f = u.Quantity(flux, u.W / u.m**2)
+    if np.any(f.value <= 0) or not np.all(np.isfinite(f.value)):
+        raise StelltempError("flux must be finite and positive")
+    sigma = SIGMA_CGS * u.erg / u.s / u.cm**2 / u.K**4
+    return ((f / sigma) ** 0.25).to(u.K)
+
+
+def sigma_sb():
+    """Stefan–Boltzmann constant as a Quantity (W m⁻² K⁻⁴)."""
+    return (SIGMA_CGS * u.erg / u.s / u.cm**2 / u.K**4).to(u.W / u.m**2 / u.K**4)

@@ -1,0 +1,66 @@
+"""Reference spectra and the flux-density definitions of magnitude systems.
+
+* Vega: the CALSPEC STIS spectrum ``alpha_lyr_stis_011`` (Bohlin 2014,
+  AJ 147, 127; Bohlin, Gordon & Tremblay 2014, PASP 126, 711), read from the
+  data files of the ``astro-sedpy`` package.  It covers 900 Å to 300 µm, so
+  no passband of the registry needs extrapolation.
+* Sun: the Kurucz (1993) solar model distributed with ``astro-sedpy``
+  (``sun_kurucz93``, Teff = 5777 K, log g = 4.44), 90 Å to 160 µm.  It is a
+  model of the Sun, not the Sun: synthetic solar colours from it differ from
+  the observed solar colours by a few hundredths of a magnitude.
+* AB: F_ν = 3631 Jy (Oke & Gunn 1983, ApJ 266, 713).
+* ST: F_λ = 10^(−0.4·21.10) erg s⁻¹ cm⁻² Å⁻¹ (STMAG definition, common practice).
+
+No extrapolation is done anywhere: a spectrum that does not cover a passband
+raises an error in :mod:`stelltemp.photometry`.
+"""
+
+from functools import lru_cache
+from importlib import resources
+
+import numpy as np
+from astropy.io import fits
+
+from .planck import C_CGS
+
+AB_FNU_CGS = 3631e-23  # erg s^-1 cm^-2 Hz^-1
+ST_FLAM_CGS = 10 ** (-0.4 * 21.10)  # erg s^-1 cm^-2 Å^-1
+
+
+def _read_sedpy_spectrum(name):
+    path = resources.files("sedpy") / "data" / name
+    with resources.as_file(path) as p, fits.open(p) as hdul:
+        data = hdul[1].data
+        wave = np.array(data["WAVELENGTH"], dtype=float)
+        flux = np.array(data["FLUX"], dtype=float)
+    keep = np.concatenate([[True], np.diff(wave) > 0])  # drop repeated wavelengths if any
+    return wave[keep], flux[keep]
+
+
+@lru_cache(maxsize=1)
+def vega_spectrum():
+    """CALSPEC Vega spectrum: (wavelength Å, F_λ erg s⁻¹ cm⁻² Å⁻¹), read-only arrays."""
+    w, f = _read_sedpy_spectrum("alpha_lyr_stis_011.fits")
+    w.flags.writeable = False
+    f.flags.writeable = False
+    return w, f
+
+
+@lru_cache(maxsize=1)
+def sun_spectrum():
+    """Kurucz (1993) solar model at 1 AU: (wavelength Å, F_λ erg s⁻¹ cm⁻² Å⁻¹)."""
+    w, f = _read_sedpy_spectrum("sun_kurucz93.fits")
+    w.flags.writeable = False
+    f.flags.writeable = False
+    return w, f
+
+
+def ab_flam(wave_angstrom):
+    """F_λ of the AB zero-magnitude source (3631 Jy) at ``wave_angstrom``."""
+    w = np.asarray(wave_angstrom, float)
+    return AB_FNU_CGS * C_CGS * 1e8 / w**2
+
+
+def st_flam(wave_angstrom):
+    """F_λ of the ST zero-magnitude source (constant)."""
+    return np.full_like(np.asarray(wave_angstrom, float), ST_FLAM_CGS)
