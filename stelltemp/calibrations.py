@@ -28,10 +28,10 @@ Several relations are combined per star by inverse-variance weighting
 (`combine_teff`).  The total error of one relation is the colour error
 propagated through the analytic dT_eff/dX, in quadrature with the
 relation's published scatter.  The weighted mean treats the relations as
-independent; colours that share a band (all C10 colours but J−Ks contain
-V) and the common calibration sample make them positively correlated, so
-the combined error is a lower limit when one band dominates the error
-budget.
+independent; colours that share a band (six of the eight C10 colours
+contain V) and the common calibration sample make them positively
+correlated, so the combined error is a lower limit when one band
+dominates the error budget.
 """
 
 from __future__ import annotations

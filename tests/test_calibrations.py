@@ -1,0 +1,346 @@
+"""Tests of the empirical colour–T_eff relations (stelltemp.calibrations)."""
+
+import argparse
+import shutil
+
+import numpy as np
+import pytest
+
+from stelltemp import calibrations as cal
+from stelltemp.engine import flags as fl
+from stelltemp.errors import StelltempError
+
+# Casagrande, Ramírez, Meléndez, Bessell & Asplund 2010, A&A 512, A54, Table 4,
+# as printed: [Fe/H] range, colour range, a0..a5, N, sigma(Teff) in K.
+C10_TABLE4 = {
+    "c10_bv": ((-5.0, 0.4), (0.18, 1.29), (0.5665, 0.4809, -0.0060, -0.0613, -0.0042, -0.0055), 400, 73),
+    "c10_vr": ((-5.0, 0.3), (0.24, 0.80), (0.4386, 1.4614, -0.7014, -0.0807, 0.0142, -0.0015), 201, 62),
+    "c10_ri": ((-5.0, 0.3), (0.23, 0.68), (0.3296, 1.9716, -1.0225, -0.0298, 0.0329, 0.0035), 211, 82),
+    "c10_vi": ((-5.0, 0.3), (0.46, 1.47), (0.4033, 0.8171, -0.1987, -0.0409, 0.0319, 0.0012), 208, 59),
+    "c10_vj": ((-5.0, 0.4), (0.61, 2.44), (0.4669, 0.3849, -0.0350, -0.0140, 0.0225, 0.0011), 401, 42),
+    "c10_vh": ((-5.0, 0.4), (0.67, 3.01), (0.5251, 0.2553, -0.0119, -0.0187, 0.0410, 0.0025), 401, 33),
+    "c10_vk": ((-5.0, 0.4), (0.78, 3.15), (0.5057, 0.2600, -0.0146, -0.0131, 0.0288, 0.0016), 401, 25),
+    "c10_jk": ((-5.0, 0.4), (0.07, 0.80), (0.6393, 0.6104, 0.0920, -0.0330, 0.0291, 0.0020), 412, 132),
+}
+
+# Casagrande et al. 2010, A&A 512, A54, Table 7, column "Teff scale": solar
+# colours obtained by inverting their Table 4 relations for the Sun.
+C10_TABLE7_SUN = {
+    "c10_bv": 0.641, "c10_vr": 0.359, "c10_ri": 0.333, "c10_vi": 0.690,
+    "c10_vj": 1.180, "c10_vh": 1.460, "c10_vk": 1.544, "c10_jk": 0.362,
+}
+
+TEFF_SUN_IAU = 5772.0  # K, IAU 2015 Resolution B3 (nominal solar effective temperature)
+
+
+def c10(key):
+    return cal.get_relation(key)
+
+
+# ---------------------------------------------------------------- loading
+def test_all_expected_relations_loaded():
+    keys = {r.key for r in cal.relations()}
+    assert set(C10_TABLE4) | {"mbm21_bprp_dwarf", "mbm21_bprp_giant"} <= keys
+    for r in cal.relations():
+        assert r.scatter > 0 and r.citation.year in (2010, 2021)
+        assert r.colour_range[0] < r.colour_range[1]
+
+
+def test_c10_table4_transcription():
+    # Source: Casagrande et al. 2010, A&A 512, A54, Table 4 (guards the data file).
+    for key, (feh_rng, col_rng, coeffs, n, sigma) in C10_TABLE4.items():
+        rel = c10(key)
+        assert rel.feh_range == feh_rng
+        assert rel.colour_range == col_rng
+        # C10 Eq. (3) already uses the canonical term order: 1, X, X², X[Fe/H], [Fe/H], [Fe/H]²
+        assert rel.coeffs == coeffs
+        assert rel.n_stars == n and rel.scatter == sigma
+        assert rel.stage == "dwarf"
+        assert str(rel.citation) == "Casagrande et al. 2010, A&A 512, A54, Table 4"
+
+
+def test_c10_passbands():
+    assert c10("c10_bv").bands == ("jc.B", "jc.V")
+    assert c10("c10_vr").bands == ("jc.V", "jc.Rc")
+    assert c10("c10_vi").bands == ("jc.V", "jc.Ic")
+    assert c10("c10_vj").bands == ("jc.V", "2mass.J")
+    assert c10("c10_vh").bands == ("jc.V", "2mass.H")
+    assert c10("c10_vk").bands == ("jc.V", "2mass.Ks")
+
+
+def test_mbm21_transcription_and_term_mapping():
+    # Source: Mucciarelli, Bellazzini & Massari 2021, A&A 653, A90, Table 1, as
+    # transcribed in several public code bases (the journal table itself was not
+    # read; see the table metadata). Their b3, b4, b5 multiply [Fe/H], [Fe/H]², [Fe/H]·C.
+    rel = cal.get_relation("mbm21_bprp_dwarf")
+    b = (0.4929, 0.5092, -0.0353, 0.0192, -0.0020, -0.0395)
+    assert rel.coeffs == (b[0], b[1], b[2], b[5], b[3], b[4])
+    assert rel.colour_range == (0.39, 1.50) and rel.scatter == 61.0
+    assert rel.bands == ("gaia3.BP", "gaia3.RP")
+    giant = cal.get_relation("mbm21_bprp_giant")
+    assert giant.scatter == 83.0 and giant.colour_range == (0.33, 1.81)
+    # the mapping of terms: evaluate the paper's own formula by hand
+    c, z = 1.1, -1.2
+    theta = b[0] + b[1] * c + b[2] * c**2 + b[3] * z + b[4] * z**2 + b[5] * z * c
+    assert rel.teff(c, z)[0] == pytest.approx(5040.0 / theta, rel=1e-12)
+
+
+# ------------------------------------------------------- published values
+def test_c10_solar_colours_table7_give_one_temperature():
+    # Source: Casagrande et al. 2010, A&A 512, A54, Table 7 ("Teff scale" column):
+    # the eight solar colours were obtained by inverting Table 4 for the Sun, so
+    # feeding them back must give one temperature, to within the rounding of the
+    # printed colours (0.0005 mag times the slope).
+    temps, tols = [], []
+    for key, colour in C10_TABLE7_SUN.items():
+        rel = c10(key)
+        t, inside = rel.teff(colour, 0.0)
+        assert inside
+        temps.append(float(t))
+        tols.append(abs(float(rel.dteff_dcolour(colour, 0.0))) * 0.0005 + 1.0)
+    temps = np.array(temps)
+    mean = temps.mean()
+    assert np.all(np.abs(temps - mean) <= np.array(tols) + 2.0)
+    # solar Teff = 5777 K adopted by C10 for that inversion: from memory
+    assert mean == pytest.approx(5777.0, abs=3.0)
+
+
+def test_solar_colours_literature_within_60K_of_iau_sun():
+    # B−V⊙ = 0.653: Ramírez et al. 2012, ApJ 752, 5.
+    # (V−Ks)⊙ = 1.560: Casagrande et al. 2012, ApJ 761, 16.
+    # T_eff⊙ = 5772 K: IAU 2015 Resolution B3.
+    t_bv, ok_bv = c10("c10_bv").teff(0.653, 0.0)
+    t_vk, ok_vk = c10("c10_vk").teff(1.560, 0.0)
+    assert ok_bv and ok_vk
+    assert abs(float(t_bv) - TEFF_SUN_IAU) < 60.0
+    assert abs(float(t_vk) - TEFF_SUN_IAU) < 60.0
+    res = cal.combine_teff({"c10_bv": 0.653, ("jc.V", "2mass.Ks"): 1.560}, feh=0.0)
+    assert abs(float(res.teff) - TEFF_SUN_IAU) < 60.0
+
+
+def test_mbm21_sun_within_two_sigma():
+    # (BP−RP)⊙ ≈ 0.82 (Casagrande & VandenBerg 2018, MNRAS 479, L102): from memory.
+    # T_eff⊙ = 5772 K: IAU 2015 Resolution B3. Tolerance: twice the 61 K dispersion.
+    t, ok = cal.get_relation("mbm21_bprp_dwarf").teff(0.82, 0.0)
+    assert ok and abs(float(t) - TEFF_SUN_IAU) < 2 * 61.0
+
+
+# ------------------------------------------------------- validity ranges
+def test_colour_range_inclusive_and_no_extrapolation():
+    rel = c10("c10_bv")
+    lo, hi = rel.colour_range
+    t, inside = rel.teff([lo - 1e-6, lo, 0.6, hi, hi + 1e-6, np.nan], 0.0)
+    assert inside.tolist() == [False, True, True, True, False, False]
+    assert np.isnan(t[[0, 4, 5]]).all() and np.isfinite(t[1:4]).all()
+    assert np.isnan(rel.theta(hi + 0.1)) and np.isnan(rel.dteff_dcolour(hi + 0.1))
+
+
+def test_feh_range_and_floor():
+    rel = c10("c10_vi")  # [Fe/H] range [-5.0, 0.3]
+    t, inside = rel.teff(1.0, [0.31, 0.3, -5.0, -5.01])
+    assert inside.tolist() == [False, True, True, False]
+    # Casagrande et al. 2010, Table 4 note: stars down to [Fe/H] = -5.0 are
+    # evaluated with [Fe/H] = -3.5 in Eq. (3).
+    assert rel.teff(1.0, -4.6)[0] == rel.teff(1.0, -3.5)[0]
+    assert rel.dteff_dfeh(1.0, -4.6) == 0.0
+    # MBM21 dwarf: adopted [Fe/H] floor of the range at -3.5, no substitution
+    mbm = cal.get_relation("mbm21_bprp_dwarf")
+    assert not mbm.teff(0.8, -3.6)[1] and mbm.teff(0.8, -3.4)[1]
+
+
+def test_broadcasting_shapes():
+    rel = c10("c10_vk")
+    t, inside = rel.teff(np.full((3, 4), 1.6), np.array([0.0, -1.0, -2.0, 0.2]))
+    assert t.shape == inside.shape == (3, 4)
+    with pytest.raises(StelltempError):
+        rel.teff(np.ones(3), np.zeros(4))
+    with pytest.raises(StelltempError):
+        rel.teff("blue", 0.0)
+
+
+def test_feh_dependence_sign():
+    # At fixed B−V a metal-poor dwarf is cooler: weaker line blanketing makes it
+    # bluer at a given Teff (common practice; the sign of C10's a3, a4 terms).
+    rel = c10("c10_bv")
+    t = rel.teff(0.6, np.array([0.3, 0.0, -1.0, -2.0]))[0]
+    assert np.all(np.diff(t) < 0)
+    assert np.all(rel.dteff_dfeh(0.6, [0.3, 0.0, -1.0, -2.0]) > 0)
+    # infrared-optical colours depend far less on [Fe/H] than B−V (common practice)
+    vk = c10("c10_vk")
+    d_bv = abs(t[1] - t[2])
+    d_vk = abs(float(vk.teff(1.5, 0.0)[0] - vk.teff(1.5, -1.0)[0]))
+    assert d_vk < 0.5 * d_bv
+
+
+# ------------------------------------------------------------ derivatives
+@pytest.mark.parametrize("key", sorted(C10_TABLE4) + ["mbm21_bprp_dwarf", "mbm21_bprp_giant"])
+def test_derivatives_match_finite_differences(key):
+    rel = cal.get_relation(key)
+    lo, hi = rel.colour_range
+    x = np.linspace(lo + 0.02, hi - 0.02, 7)
+    z = np.linspace(max(rel.feh_range[0], -3.0) + 0.1, rel.feh_range[1] - 0.1, 7)
+    h = 1e-5
+    fd_x = (rel.teff(x + h, z)[0] - rel.teff(x - h, z)[0]) / (2 * h)
+    np.testing.assert_allclose(rel.dteff_dcolour(x, z), fd_x, rtol=1e-6)
+    fd_z = (rel.teff(x, z + h)[0] - rel.teff(x, z - h)[0]) / (2 * h)
+    np.testing.assert_allclose(rel.dteff_dfeh(x, z), fd_z, rtol=1e-5, atol=1e-4)
+    # hotter stars are bluer: T_eff falls with colour over the whole range
+    assert np.all(rel.dteff_dcolour(x, z) < 0)
+
+
+# ------------------------------------------------------------ selection
+def test_relations_for_and_applicability():
+    keys = [r.key for r in cal.relations_for({"jc.B", "jc.V", "2mass.Ks"})]
+    assert sorted(keys) == ["c10_bv", "c10_vk"]
+    assert [r.key for r in cal.relations_for(["gaia3.BP", "gaia3.RP"], stage="giant")] == [
+        "mbm21_bprp_giant"]
+    assert cal.relations_for(["jc.V"]) == ()
+    with pytest.raises(StelltempError):
+        cal.relations_for(["jc.V"], stage="supergiant")
+    dwarf, giant = cal.get_relation("mbm21_bprp_dwarf"), cal.get_relation("mbm21_bprp_giant")
+    g = np.array([4.5, 3.0, 2.99, np.nan])
+    assert dwarf.applies_to(g).tolist() == [True, True, False, True]
+    assert giant.applies_to(g).tolist() == [False, False, True, False]
+    assert bool(dwarf.applies_to(None)) and not bool(giant.applies_to(None))
+    with pytest.raises(StelltempError):
+        cal.get_relation("c10_ub")
+
+
+# ------------------------------------------------------------ combination
+def test_inverse_variance_combination_by_hand():
+    bv, e_bv, vk, e_vk, feh = 0.70, 0.015, 1.70, 0.03, -0.3
+    a = C10_TABLE4["c10_bv"][2]
+    b = C10_TABLE4["c10_vk"][2]
+
+    def by_hand(c, x, z, e, sigma):
+        theta = c[0] + c[1] * x + c[2] * x**2 + c[3] * x * z + c[4] * z + c[5] * z**2
+        slope = -5040.0 * (c[1] + 2 * c[2] * x + c[3] * z) / theta**2
+        return 5040.0 / theta, (slope * e) ** 2 + sigma**2
+
+    t1, v1 = by_hand(a, bv, feh, e_bv, 73.0)
+    t2, v2 = by_hand(b, vk, feh, e_vk, 25.0)
+    w1, w2 = 1 / v1, 1 / v2
+    expect = (w1 * t1 + w2 * t2) / (w1 + w2)
+    expect_err = (w1 + w2) ** -0.5
+    expect_chi2 = w1 * (t1 - expect) ** 2 + w2 * (t2 - expect) ** 2
+
+    res = cal.combine_teff({"c10_bv": [bv], ("jc.V", "2mass.Ks"): [vk]},
+                           {"c10_bv": [e_bv], ("jc.V", "2mass.Ks"): [e_vk]}, feh=[feh])
+    assert res.teff[0] == pytest.approx(expect, rel=1e-12)
+    assert res.teff_err[0] == pytest.approx(expect_err, rel=1e-12)
+    assert res.chi2[0] == pytest.approx(expect_chi2, rel=1e-9)
+    assert res.n_used[0] == 2 and res.keys == ("c10_bv", "c10_vk")
+    np.testing.assert_allclose(res.err_each[:, 0], [v1**0.5, v2**0.5], rtol=1e-12)
+    assert not (res.outside_range[0] or res.none_applicable[0] or res.feh_assumed[0])
+    assert res.flags[0] == 0
+
+
+def test_single_relation_error_is_total_error():
+    res = cal.combine_teff({"c10_vk": [1.5]}, {"c10_vk": [0.0]}, feh=[0.0])
+    assert res.teff_err[0] == pytest.approx(25.0)  # only the published scatter
+    assert np.isnan(res.chi2[0])
+
+
+def test_batch_flags_and_rows_independent():
+    bv = np.array([0.65, 2.0, np.nan, 0.65, 0.65])
+    vk = np.array([1.55, 1.55, np.nan, 1.55, 1.55])
+    e_vk = np.array([0.02, 0.02, 0.02, -0.1, 0.02])
+    res = cal.combine_teff({"c10_bv": bv, "c10_vk": vk},
+                           {"c10_bv": np.full(5, 0.01), "c10_vk": e_vk},
+                           feh=[0.0, 0.0, 0.0, 0.0, np.nan])
+    assert res.n_used.tolist() == [2, 1, 0, 1, 2]
+    assert res.outside_range.tolist() == [False, True, False, False, False]
+    assert res.none_applicable.tolist() == [False, False, True, False, False]
+    assert res.bad_input.tolist() == [False, False, False, True, False]
+    assert res.feh_assumed.tolist() == [False, False, False, False, True]
+    assert np.isnan(res.teff[2]) and np.isfinite(res.teff[[0, 1, 3, 4]]).all()
+    assert res.teff[4] == res.teff[0]  # NaN [Fe/H] means solar
+    assert res.flags[1] == fl.OUTSIDE_CALIBRATION
+    assert res.flags[2] == fl.NO_CALIBRATION
+    assert res.flags[3] == fl.BAD_INPUT
+
+
+def test_logg_selects_dwarf_or_giant_gaia_relation():
+    c = np.array([1.0, 1.0, 1.0])
+    res = cal.combine_teff({("gaia3.BP", "gaia3.RP"): c}, feh=0.0, logg=[4.5, 1.5, np.nan])
+    dwarf = float(cal.get_relation("mbm21_bprp_dwarf").teff(1.0, 0.0)[0])
+    giant = float(cal.get_relation("mbm21_bprp_giant").teff(1.0, 0.0)[0])
+    assert res.teff.tolist() == pytest.approx([dwarf, giant, dwarf])
+    assert res.n_used.tolist() == [1, 1, 1]
+    # C10 is for dwarfs and subgiants: a giant gets no C10 temperature
+    res = cal.combine_teff({"c10_vk": [1.5, 1.5]}, feh=0.0, logg=[4.0, 2.0])
+    assert res.none_applicable.tolist() == [False, True]
+    assert not res.outside_range[1]
+
+
+def test_vectorised_over_many_stars_matches_one_by_one():
+    rng = np.random.default_rng(3)
+    n = 5000
+    bv = rng.uniform(0.1, 1.4, n)
+    vk = rng.uniform(0.7, 3.3, n)
+    bprp = rng.uniform(0.3, 1.9, n)
+    feh = rng.uniform(-2.5, 0.5, n)
+    logg = rng.uniform(1.0, 5.0, n)
+    cols = {"c10_bv": bv, "c10_vk": vk, ("gaia3.BP", "gaia3.RP"): bprp}
+    errs = {"c10_bv": np.full(n, 0.01), "c10_vk": np.full(n, 0.02),
+            ("gaia3.BP", "gaia3.RP"): np.full(n, 0.005)}
+    res = cal.combine_teff(cols, errs, feh=feh, logg=logg)
+    assert res.teff.shape == (n,) and res.teff_each.shape == (4, n)
+    for i in rng.choice(n, 25, replace=False):
+        one = cal.combine_teff({k: v[i:i + 1] for k, v in cols.items()},
+                               {k: v[i:i + 1] for k, v in errs.items()},
+                               feh=feh[i:i + 1], logg=logg[i:i + 1])
+        np.testing.assert_allclose(one.teff, res.teff[i:i + 1], rtol=1e-12, equal_nan=True)
+        assert one.n_used[0] == res.n_used[i]
+    # the combined error never exceeds the best single relation's total error
+    best = np.where(np.isfinite(res.err_each), res.err_each, np.inf).min(axis=0)
+    ok = np.isfinite(best)
+    assert ok.sum() > n // 2
+    assert np.all(res.teff_err[ok] <= best[ok] + 1e-9)
+
+
+def test_combine_rejects_bad_arguments():
+    with pytest.raises(StelltempError):
+        cal.combine_teff({})
+    with pytest.raises(StelltempError):
+        cal.combine_teff({("jc.U", "jc.B"): [0.1]})
+    with pytest.raises(StelltempError):
+        cal.combine_teff({"c10_vk": [1.5]}, {"c10_bv": [0.01]})
+    with pytest.raises(StelltempError):
+        cal.combine_teff({"c10_vk": [1.5], ("jc.V", "2mass.Ks"): [1.5]})
+    with pytest.raises(StelltempError):
+        cal.combine_teff({"c10_vk": [1.5, 1.6], "c10_bv": [0.6, 0.7, 0.8]})
+    with pytest.raises(StelltempError):
+        cal.combine_teff({"c10_vk": ["red"]})
+    with pytest.raises(StelltempError):
+        cal.combine_teff({3: [1.5]})
+
+
+# ---------------------------------------------------------- table loading
+def test_load_relations_checks_tables(tmp_path):
+    src = cal.CALIBRATION_DIR / "casagrande2010_table4.ecsv"
+    good = tmp_path / "copy.ecsv"
+    shutil.copy(src, good)
+    assert [r.key for r in cal.load_relations(good)] == [r.key for r in cal.relations()
+                                                         if r.source == src.name]
+    broken = tmp_path / "broken.ecsv"
+    broken.write_text(src.read_text().replace("- terms: ['1', X,", "- terms: ['1', Y,"))
+    with pytest.raises(StelltempError):
+        cal.load_relations(broken)
+    with pytest.raises(StelltempError):
+        cal.load_relations(tmp_path / "missing.ecsv")
+
+
+# -------------------------------------------------------------- CLI hook
+def test_cli_hook(capsys):
+    parser = argparse.ArgumentParser()
+    cal.add_cli(parser.add_subparsers())
+    args = parser.parse_args(["relations", "--bands", "jc.V", "2mass.Ks"])
+    assert args.func(args) == 0
+    out = capsys.readouterr().out
+    assert "c10_vk" in out and "c10_bv" not in out
+    args = parser.parse_args(["relations", "--use", "c10_vk", "--colour", "1.56"])
+    assert args.func(args) == 0
+    assert "Teff = 5755" in capsys.readouterr().out
+    args = parser.parse_args(["relations", "--use", "c10_vk", "--colour", "5.0"])
+    assert args.func(args) == 1
