@@ -1,0 +1,451 @@
+"""Chunked runs of the temperature engine over a table file.
+
+Memory stays bounded by the chunk size when both ends are Parquet or CSV
+(they stream); ECSV, FITS and VOTable outputs are accumulated and written at
+the end, so large runs should use Parquet or CSV.
+
+The same per-chunk function, `compute_chunk`, serves the local loop here and
+the Dask partitions in :mod:`stelltemp.catalog.scale`, so both give identical
+rows.
+"""
+
+from __future__ import annotations
+
+import json
+import sys
+import time
+from dataclasses import asdict, dataclass, field
+from datetime import datetime, timezone
+
+import numpy as np
+
+from stelltemp.catalog import tableio
+from stelltemp.catalog.hygiene import LIMITS, prepare_inputs
+from stelltemp.catalog.mapping import ColumnMap, default_mapping, load_mapping, mapping_from_dict
+from stelltemp.engine import flags as F
+from stelltemp.errors import StelltempError
+
+#: suffix given to a result column whose name is already an input column
+RESULT_SUFFIX = "_result"
+#: column with the reasons of the flags set before the engine ran
+NOTES_COLUMN = "input_notes"
+
+
+@dataclass(frozen=True)
+class RunOptions:
+    """Engine settings shared by every row of a run.
+
+    Parameters
+    ----------
+    rv : float
+        Total-to-selective extinction ratio R_V.
+    law : str
+        Extinction law name (e.g. ``"G23"``, Gordon et al. 2023, ApJ 950, 86).
+    method : str
+        Engine method (``"auto"`` lets the engine choose).
+    fit_ebv : bool
+        Fit E(B−V) from the photometry instead of taking it as given.
+    """
+
+    rv: float = 3.1
+    law: str = "G23"
+    method: str = "auto"
+    fit_ebv: bool = False
+
+    def check(self):
+        """Raise `StelltempError` for options no row could use."""
+        if not (np.isfinite(self.rv) and self.rv > 0):
+            raise StelltempError(f"R_V must be a positive number, got {self.rv}")
+        if not isinstance(self.law, str) or not self.law:
+            raise StelltempError("the extinction law needs a name (e.g. G23)")
+
+
+@dataclass
+class RunSummary:
+    """What a run did: rows, successes, flag counts, wall time.
+
+    A row counts as a success when at least one of its temperature columns
+    (unit K, errors excluded) is finite.
+    """
+
+    input: str = ""
+    output: str = ""
+    backend: str = "local"
+    rows: int = 0
+    successes: int = 0
+    clean_rows: int = 0
+    flag_counts: dict = field(default_factory=lambda: {name: 0 for name in F.NAMES.values()})
+    chunks: int = 0
+    wall_time_s: float = 0.0
+    notes: list = field(default_factory=list)
+
+    @property
+    def rows_per_second(self):
+        return self.rows / self.wall_time_s if self.wall_time_s > 0 else float("nan")
+
+    def add(self, results):
+        """Count one chunk of engine results."""
+        flags = np.asarray(results["flags"], dtype=np.int64)
+        self.rows += len(flags)
+        self.chunks += 1
+        self.clean_rows += int(np.count_nonzero(flags == 0))
+        self.successes += int(np.count_nonzero(success_mask(results)))
+        for bit, name in F.NAMES.items():
+            self.flag_counts[name] += int(np.count_nonzero(flags & bit))
+
+    def to_dict(self):
+        d = asdict(self)
+        d["rows_per_second"] = None if not np.isfinite(self.rows_per_second) else round(self.rows_per_second, 1)
+        d["wall_time_s"] = round(self.wall_time_s, 3)
+        return d
+
+    def to_json(self):
+        return json.dumps(self.to_dict(), indent=1)
+
+    def __str__(self):
+        flagged = ", ".join(f"{k} {v}" for k, v in self.flag_counts.items() if v) or "none"
+        lines = [
+            f"{self.rows} rows in {self.wall_time_s:.2f} s ({self.backend}), "
+            f"{self.successes} with a temperature, {self.clean_rows} without flags",
+            f"flags: {flagged}",
+            f"written: {self.output}",
+        ]
+        lines += [f"note: {n}" for n in self.notes]
+        return "\n".join(lines)
+
+
+def success_mask(results):
+    """Rows with at least one finite temperature (unit K, ``*_err`` excluded)."""
+    import astropy.units as u
+
+    ok = np.zeros(len(results), bool)
+    found = False
+    for name in results.colnames:
+        col = results[name]
+        unit = getattr(col, "unit", None)
+        if unit is None or name.endswith("_err") or unit != u.K:
+            continue
+        found = True
+        ok |= np.isfinite(np.asarray(getattr(col, "value", col), dtype=float))
+    if not found:
+        ok = np.asarray(results["flags"]) == 0
+    return ok
+
+
+def fast_flag_names(masks):
+    """`stelltemp.engine.flags.describe` over many rows, once per distinct mask."""
+    masks = np.asarray(masks, dtype=np.int64)
+    uniq, inverse = np.unique(masks, return_inverse=True)
+    names = np.array([F.describe(m) for m in uniq], dtype=object)
+    return names[inverse.reshape(masks.shape)].astype(str) if masks.size else np.array([], dtype=str)
+
+
+def default_engine():
+    """The temperature engine, imported only when a run needs it."""
+    try:
+        from stelltemp.engine import estimate
+    except ImportError as exc:
+        raise StelltempError(f"the temperature engine is not available ({exc})") from None
+    return estimate
+
+
+def tool_version():
+    """Version of stelltemp: the package attribute, else the installed metadata."""
+    import stelltemp
+
+    version = getattr(stelltemp, "__version__", None)
+    if version:
+        return str(version)
+    try:
+        from importlib.metadata import PackageNotFoundError, version as dist_version
+
+        return dist_version("stelltemp")
+    except PackageNotFoundError:
+        return "unknown"
+
+
+def run_record(cmap, opts):
+    """Run metadata stored with the output (keys listed in `tableio.FITS_KEYS`)."""
+    if "ebv" in cmap.columns:
+        ebv = f"column {cmap.columns['ebv']}"
+    elif "ebv" in cmap.values:
+        ebv = f"{cmap.values['ebv']:g}"
+    else:
+        ebv = "0"
+    if opts.fit_ebv:
+        ebv += " (fitted)"
+    return {
+        "tool": "stelltemp",
+        "tool_version": tool_version(),
+        "method": opts.method,
+        "passbands": ",".join(cmap.bands),
+        "extinction_law": opts.law,
+        "r_v": float(opts.rv),
+        "ebv": ebv,
+        "run_utc": datetime.now(timezone.utc).isoformat(timespec="seconds"),
+    }
+
+
+def resolve_mapping(colnames, mapping=None, ebv=None, ebv_err=None):
+    """The column map of a run, checked against the table's columns.
+
+    Parameters
+    ----------
+    colnames : list of str
+    mapping : None, path-like, dict or ColumnMap
+        None uses the default naming (see :mod:`stelltemp.catalog.mapping`).
+    ebv, ebv_err : float, str or None
+        A number for every row or a column name; overrides the map.
+    """
+    if mapping is None:
+        cmap = default_mapping(colnames)
+    elif isinstance(mapping, ColumnMap):
+        cmap = mapping
+    elif isinstance(mapping, dict):
+        cmap = mapping_from_dict(mapping)
+    else:
+        cmap = load_mapping(mapping)
+    cmap = cmap.with_ebv(ebv, ebv_err)
+    for name, val in cmap.values.items():
+        lo, hi = LIMITS[name]
+        if not (np.isfinite(val) and lo <= val <= hi):
+            raise StelltempError(f"{name} = {val:g} is outside [{lo:g}, {hi:g}]")
+    cmap.check(colnames)
+    return cmap
+
+
+def _getter(chunk):
+    return lambda name: chunk[name]
+
+
+def compute_chunk(chunk, cmap, opts, engine):
+    """Clean one chunk's inputs, run the engine, merge the pre-engine flags.
+
+    Parameters
+    ----------
+    chunk : pyarrow Table or astropy Table
+        Rows of the catalogue.
+    cmap : ColumnMap
+        Checked column map.
+    opts : RunOptions
+    engine : callable
+        Follows the contract of `stelltemp.engine.estimate`.
+
+    Returns
+    -------
+    astropy.table.QTable
+        One row per input row: the engine's columns with ``flags`` including
+        the hygiene bits, ``flag_names`` recomputed, and `NOTES_COLUMN`.
+    """
+    n = len(chunk)
+    if n == 0:
+        return _empty_results(cmap, opts, engine)
+    clean = prepare_inputs(_getter(chunk), cmap, n, fit_ebv=opts.fit_ebv)
+    res = _call_engine(engine, clean, opts)
+    if len(res) != n:
+        raise StelltempError(f"the engine returned {len(res)} rows for {n}")
+    old = np.asarray(res["flags"], dtype=np.int64) if "flags" in res.colnames else np.zeros(n, np.int64)
+    masks = old | clean.flags
+    res["flags"] = masks
+    res["flag_names"] = fast_flag_names(masks)
+    res[NOTES_COLUMN] = clean.notes.astype(str)
+    return res
+
+
+def _call_engine(engine, clean, opts):
+    s = clean.scalars
+    return engine(
+        clean.mags,
+        clean.errs or None,
+        ebv=s.get("ebv", 0.0),
+        ebv_err=s.get("ebv_err", 0.0),
+        rv=opts.rv,
+        law=opts.law,
+        fit_ebv=opts.fit_ebv,
+        parallax=s.get("parallax"),
+        parallax_err=s.get("parallax_err"),
+        feh=s.get("feh"),
+        logg=s.get("logg"),
+        method=opts.method,
+    )
+
+
+def _empty_results(cmap, opts, engine):
+    """Zero-row results with the engine's columns (probe one all-NaN row)."""
+    import pyarrow as pa
+
+    probe = pa.table(
+        {name: pa.array([np.nan], pa.float64()) for name in cmap.required_columns()}
+    )
+    return compute_chunk(probe, cmap, opts, engine)[:0]
+
+
+def result_names(input_names, result_cols):
+    """Output names of result columns: clashes with input columns get `RESULT_SUFFIX`."""
+    taken = set(input_names)
+    out = {}
+    for name in result_cols:
+        new = name
+        while new in taken:
+            new += RESULT_SUFFIX
+        taken.add(new)
+        out[name] = new
+    return out
+
+
+def merge_arrow(chunk, results, names, types=None):
+    """Input chunk (any kind) plus renamed results as one pyarrow Table."""
+    import pyarrow as pa
+
+    left = chunk if isinstance(chunk, pa.Table) else tableio.astropy_to_arrow(chunk)
+    if types:
+        left = tableio.apply_types(left, types)
+    right = tableio.results_to_arrow(results)
+    for f, col in zip(right.schema, right.columns):
+        left = left.append_column(pa.field(names[f.name], f.type, metadata=f.metadata), col)
+    return left
+
+
+def merge_astropy(chunk, results, names, types=None):
+    """Input chunk (any kind) plus renamed results as one astropy Table."""
+    import pyarrow as pa
+    from astropy.table import Table
+
+    if isinstance(chunk, pa.Table):
+        left = tableio.arrow_to_astropy(tableio.apply_types(chunk, types) if types else chunk)
+    else:
+        left = Table(chunk, copy=False)
+    for name in results.colnames:
+        left[names[name]] = results[name]
+    return left
+
+
+def _progress(total, quiet):
+    from tqdm.auto import tqdm
+
+    hidden = quiet or not sys.stderr.isatty()
+    return tqdm(total=total, unit="row", unit_scale=True, disable=hidden, delay=1.0, file=sys.stderr,
+                desc="stelltemp")
+
+
+def run_catalogue(
+    input_path,
+    output_path,
+    mapping=None,
+    *,
+    ebv=None,
+    ebv_err=None,
+    rv=3.1,
+    law="G23",
+    method="auto",
+    fit_ebv=False,
+    overwrite=False,
+    chunk_rows=200_000,
+    quiet=False,
+    engine=None,
+):
+    """Run the temperature engine over every row of a table file.
+
+    Parameters
+    ----------
+    input_path, output_path : path-like
+        Table files; formats by extension (see :mod:`stelltemp.catalog.tableio`).
+    mapping : None, path-like, dict or ColumnMap
+        Column map; None uses the default naming.
+    ebv, ebv_err : float, str or None
+        E(B−V) (mag) for every row, or the column holding it; overrides the map.
+    rv : float
+        R_V.
+    law : str
+        Extinction law name.
+    method : str
+        Engine method.
+    fit_ebv : bool
+        Fit E(B−V) instead of taking it as given.
+    overwrite : bool
+        Allow replacing an existing output file.
+    chunk_rows : int
+        Rows per chunk (memory bound for streaming formats).
+    quiet : bool
+        No progress bar (it is also hidden when stderr is not a terminal).
+    engine : callable or None
+        Engine function; default `stelltemp.engine.estimate`.
+
+    Returns
+    -------
+    RunSummary
+
+    Raises
+    ------
+    StelltempError
+        Unreadable input, unknown extension, missing columns, existing output,
+        bad options.  Bad rows never raise: they are flagged.
+    """
+    t0 = time.perf_counter()
+    opts = RunOptions(rv=float(rv), law=law, method=method, fit_ebv=bool(fit_ebv))
+    opts.check()
+    tableio.check_output(output_path, overwrite, input_path)
+    reader = tableio.ChunkReader(input_path, chunk_rows)
+    cmap = resolve_mapping(reader.colnames, mapping, ebv, ebv_err)
+    engine = engine or default_engine()
+    out_fmt = tableio.table_format(output_path)
+    types = None
+    if reader.fmt == "csv" and out_fmt != "csv":  # give typed columns to typed formats
+        types = tableio.narrowest_types(iter(reader), reader.colnames)
+
+    summary = RunSummary(input=str(input_path), output=str(output_path))
+    names = None
+    with tableio.open_sink(output_path, run_record(cmap, opts), overwrite) as sink, _progress(
+        reader.num_rows, quiet
+    ) as bar:
+        merge = merge_arrow if sink.kind == "arrow" else merge_astropy
+        for chunk in _nonempty_or_one_empty(reader):
+            res = compute_chunk(chunk, cmap, opts, engine)
+            if names is None:
+                names = result_names(reader.colnames, res.colnames)
+            summary.add(res)
+            sink.write(merge(chunk, res, names, types))
+            bar.update(len(chunk))
+    summary.notes.extend(reader.notes)
+    summary.wall_time_s = time.perf_counter() - t0
+    return summary
+
+
+def _nonempty_or_one_empty(reader):
+    """Chunks of the reader; one empty chunk when the table has no rows."""
+    any_rows = False
+    for chunk in reader:
+        if len(chunk):
+            any_rows = True
+            yield chunk
+    if not any_rows:
+        yield reader.empty_chunk()
+
+
+def estimate_table(table, mapping=None, *, ebv=None, ebv_err=None, rv=3.1, law="G23", method="auto",
+                   fit_ebv=False, engine=None):
+    """Run the engine over an in-memory astropy Table; return input plus result columns.
+
+    Parameters are those of `run_catalogue` (without files).
+
+    Returns
+    -------
+    astropy.table.Table
+    """
+    opts = RunOptions(rv=float(rv), law=law, method=method, fit_ebv=bool(fit_ebv))
+    opts.check()
+    cmap = resolve_mapping(list(table.colnames), mapping, ebv, ebv_err)
+    res = compute_chunk(table, cmap, opts, engine or default_engine())
+    return merge_astropy(table, res, result_names(table.colnames, res.colnames))
+
+
+__all__ = [
+    "RunOptions",
+    "RunSummary",
+    "compute_chunk",
+    "estimate_table",
+    "merge_arrow",
+    "merge_astropy",
+    "resolve_mapping",
+    "run_catalogue",
+]

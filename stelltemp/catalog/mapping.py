@@ -1,0 +1,252 @@
+"""Which catalogue column holds which input of the temperature engine.
+
+Default naming (no map file)
+----------------------------
+- a magnitude column is named by its passband key, e.g. ``jc.V`` or
+  ``2mass.Ks`` (only keys of a known photometric system are picked up, so a
+  column such as ``obs.date`` is left alone);
+- its 1-sigma error column is the key plus ``_err``, e.g. ``jc.V_err``;
+- ``ebv`` and ``ebv_err`` hold E(B−V) and its error (mag), ``parallax`` and
+  ``parallax_err`` the parallax (mas), ``feh`` the [Fe/H] (dex) and ``logg``
+  the surface gravity log g (cgs dex).  Each is optional.
+
+Map file (our own TOML layout)
+------------------------------
+For catalogues with their own column names::
+
+    # column map for an invented survey table
+    [bands]
+    "jc.B" = "Bmag"                          # magnitude column only
+    "jc.V" = { mag = "Vmag", err = "e_Vmag" }
+
+    [columns]            # any of: ebv ebv_err parallax parallax_err feh logg
+    ebv = "EBV_map"
+    parallax = "plx"
+
+    [values]             # one number for every row, used when no column is named
+    ebv = 0.03
+    ebv_err = 0.01
+
+A key given both in ``[columns]`` and ``[values]`` is an error.
+"""
+
+from __future__ import annotations
+
+import re
+import tomllib
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+
+from stelltemp.errors import StelltempError
+
+#: suffix of the default error column of a magnitude column
+ERR_SUFFIX = "_err"
+
+#: photometric systems whose keys are picked up by the default mapping
+#: (the conventions in DEVELOPERS.md; extended by the passband registry when present)
+KNOWN_SYSTEMS = ("jc", "sdss", "2mass", "gaia3")
+
+#: per-row inputs besides magnitudes, with the default column name of each
+SCALAR_INPUTS = ("ebv", "ebv_err", "parallax", "parallax_err", "feh", "logg")
+
+#: the inputs that may also be given as a single number for all rows
+VALUE_INPUTS = ("ebv", "ebv_err")
+
+
+@dataclass(frozen=True)
+class BandColumns:
+    """Catalogue columns of one passband: magnitude and optional 1-sigma error."""
+
+    mag: str
+    err: str | None = None
+
+
+@dataclass(frozen=True)
+class ColumnMap:
+    """Where each engine input lives in a catalogue.
+
+    Parameters
+    ----------
+    bands : dict of str -> BandColumns
+        Passband key (``jc.V``) -> magnitude and error columns.
+    columns : dict of str -> str
+        Input name (one of `SCALAR_INPUTS`) -> catalogue column.
+    values : dict of str -> float
+        Input name (``ebv``, ``ebv_err``) -> one value for every row (mag).
+    """
+
+    bands: dict = field(default_factory=dict)
+    columns: dict = field(default_factory=dict)
+    values: dict = field(default_factory=dict)
+
+    def required_columns(self):
+        """Every catalogue column this map reads, in a stable order."""
+        names = []
+        for spec in self.bands.values():
+            names.append(spec.mag)
+            if spec.err:
+                names.append(spec.err)
+        names.extend(self.columns[k] for k in SCALAR_INPUTS if k in self.columns)
+        return list(dict.fromkeys(names))
+
+    def check(self, colnames):
+        """Raise `StelltempError` naming the first mapped column absent from `colnames`."""
+        if not self.bands:
+            raise StelltempError(
+                "no magnitude columns: name them by passband key (e.g. 'jc.V') "
+                "or give a column map file with a [bands] table"
+            )
+        present = set(colnames)
+        for key, spec in self.bands.items():
+            for col, what in ((spec.mag, "magnitude"), (spec.err, "error")):
+                if col is not None and col not in present:
+                    raise StelltempError(f"column '{col}' ({what} of {key}) is not in the table")
+        for key, col in self.columns.items():
+            if col not in present:
+                raise StelltempError(f"column '{col}' (for {key}) is not in the table")
+
+    def with_ebv(self, ebv=None, ebv_err=None):
+        """A copy with E(B−V) (and its error) set from a number or a column name.
+
+        A string that parses as a number is a value for every row; any other
+        string is a column name.  ``None`` leaves the setting as it is.
+        """
+        out = self
+        for name, given in (("ebv", ebv), ("ebv_err", ebv_err)):
+            if given is None:
+                continue
+            cols, vals = dict(out.columns), dict(out.values)
+            cols.pop(name, None)
+            vals.pop(name, None)
+            number = _as_number(given)
+            if number is None:
+                cols[name] = str(given)
+            else:
+                vals[name] = number
+            out = replace(out, columns=cols, values=vals)
+        return out
+
+
+def _as_number(given):
+    if isinstance(given, bool):
+        return None
+    if isinstance(given, (int, float)):
+        return float(given)
+    try:
+        return float(str(given))
+    except ValueError:
+        return None
+
+
+def band_key_pattern(systems=KNOWN_SYSTEMS):
+    """Compiled regex matching a passband key of one of `systems`."""
+    alt = "|".join(re.escape(s) for s in systems)
+    return re.compile(rf"^(?:{alt})\.[A-Za-z0-9_]+$")
+
+
+def default_mapping(colnames, systems=KNOWN_SYSTEMS):
+    """Column map from the default naming (see module docstring).
+
+    Parameters
+    ----------
+    colnames : iterable of str
+        Column names of the catalogue.
+    systems : sequence of str
+        Photometric systems whose keys count as magnitude columns.
+
+    Returns
+    -------
+    ColumnMap
+    """
+    names = list(colnames)
+    present = set(names)
+    pattern = band_key_pattern(systems)
+    registered = _registered_keys()
+    bands = {}
+    for name in names:
+        if name.endswith(ERR_SUFFIX) or not (name in registered or pattern.match(name)):
+            continue
+        err = name + ERR_SUFFIX
+        bands[name] = BandColumns(mag=name, err=err if err in present else None)
+    columns = {k: k for k in SCALAR_INPUTS if k in present}
+    return ColumnMap(bands=bands, columns=columns)
+
+
+def _registered_keys():
+    """Keys of the built-in passband registry (empty if it cannot be loaded)."""
+    try:
+        from stelltemp.passbands import builtin_keys
+
+        return set(builtin_keys())
+    except Exception:  # registry missing or broken: the known systems still apply
+        return set()
+
+
+def load_mapping(path):
+    """Read a column map file (TOML layout in the module docstring).
+
+    Raises
+    ------
+    StelltempError
+        Unreadable file, TOML syntax error, unknown table or key, wrong type.
+    """
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except OSError as exc:
+        raise StelltempError(f"cannot read column map {path}: {exc.strerror or exc}") from None
+    try:
+        doc = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise StelltempError(f"column map {path}: {exc}") from None
+    return mapping_from_dict(doc, source=str(path))
+
+
+def mapping_from_dict(doc, source="column map"):
+    """Build a `ColumnMap` from the parsed TOML document `doc`."""
+    unknown = set(doc) - {"bands", "columns", "values"}
+    if unknown:
+        raise StelltempError(f"{source}: unknown table [{sorted(unknown)[0]}] (use bands, columns, values)")
+
+    bands = {}
+    for key, spec in _table(doc, "bands", source).items():
+        if "." not in key:
+            raise StelltempError(f"{source}: band key '{key}' is not <system>.<band> (e.g. jc.V)")
+        if isinstance(spec, str):
+            bands[key] = BandColumns(mag=spec)
+        elif isinstance(spec, dict):
+            extra = set(spec) - {"mag", "err"}
+            if extra or not isinstance(spec.get("mag"), str):
+                raise StelltempError(f"{source}: [bands] '{key}' needs mag = \"column\" and optionally err = \"column\"")
+            err = spec.get("err")
+            if err is not None and not isinstance(err, str):
+                raise StelltempError(f"{source}: [bands] '{key}' err must be a column name")
+            bands[key] = BandColumns(mag=spec["mag"], err=err)
+        else:
+            raise StelltempError(f"{source}: [bands] '{key}' must be a column name or {{mag=..., err=...}}")
+
+    columns = {}
+    for key, col in _table(doc, "columns", source).items():
+        if key not in SCALAR_INPUTS:
+            raise StelltempError(f"{source}: unknown key '{key}' in [columns] (use {', '.join(SCALAR_INPUTS)})")
+        if not isinstance(col, str):
+            raise StelltempError(f"{source}: [columns] {key} must be a column name")
+        columns[key] = col
+
+    values = {}
+    for key, val in _table(doc, "values", source).items():
+        if key not in VALUE_INPUTS:
+            raise StelltempError(f"{source}: unknown key '{key}' in [values] (use {', '.join(VALUE_INPUTS)})")
+        if isinstance(val, bool) or not isinstance(val, (int, float)):
+            raise StelltempError(f"{source}: [values] {key} must be a number")
+        if key in columns:
+            raise StelltempError(f"{source}: '{key}' is given both as a column and as a value")
+        values[key] = float(val)
+    return ColumnMap(bands=bands, columns=columns, values=values)
+
+
+def _table(doc, name, source):
+    sub = doc.get(name, {})
+    if not isinstance(sub, dict):
+        raise StelltempError(f"{source}: '{name}' must be a table ([{name}])")
+    return sub

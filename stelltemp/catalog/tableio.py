@@ -1,0 +1,650 @@
+"""Table files in and out, chosen by extension, with atomic output.
+
+Formats
+-------
+=============  ==============================  =============================
+extension      reading                         writing
+=============  ==============================  =============================
+``.parquet``   streamed by batches (pyarrow)   streamed (ParquetWriter)
+``.pq``
+``.csv``       streamed by blocks (pyarrow)    streamed (pyarrow CSV writer)
+``.ecsv``      whole file (astropy)            accumulated, written at end
+``.fits``      whole file (astropy)            accumulated, written at end
+``.fit .fts``
+``.vot``       whole file (astropy)            accumulated, written at end
+``.xml``
+=============  ==============================  =============================
+
+Large runs should use Parquet or CSV on both ends: only they stream, so
+memory stays bounded by the chunk size.
+
+Units and run metadata
+----------------------
+Parquet keeps column units in the field metadata (key ``unit``) and the run
+record as JSON under the schema metadata key ``stelltemp``.  ECSV keeps both
+in its header, FITS in the table header (keys ``ST*``, see `FITS_KEYS`) and
+column ``TUNIT``, VOTable in ``INFO`` elements and ``unit`` attributes.  Plain
+CSV cannot carry them: they go to a sidecar ``<output>.meta.json``.
+
+Safety
+------
+An existing output is never replaced unless ``overwrite=True``.  Output is
+written to a hidden temporary file in the target's folder and renamed into
+place (`os.replace`) only when complete, so an interrupted run leaves neither
+a half-written target nor the temporary file.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import csv
+import json
+import os
+import tempfile
+from pathlib import Path
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.compute as pc
+
+from stelltemp.errors import StelltempError
+
+#: extension (lower case) -> format name
+EXTENSIONS = {
+    ".parquet": "parquet",
+    ".pq": "parquet",
+    ".csv": "csv",
+    ".ecsv": "ecsv",
+    ".fits": "fits",
+    ".fit": "fits",
+    ".fts": "fits",
+    ".vot": "votable",
+    ".votable": "votable",
+    ".xml": "votable",
+}
+#: formats read and written chunk by chunk
+STREAMING = ("parquet", "csv")
+#: astropy registry names of the accumulated formats
+_ASTROPY_FORMAT = {"ecsv": "ascii.ecsv", "fits": "fits", "votable": "votable"}
+
+#: run-record key -> FITS header keyword (8 characters at most)
+FITS_KEYS = {
+    "tool": "STTOOL",
+    "tool_version": "STVERSN",
+    "method": "STMETHOD",
+    "passbands": "STBANDS",
+    "extinction_law": "STEXTLAW",
+    "r_v": "STRV",
+    "ebv": "STEBV",
+    "run_utc": "STRUNUTC",
+}
+
+SIDECAR_SUFFIX = ".meta.json"
+
+
+def table_format(path):
+    """Format name of `path` from its extension.
+
+    Raises
+    ------
+    StelltempError
+        Unknown extension.
+    """
+    name = Path(path).name.lower()
+    for ext, fmt in EXTENSIONS.items():
+        if name.endswith(ext):
+            return fmt
+    known = " ".join(sorted(EXTENSIONS))
+    raise StelltempError(f"{path}: unknown table extension (use one of {known})")
+
+
+# --------------------------------------------------------------------- column conversions
+def unit_of_field(field):
+    """Unit string stored in an arrow field's metadata, or None."""
+    meta = field.metadata or {}
+    unit = meta.get(b"unit")
+    return unit.decode() if unit else None
+
+
+def astropy_to_arrow(table):
+    """An astropy Table as a pyarrow Table (units into field metadata)."""
+    arrays, fields = [], []
+    for name in table.colnames:
+        col = table[name]
+        unit = getattr(col, "unit", None)
+        values = col.value if hasattr(col, "value") and unit is not None and not hasattr(col, "mask") else col
+        mask = np.ma.getmaskarray(values) if hasattr(values, "mask") else None
+        data = np.asarray(values.data if hasattr(values, "mask") else values)
+        if data.ndim > 1:
+            arr = pa.array(data.tolist())
+        elif data.dtype.kind == "S":
+            arr = pa.array(np.char.decode(data, "utf-8", errors="replace"), type=pa.string())
+        elif data.dtype.kind == "U":
+            arr = pa.array(data, type=pa.string())
+        elif data.dtype.kind == "O":
+            arr = pa.array([None if v is None else str(v) for v in data], type=pa.string())
+        else:
+            arr = pa.array(data)
+        if mask is not None and mask.any():
+            arr = pc.if_else(pa.array(mask), pa.scalar(None, arr.type), arr)
+        meta = {b"unit": str(unit).encode()} if unit is not None and str(unit) else None
+        arrays.append(arr)
+        fields.append(pa.field(name, arr.type, metadata=meta))
+    return pa.Table.from_arrays(arrays, schema=pa.schema(fields))
+
+
+def arrow_to_astropy(table):
+    """A pyarrow Table as an astropy Table (units from field metadata; nulls masked)."""
+    from astropy.table import Column, MaskedColumn, Table
+
+    out = Table()
+    for field, col in zip(table.schema, table.columns):
+        unit = unit_of_field(field)
+        nulls = np.asarray(pc.is_null(col).to_numpy(zero_copy_only=False), dtype=bool)
+        typ = field.type
+        if pa.types.is_string(typ) or pa.types.is_large_string(typ):
+            data = np.array(pc.fill_null(col, "").to_pylist(), dtype=str)
+            if data.dtype.itemsize == 0:
+                data = data.astype("U1")
+        elif pa.types.is_floating(typ):
+            data = np.asarray(col.to_numpy(), dtype=np.float64 if typ.bit_width == 64 else None)
+            nulls = np.zeros(len(col), bool)  # null -> NaN already
+        elif pa.types.is_null(typ):
+            data = np.full(len(col), np.nan)
+            nulls = np.zeros(len(col), bool)
+        else:
+            filled = col if not nulls.any() else pc.fill_null(col, pa.scalar(_zero_of(typ), typ))
+            data = np.asarray(filled.to_numpy())
+        if nulls.any():
+            out[field.name] = MaskedColumn(data, mask=nulls, unit=unit)
+        else:
+            out[field.name] = Column(data, unit=unit)
+    return out
+
+
+def _zero_of(typ):
+    if pa.types.is_boolean(typ):
+        return False
+    if pa.types.is_integer(typ):
+        return 0
+    return None
+
+
+def results_to_arrow(results):
+    """Engine result table (QTable) as a pyarrow Table with units in field metadata."""
+    return astropy_to_arrow(results)
+
+
+# --------------------------------------------------------------------- readers
+class ChunkReader:
+    """Iterate over a table file in chunks.
+
+    Attributes
+    ----------
+    path : pathlib.Path
+    fmt : str
+        Format name (see `EXTENSIONS`).
+    colnames : list of str
+        Column names (duplicates renamed ``name_2``, ``name_3``… and noted).
+    num_rows : int or None
+        Total rows when known before reading (None for CSV).
+    notes : list of str
+        Things the reader changed or skipped (renamed columns, malformed lines).
+    """
+
+    def __init__(self, path, chunk_rows=100_000):
+        self.path = Path(path)
+        self.fmt = table_format(self.path)
+        self.chunk_rows = max(1, int(chunk_rows))
+        self.notes = []
+        self.num_rows = None
+        self.skipped_lines = 0
+        if not self.path.is_file():
+            raise StelltempError(f"{self.path}: no such file")
+        if self.fmt == "parquet":
+            self._open_parquet()
+        elif self.fmt == "csv":
+            self._open_csv()
+        else:
+            self._open_astropy()
+        if not self.colnames:
+            raise StelltempError(f"{self.path}: the table has no columns")
+
+    # -- parquet
+    def _open_parquet(self):
+        import pyarrow.parquet as pq
+
+        try:
+            self._pq = pq.ParquetFile(self.path)
+            schema = self._pq.schema_arrow
+        except Exception as exc:  # pyarrow raises several types for corrupt files
+            raise StelltempError(f"{self.path}: not a readable Parquet file ({_first_line(exc)})") from None
+        self.num_rows = self._pq.metadata.num_rows
+        self._raw_names = schema.names
+        self.colnames = _dedupe(schema.names, self.notes)
+        self.schema = pa.schema(
+            [pa.field(new, f.type, metadata=f.metadata) for new, f in zip(self.colnames, schema)]
+        )
+
+    # -- csv
+    def _open_csv(self):
+        try:
+            with open(self.path, "rb") as fh:
+                skip = 0
+                head = b""
+                while True:
+                    line = fh.readline()
+                    if not line:
+                        break
+                    if line.lstrip().startswith(b"#") or not line.strip():
+                        skip += 1
+                        continue
+                    head = line
+                    break
+                sample = fh.read(1 << 16)
+        except OSError as exc:
+            raise StelltempError(f"{self.path}: cannot read ({exc.strerror or exc})") from None
+        try:
+            header = next(csv.reader([head.decode("utf-8-sig")]), [])
+        except UnicodeDecodeError:
+            raise StelltempError(f"{self.path}: the header is not UTF-8 text") from None
+        header = [h.strip() for h in header]
+        if not any(header):
+            raise StelltempError(f"{self.path}: no header line with column names")
+        header = [h if h else f"col{i + 1}" for i, h in enumerate(header)]
+        self.colnames = _dedupe(header, self.notes)
+        lines = max(1, sample.count(b"\n"))
+        row_bytes = max(16, len(sample) // lines) if sample else 64
+        self._csv_skip = skip + 1
+        self._block = int(min(256 << 20, max(1 << 20, row_bytes * self.chunk_rows)))
+        self.schema = pa.schema([pa.field(n, pa.string()) for n in self.colnames])
+
+    def _csv_stream(self):
+        import pyarrow.csv as pcsv
+
+        def on_bad_row(row):
+            self.skipped_lines += 1
+            return "skip"
+
+        return pcsv.open_csv(
+            self.path,
+            read_options=pcsv.ReadOptions(
+                skip_rows=self._csv_skip, column_names=self.colnames, block_size=self._block
+            ),
+            parse_options=pcsv.ParseOptions(invalid_row_handler=on_bad_row),
+            convert_options=pcsv.ConvertOptions(
+                column_types={n: pa.string() for n in self.colnames},
+                strings_can_be_null=False,
+                quoted_strings_can_be_null=False,
+            ),
+        )
+
+    # -- astropy formats
+    def _open_astropy(self):
+        import warnings
+
+        from astropy.table import Table
+
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")  # unit-parsing chatter of foreign files
+                self._table = Table.read(self.path, format=_ASTROPY_FORMAT[self.fmt])
+        except Exception as exc:  # astropy raises many types for malformed files
+            raise StelltempError(f"{self.path}: not a readable {self.fmt.upper()} table ({_first_line(exc)})") from None
+        if self.fmt == "votable":
+            self._table.meta.update(_votable_infos(self.path))
+        self.num_rows = len(self._table)
+        self.colnames = list(self._table.colnames)
+        self.schema = None
+
+    def __iter__(self):
+        """Yield chunks: pyarrow Tables (Parquet, CSV) or astropy Tables (others)."""
+        if self.fmt == "parquet":
+            try:
+                for batch in self._pq.iter_batches(batch_size=self.chunk_rows):
+                    yield pa.Table.from_batches([batch]).rename_columns(self.colnames)
+            except (pa.ArrowInvalid, OSError) as exc:
+                raise StelltempError(f"{self.path}: damaged Parquet data ({_first_line(exc)})") from None
+        elif self.fmt == "csv":
+            try:
+                stream = self._csv_stream()
+                for batch in stream:
+                    yield pa.Table.from_batches([batch])
+            except pa.ArrowInvalid as exc:
+                raise StelltempError(f"{self.path}: unreadable CSV ({_first_line(exc)})") from None
+            if self.skipped_lines:
+                self.notes.append(f"{self.skipped_lines} malformed CSV line(s) skipped (wrong number of fields)")
+        else:
+            for start in range(0, len(self._table), self.chunk_rows):
+                yield self._table[start : start + self.chunk_rows]
+
+    def empty_chunk(self):
+        """A zero-row chunk with the input's columns (for schemas of empty inputs)."""
+        if self.fmt in STREAMING:
+            return self.schema.empty_table()
+        return self._table[:0]
+
+
+def _votable_infos(path):
+    """INFO name/value pairs of the first VOTable table (where runs keep their record)."""
+    import warnings
+
+    from astropy.io.votable import parse
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        table = parse(str(path)).get_first_table()
+    return {info.name: info.value for info in table.infos}
+
+
+def _dedupe(names, notes):
+    """Rename repeated column names ``x`` -> ``x_2``, ``x_3``… and note it."""
+    seen, out = {}, []
+    taken = set(names)
+    for name in names:
+        if name not in seen:
+            seen[name] = 1
+            out.append(name)
+            continue
+        k = seen[name]
+        while True:
+            k += 1
+            new = f"{name}_{k}"
+            if new not in taken:
+                break
+        seen[name] = k
+        taken.add(new)
+        out.append(new)
+        notes.append(f"repeated column name '{name}' renamed '{new}'")
+    return out
+
+
+def _first_line(exc):
+    text = str(exc).strip().splitlines()
+    return text[0] if text else type(exc).__name__
+
+
+def read_table(path):
+    """Read a whole table file into an astropy Table (small files; see `ChunkReader`)."""
+    reader = ChunkReader(path, chunk_rows=1 << 62)
+    chunks = list(reader)
+    if reader.fmt not in STREAMING:
+        return chunks[0] if chunks else reader.empty_chunk()
+    table = pa.concat_tables(chunks) if chunks else reader.empty_chunk()
+    if reader.fmt == "csv":
+        table = apply_types(table, narrowest_types([table], table.column_names))
+    out = arrow_to_astropy(table)
+    if reader.fmt == "parquet":
+        raw = reader._pq.schema_arrow.metadata or {}
+        if b"stelltemp" in raw:
+            out.meta.update(json.loads(raw[b"stelltemp"]))
+    elif reader.fmt == "csv":
+        side = Path(str(path) + SIDECAR_SUFFIX)
+        if side.is_file():
+            record = json.loads(side.read_text())
+            out.meta.update(record.get("run", {}))
+            for name, unit in record.get("units", {}).items():
+                if name in out.colnames:
+                    out[name].unit = unit
+    return out
+
+
+# --------------------------------------------------------------------- CSV text -> types
+_INT_RE = r"^[+-]?\d+$"
+_FLOAT_RE = r"^[+-]?(?:\d+\.?\d*|\.\d+)(?:e[+-]?\d+)?$|^[+-]?(?:inf|infinity|nan)$"
+
+
+def narrowest_types(chunks, names):
+    """Narrowest arrow type holding every value of text columns over all `chunks`.
+
+    Parameters
+    ----------
+    chunks : iterable of pyarrow Table
+        All-string chunks (CSV as read).
+    names : list of str
+        Columns to type.
+
+    Returns
+    -------
+    dict of str -> pyarrow.DataType
+        ``int64`` if every non-empty cell is an integer, ``float64`` if every
+        non-empty cell is a number, else ``string``.  All-empty columns stay text.
+    """
+    state = {n: "empty" for n in names}
+    order = ["empty", "int", "float", "string"]
+    for chunk in chunks:
+        for n in names:
+            if state[n] == "string":
+                continue
+            low = pc.utf8_lower(pc.utf8_trim_whitespace(chunk[n]))
+            filled = pc.not_equal(low, "")
+            if not pc.any(filled).as_py():
+                continue
+            need = "int"
+            if not pc.all(pc.or_(pc.invert(filled), pc.match_substring_regex(low, _INT_RE))).as_py():
+                need = "float"
+                if not pc.all(pc.or_(pc.invert(filled), pc.match_substring_regex(low, _FLOAT_RE))).as_py():
+                    need = "string"
+            if order.index(need) > order.index(state[n]):
+                state[n] = need
+    to_type = {"empty": pa.string(), "int": pa.int64(), "float": pa.float64(), "string": pa.string()}
+    return {n: to_type[state[n]] for n in names}
+
+
+def apply_types(chunk, types):
+    """Cast text columns of `chunk` to `types` (empty cell -> null)."""
+    cols = []
+    for name in chunk.column_names:
+        col = chunk[name]
+        typ = types.get(name, pa.string())
+        if typ != pa.string():
+            s = pc.utf8_trim_whitespace(col)
+            s = pc.if_else(pc.equal(s, ""), pa.scalar(None, pa.string()), s)
+            col = pc.cast(s, typ)
+        cols.append(col)
+    return pa.Table.from_arrays(cols, names=chunk.column_names)
+
+
+# --------------------------------------------------------------------- atomic output
+def check_output(path, overwrite=False, input_path=None):
+    """Refuse to replace an existing output (or the input) before any work starts."""
+    path = Path(path)
+    table_format(path)
+    if input_path is not None and Path(input_path).resolve() == path.resolve():
+        raise StelltempError(f"{path}: the output would replace the input")
+    if path.is_dir():
+        raise StelltempError(f"{path}: is a folder")
+    if not overwrite:
+        for p in (path, Path(str(path) + SIDECAR_SUFFIX)) if table_format(path) == "csv" else (path,):
+            if p.exists():
+                raise StelltempError(f"{p}: already exists (allow replacing it explicitly)")
+    if not path.parent.exists():
+        raise StelltempError(f"{path.parent}: no such folder")
+
+
+@contextlib.contextmanager
+def atomic_path(path, overwrite=False):
+    """Yield a temporary path beside `path`; rename it to `path` on success.
+
+    On any exception (including KeyboardInterrupt) the temporary file is
+    removed and the target is left untouched.
+    """
+    path = Path(path)
+    if path.exists() and not overwrite:
+        raise StelltempError(f"{path}: already exists (allow replacing it explicitly)")
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent or ".")
+    os.close(fd)
+    try:
+        yield Path(tmp)
+        if path.exists() and not overwrite:  # appeared while we worked
+            raise StelltempError(f"{path}: already exists (allow replacing it explicitly)")
+        os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600; give the usual mode
+        os.replace(tmp, path)
+    except BaseException:
+        with contextlib.suppress(FileNotFoundError):
+            os.unlink(tmp)
+        raise
+
+
+def _umask():
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
+# --------------------------------------------------------------------- sinks
+class Sink:
+    """Receives output chunks and writes them to a temporary file.
+
+    Use `open_sink`; call `write` per chunk and `close` once.
+    """
+
+    def write(self, arrow_chunk=None, astropy_chunk=None):  # pragma: no cover - interface
+        raise NotImplementedError
+
+    def close(self):  # pragma: no cover - interface
+        raise NotImplementedError
+
+    def abort(self):
+        """Release file handles after a failure (the temporary file is removed by the caller)."""
+        writer = getattr(self, "writer", None)
+        if writer is not None:
+            try:
+                writer.close()
+            except Exception:  # the run already failed; keep its error
+                pass
+            self.writer = None
+
+
+class ParquetSink(Sink):
+    def __init__(self, tmp, run_meta):
+        self.tmp, self.run_meta, self.writer, self.schema = tmp, run_meta, None, None
+
+    def write(self, chunk):
+        import pyarrow.parquet as pq
+
+        if self.writer is None:
+            meta = dict(chunk.schema.metadata or {})
+            meta.pop(b"pandas", None)
+            meta[b"stelltemp"] = json.dumps(self.run_meta).encode()
+            self.schema = chunk.schema.with_metadata(meta)
+            self.writer = pq.ParquetWriter(self.tmp, self.schema)
+        self.writer.write_table(chunk.cast(self.schema))
+
+    def close(self):
+        if self.writer is not None:
+            self.writer.close()
+
+
+class CsvSink(Sink):
+    def __init__(self, tmp, run_meta):
+        self.tmp, self.run_meta, self.writer, self.schema = tmp, run_meta, None, None
+        self.units = {}
+
+    def write(self, chunk):
+        import pyarrow.csv as pcsv
+
+        if self.writer is None:
+            self.schema = chunk.schema
+            self.units = {f.name: unit_of_field(f) for f in chunk.schema if unit_of_field(f)}
+            opts = pcsv.WriteOptions(include_header=True, quoting_style="needed")
+            self.writer = pcsv.CSVWriter(str(self.tmp), self.schema, write_options=opts)
+        self.writer.write_table(chunk.cast(self.schema))
+
+    def close(self):
+        if self.writer is not None:
+            self.writer.close()
+
+    def sidecar(self):
+        return json.dumps({"run": self.run_meta, "units": self.units}, indent=1)
+
+
+class AstropySink(Sink):
+    """Accumulates chunks in memory; writes at `close` (ECSV, FITS, VOTable)."""
+
+    def __init__(self, tmp, fmt, run_meta):
+        self.tmp, self.fmt, self.run_meta, self.parts = tmp, fmt, run_meta, []
+
+    def write(self, chunk):
+        self.parts.append(chunk)
+
+    def close(self):
+        import warnings
+
+        from astropy.table import vstack
+
+        if not self.parts:
+            raise StelltempError("nothing to write")
+        table = vstack(self.parts, metadata_conflicts="silent") if len(self.parts) > 1 else self.parts[0]
+        for name in table.colnames:  # FITS and VOTable cannot hold Python objects
+            if table[name].dtype.kind == "O":
+                table[name] = table[name].astype(str)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")  # HIERARCH / unit-string chatter
+            if self.fmt == "fits":
+                for key, val in self.run_meta.items():
+                    table.meta[FITS_KEYS.get(key, key[:8].upper())] = val
+                table.write(self.tmp, format="fits", overwrite=True)
+            elif self.fmt == "votable":
+                _write_votable(table, self.tmp, self.run_meta)
+            else:
+                table.meta.update(self.run_meta)
+                table.write(self.tmp, format="ascii.ecsv", overwrite=True)
+
+
+def _write_votable(table, path, run_meta):
+    from astropy.io.votable import from_table
+    from astropy.io.votable.tree import Info
+
+    vot = from_table(table)
+    for key, val in run_meta.items():
+        vot.resources[0].tables[0].infos.append(Info(name=key, value=str(val)))
+    vot.to_xml(str(path))
+
+
+@contextlib.contextmanager
+def open_sink(path, run_meta, overwrite=False):
+    """Context manager yielding a sink that writes `path` atomically.
+
+    Parameters
+    ----------
+    path : path-like
+        Final output file; its extension selects the format.
+    run_meta : dict
+        Run record (see `FITS_KEYS` for the keys) stored with the table.
+    overwrite : bool
+        Allow replacing an existing file.
+
+    The sink's ``kind`` attribute is ``"arrow"`` (feed pyarrow Tables) or
+    ``"astropy"`` (feed astropy Tables).
+    """
+    path = Path(path)
+    fmt = table_format(path)
+    with contextlib.ExitStack() as stack:
+        tmp = stack.enter_context(atomic_path(path, overwrite))
+        side_tmp = None
+        if fmt == "csv":
+            side_tmp = stack.enter_context(atomic_path(Path(str(path) + SIDECAR_SUFFIX), overwrite))
+        if fmt == "parquet":
+            sink = ParquetSink(tmp, run_meta)
+        elif fmt == "csv":
+            sink = CsvSink(tmp, run_meta)
+        else:
+            sink = AstropySink(tmp, fmt, run_meta)
+        sink.kind = "arrow" if fmt in STREAMING else "astropy"
+        sink.fmt = fmt
+        try:
+            yield sink
+        except BaseException:
+            sink.abort()
+            raise
+        sink.close()
+        if side_tmp is not None:
+            side_tmp.write_text(sink.sidecar())
+
+
+def write_table(table, path, run_meta=None, overwrite=False):
+    """Write an astropy Table to `path` (format by extension), atomically."""
+    with open_sink(path, dict(run_meta or {}), overwrite=overwrite) as sink:
+        sink.write(astropy_to_arrow(table) if sink.kind == "arrow" else table)
+
