@@ -1,0 +1,278 @@
+"""Electrons per second from a star, from the sky and from dark current.
+
+Star::
+
+    N_e = A · 10^(−0.4 k X) · ∫ F_λ λ/(hc) · τ_f S(λ) · R(λ)^m · τ_o · QE(λ) dλ
+
+with A the unobstructed collecting area, k the filter's extinction
+coefficient (mag per airmass, grey across the band), X the airmass, S the
+passband's photon-counting response (peak 1) taken as the relative filter
+transmission, τ_f its peak transmission, R the mirror reflectivity (m
+mirrors), τ_o the other optics and QE the camera's quantum efficiency.
+Magnitudes given for stars are outside the atmosphere.
+
+The star's spectrum is a blackbody of temperature T (Planck) scaled so that
+its synthetic magnitude in a named passband equals the given magnitude, or
+any tabulated spectrum.  With no temperature the shape of the CALSPEC Vega
+spectrum (an A0 V star) is used.
+
+Sky: the sky surface brightness in a filter (mag arcsec⁻², as measured at the
+site, so no extinction is applied) is given the spectrum of the zero-point
+source of the passband's own magnitude system — the Vega spectrum for
+Vega-system bands, a flat F_ν (3631 Jy) for AB bands — scaled to that
+magnitude.  This is the stated convention; the true night-sky spectrum (lines,
+continuum) differs, which matters mostly for broad or red bands.
+
+The integration grid is the passband's own grid refined to ≤ 5 Å, plus the
+points of the QE and reflectivity curves inside the band; curves are
+interpolated linearly.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..errors import StelltempError
+from ..photometry import band_integral, mag_offset
+from ..planck import C_CGS, H_CGS, planck_lambda_cgs
+from ..reference import ab_flam, st_flam, vega_spectrum
+from .instrument import Curve, Instrument
+
+__all__ = [
+    "HC_ERG_ANGSTROM",
+    "band_grid",
+    "system_efficiency",
+    "photon_integral",
+    "electron_rate_spectrum",
+    "scaled_blackbody",
+    "star_electron_rate",
+    "sky_electron_rate",
+    "sky_airmass_brightening",
+    "dark_electron_rate",
+    "extinction_factor",
+]
+
+#: h c in erg Å: photons per erg at wavelength λ (Å) are λ / hc
+HC_ERG_ANGSTROM = H_CGS * C_CGS * 1e8
+
+_STEP_A = 5.0
+
+
+def band_grid(passband, extra=()):
+    """Integration grid (Å) over the passband: its points, a ≤ 5 Å mesh and ``extra`` points inside."""
+    lo, hi = passband.wave[0], passband.wave[-1]
+    mesh = np.linspace(lo, hi, max(int(np.ceil((hi - lo) / _STEP_A)) + 1, 2))
+    pts = [passband.wave, mesh]
+    for e in extra:
+        e = np.asarray(e, float)
+        pts.append(e[(e > lo) & (e < hi)])
+    return np.unique(np.concatenate(pts))
+
+
+def _curve_points(instrument: Instrument, spec):
+    pts = []
+    if isinstance(instrument.telescope.reflectivity, Curve):
+        pts.append(instrument.telescope.reflectivity.wave)
+    if not spec.curve_includes_detector:
+        pts.append(instrument.camera.qe.wave)
+    return pts
+
+
+def system_efficiency(instrument: Instrument, filter_name: str, wave):
+    """Fraction of photons above the atmosphere that become electrons, at ``wave`` (Å).
+
+    Filter (τ_f × photon response) × mirrors × other optics × QE; the QE is
+    left out for filters whose curve already includes the detector.
+    """
+    spec = instrument.filter(filter_name)
+    pb = spec.passband
+    w = np.asarray(wave, float)
+    eff = spec.peak_transmission * np.interp(w, pb.wave, pb.photon_response, left=0.0, right=0.0)
+    eff = eff * instrument.telescope.throughput(w)
+    if not spec.curve_includes_detector:
+        eff = eff * instrument.camera.qe(w)
+    return eff
+
+
+def photon_integral(wave, flam, efficiency):
+    """∫ F_λ λ/(hc) ε dλ in photons (or electrons) s⁻¹ cm⁻²; ``flam`` may be (m, n)."""
+    return np.trapezoid(np.asarray(flam, float) * wave * efficiency, wave, axis=-1) / HC_ERG_ANGSTROM
+
+
+def extinction_factor(k_mag_per_airmass, airmass):
+    """Atmospheric transmission 10^(−0.4 k X)."""
+    x = np.asarray(airmass, float)
+    if np.any(~np.isfinite(x) | (x < 0)):
+        raise StelltempError("airmass must be finite and >= 0 (0 = above the atmosphere)")
+    return 10.0 ** (-0.4 * k_mag_per_airmass * x)
+
+
+def electron_rate_spectrum(wave, flam, instrument: Instrument, filter_name: str, airmass=1.0):
+    """Electrons per second from a tabulated spectrum through one filter.
+
+    Parameters
+    ----------
+    wave : ndarray
+        Wavelength, Å, increasing; must cover the filter's passband.
+    flam : ndarray
+        F_λ outside the atmosphere, erg s⁻¹ cm⁻² Å⁻¹.
+    instrument : Instrument
+    filter_name : str
+    airmass : float
+        X; 0 means above the atmosphere.
+
+    Returns
+    -------
+    float
+        e⁻ s⁻¹ in the whole stellar image.
+    """
+    spec = instrument.filter(filter_name)
+    pb = spec.passband
+    wave = np.asarray(wave, float)
+    flam = np.asarray(flam, float)
+    if wave.ndim != 1 or wave.shape != flam.shape[-1:]:
+        raise StelltempError("spectrum wave and flam must be 1-D arrays of equal length")
+    lo, hi = pb.wave_range
+    if wave[0] > lo or wave[-1] < hi:
+        raise StelltempError(f"spectrum ({wave[0]:.0f}–{wave[-1]:.0f} Å) does not cover filter "
+                             f"'{filter_name}' ({lo:.0f}–{hi:.0f} Å)")
+    grid = band_grid(pb, _curve_points(instrument, spec) + [wave])
+    f = np.interp(grid, wave, flam)
+    rate = photon_integral(grid, f, system_efficiency(instrument, filter_name, grid))
+    return float(rate * instrument.telescope.collecting_area_cm2
+                 * extinction_factor(spec.extinction_mag_per_airmass, airmass))
+
+
+def scaled_blackbody(teff, mag, band):
+    """Scale factor and evaluator for a blackbody of ``teff`` with magnitude ``mag`` in ``band``.
+
+    Parameters
+    ----------
+    teff : float or array
+        Temperature, K.
+    mag : float or array
+        Magnitude in ``band`` (its own system), broadcast with ``teff``.
+    band : Passband or str
+
+    Returns
+    -------
+    callable
+        ``flam(wave)`` → F_λ (erg s⁻¹ cm⁻² Å⁻¹) with shape (..., len(wave)).
+    """
+    from ..passbands import get_passband
+
+    pb = get_passband(band)
+    t = np.asarray(teff, float)
+    m = np.asarray(mag, float)
+    if np.any(~np.isfinite(t) | (t <= 0)):
+        raise StelltempError("temperature must be positive and finite (K)")
+    if np.any(~np.isfinite(m)):
+        raise StelltempError("magnitude must be finite")
+    t, m = np.broadcast_arrays(t, m)
+    grid = band_grid(pb)
+    shape = t.shape
+    bl = planck_lambda_cgs(t.reshape(-1, 1), grid[None, :])
+    m0 = -2.5 * np.log10(band_integral(grid, bl, pb)) + mag_offset(pb)
+    scale = (10.0 ** (-0.4 * (m.reshape(-1) - m0))).reshape(shape)
+
+    def flam(wave):
+        w = np.asarray(wave, float)
+        return scale[..., None] * planck_lambda_cgs(t[..., None], w)
+
+    return flam
+
+
+def _vega_shaped(mag, band):
+    from ..passbands import get_passband
+
+    pb = get_passband(band)
+    w, f = vega_spectrum()
+    m0 = -2.5 * np.log10(band_integral(w, f, pb)) + mag_offset(pb)
+    scale = 10.0 ** (-0.4 * (np.asarray(mag, float) - m0))
+    return w, f, scale
+
+
+def star_electron_rate(instrument: Instrument, filter_name: str, mag, band=None, teff=None, airmass=1.0):
+    """Electrons per second from a star in one filter.
+
+    Parameters
+    ----------
+    instrument : Instrument
+    filter_name : str
+        Filter of the instrument to observe through.
+    mag : float or array
+        Magnitude outside the atmosphere in ``band``.
+    band : str or Passband, optional
+        Band of ``mag`` (default: the filter's own passband).
+    teff : float or array, optional
+        Blackbody temperature, K; None uses the Vega (A0 V) spectral shape.
+    airmass : float or array
+        X (0 = above the atmosphere); broadcast with ``mag``/``teff``.
+
+    Returns
+    -------
+    float or ndarray
+        e⁻ s⁻¹ in the whole stellar image.
+    """
+    spec = instrument.filter(filter_name)
+    pb = spec.passband
+    band = pb if band is None else band
+    grid = band_grid(pb, _curve_points(instrument, spec))
+    eff = system_efficiency(instrument, filter_name, grid)
+    area = instrument.telescope.collecting_area_cm2
+    ext = extinction_factor(spec.extinction_mag_per_airmass, airmass)
+    if teff is None:
+        w, f, scale = _vega_shaped(mag, band)
+        rate = photon_integral(grid, np.interp(grid, w, f), eff) * scale
+    else:
+        flam = scaled_blackbody(teff, mag, band)(grid)
+        rate = photon_integral(grid, flam, eff)
+    out = rate * area * ext
+    return float(out) if np.ndim(out) == 0 else out
+
+
+def _zero_point_flam(pb, wave):
+    if pb.magsys == "Vega":
+        w, f = vega_spectrum()
+        return np.interp(wave, w, f)
+    if pb.magsys == "AB":
+        return ab_flam(wave)
+    return st_flam(wave)
+
+
+def sky_electron_rate(instrument: Instrument, filter_name: str, sky_mag=None):
+    """Sky electrons per second per read-out (binned) pixel.
+
+    Parameters
+    ----------
+    sky_mag : float or array, optional
+        Sky surface brightness, mag arcsec⁻² (default: the filter's value in
+        the instrument file).  The sky gets the spectrum of the band's
+        zero-point source (Vega or flat F_ν), see the module docstring.
+    """
+    spec = instrument.filter(filter_name)
+    pb = spec.passband
+    mu = spec.sky_mag_arcsec2 if sky_mag is None else np.asarray(sky_mag, float)
+    grid = band_grid(pb, _curve_points(instrument, spec))
+    zp = _zero_point_flam(pb, grid)
+    # magnitude of the zero-point source computed the same way as the star's
+    m0 = -2.5 * np.log10(band_integral(grid, zp, pb)) + mag_offset(pb)
+    per_arcsec2 = photon_integral(grid, zp, system_efficiency(instrument, filter_name, grid)) \
+        * 10.0 ** (-0.4 * (mu - m0)) * instrument.telescope.collecting_area_cm2
+    out = per_arcsec2 * instrument.camera.binned_scale_arcsec**2
+    return float(out) if np.ndim(out) == 0 else out
+
+
+def sky_airmass_brightening(airmass, k_mag_per_airmass):
+    """Change (mag) of the moonless sky away from the zenith, Krisciunas & Schaefer 1991 eq. 1.
+
+    B(X) = B_zenith · 10^(−0.4 k (X − 1)) · X, so Δm = −2.5 log10(X) + k (X − 1)
+    (negative: brighter).  Add it to the zenith sky magnitude.
+    """
+    x = np.asarray(airmass, float)
+    return -2.5 * np.log10(x) + k_mag_per_airmass * (x - 1.0)
+
+
+def dark_electron_rate(instrument: Instrument):
+    """Dark electrons per second per read-out pixel (binning² physical pixels)."""
+    return instrument.camera.binned_dark_e_per_s
