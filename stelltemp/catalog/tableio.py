@@ -537,26 +537,48 @@ class ParquetSink(Sink):
 
 
 class CsvSink(Sink):
+    """Appends chunks to a CSV file; strings are quoted only when they must be."""
+
     def __init__(self, tmp, run_meta):
         self.tmp, self.run_meta, self.writer, self.schema = tmp, run_meta, None, None
         self.units = {}
+        self._fh = None
 
     def write(self, chunk):
         import pyarrow.csv as pcsv
 
-        if self.writer is None:
+        if self._fh is None:
             self.schema = chunk.schema
             self.units = {f.name: unit_of_field(f) for f in chunk.schema if unit_of_field(f)}
-            opts = pcsv.WriteOptions(include_header=True, quoting_style="needed")
-            self.writer = pcsv.CSVWriter(str(self.tmp), self.schema, write_options=opts)
-        self.writer.write_table(chunk.cast(self.schema))
+            self._fh = open(self.tmp, "wb")
+            self.writer = self._fh
+            header = ",".join(_csv_quote(n) for n in self.schema.names) + "\n"
+            self._fh.write(header.encode())
+        chunk = chunk.cast(self.schema)
+        style = "none" if _csv_plain(chunk) else "needed"
+        pcsv.write_csv(chunk, self._fh, pcsv.WriteOptions(include_header=False, quoting_style=style))
 
     def close(self):
-        if self.writer is not None:
-            self.writer.close()
+        if self._fh is not None:
+            self._fh.close()
 
     def sidecar(self):
         return json.dumps({"run": self.run_meta, "units": self.units}, indent=1)
+
+
+def _csv_quote(text):
+    if any(c in text for c in ',"\r\n') or text != text.strip():
+        return '"' + text.replace('"', '""') + '"'
+    return text
+
+
+def _csv_plain(chunk):
+    """True when no string cell needs quotes (so the text is written exactly as read)."""
+    for field, col in zip(chunk.schema, chunk.columns):
+        if pa.types.is_string(field.type) or pa.types.is_large_string(field.type):
+            if pc.any(pc.match_substring_regex(col, '[",\r\n]')).as_py():
+                return False
+    return True
 
 
 class AstropySink(Sink):

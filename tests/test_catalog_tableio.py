@@ -1,0 +1,155 @@
+"""Table files: formats by extension, units and run record, atomic output, malformed files."""
+
+import json
+import os
+
+import astropy.units as u
+import numpy as np
+import pyarrow as pa
+import pyarrow.parquet as pq
+import pytest
+from astropy.table import Table
+
+from stelltemp.catalog import tableio
+from stelltemp.catalog.tableio import ChunkReader, open_sink, read_table, table_format, write_table
+from stelltemp.errors import StelltempError
+
+FORMATS = ["parquet", "csv", "ecsv", "fits", "vot"]
+RUN = {"tool": "stelltemp", "tool_version": "9.9", "method": "auto", "passbands": "jc.B,jc.V",
+       "extinction_law": "G23", "r_v": 3.1, "ebv": "0.1", "run_utc": "2026-01-01T00:00:00+00:00"}
+
+
+def _table():
+    t = Table()
+    t["name"] = ["invented-1", "invented-2", "invented-3"]
+    t["jc.V"] = [10.0, 11.5, np.nan]
+    t["t_bb"] = [5000.0, 6000.0, np.nan] * u.K
+    t["flags"] = np.array([0, 1, 2], dtype=np.int64)
+    return t
+
+
+@pytest.mark.parametrize("ext", FORMATS)
+def test_round_trip_keeps_values_units_and_run_record(tmp_path, ext):
+    path = tmp_path / f"out.{ext}"
+    write_table(_table(), path, run_meta=RUN)
+    back = read_table(path)
+    assert back.colnames == ["name", "jc.V", "t_bb", "flags"]
+    assert list(back["name"]) == ["invented-1", "invented-2", "invented-3"]
+    np.testing.assert_array_equal(np.asarray(back["t_bb"], float), [5000.0, 6000.0, np.nan])
+    assert back["t_bb"].unit == u.K
+    assert list(back["flags"]) == [0, 1, 2]
+    meta = {k.upper(): v for k, v in back.meta.items()}
+    key = "STVERSN" if ext == "fits" else "TOOL_VERSION"
+    assert str(meta[key]) == "9.9"
+    assert [p.name for p in tmp_path.iterdir() if p.name.startswith(".")] == []
+
+
+def test_csv_sidecar_holds_units_and_record(tmp_path):
+    path = tmp_path / "out.csv"
+    write_table(_table(), path, run_meta=RUN)
+    side = json.loads((tmp_path / "out.csv.meta.json").read_text())
+    assert side["units"] == {"t_bb": "K"} and side["run"]["extinction_law"] == "G23"
+    assert path.read_text().splitlines()[0] == "name,jc.V,t_bb,flags"
+
+
+def test_unknown_extension_and_missing_file(tmp_path):
+    with pytest.raises(StelltempError, match="unknown table extension"):
+        table_format(tmp_path / "x.xlsx")
+    with pytest.raises(StelltempError, match="no such file"):
+        ChunkReader(tmp_path / "absent.csv")
+
+
+@pytest.mark.parametrize("ext, content, words", [
+    ("parquet", b"not a parquet file at all", "not a readable Parquet file"),
+    ("fits", b"SIMPLE  = nonsense", "not a readable FITS table"),
+    ("vot", b"<VOTABLE><oops", "not a readable VOTABLE table"),
+    ("ecsv", b"# %ECSV 1.0\n# ---\n# broken: [\n", "not a readable ECSV table"),
+    ("csv", b"", "no header line"),
+    ("csv", b"\n\n# only comments\n", "no header line"),
+])
+def test_malformed_files_give_one_clear_line(tmp_path, ext, content, words):
+    path = tmp_path / f"bad.{ext}"
+    path.write_bytes(content)
+    with pytest.raises(StelltempError) as err:
+        ChunkReader(path)
+    assert words in str(err.value) and "\n" not in str(err.value)
+
+
+def test_csv_duplicate_names_comments_and_bad_lines(tmp_path):
+    path = tmp_path / "in.csv"
+    path.write_text("# invented survey\nid,jc.V,jc.V,x\n1,10,11,a\n2,12\n3,13,14,c,extra\n4,15,16,d\n")
+    reader = ChunkReader(path)
+    assert reader.colnames == ["id", "jc.V", "jc.V_2", "x"]
+    rows = pa.concat_tables(list(reader))
+    assert rows["id"].to_pylist() == ["1", "4"]
+    assert any("renamed 'jc.V_2'" in n for n in reader.notes)
+    assert any("2 malformed CSV line(s) skipped" in n for n in reader.notes)
+
+
+def test_csv_streams_in_bounded_chunks(tmp_path):
+    path = tmp_path / "big.csv"
+    n = 200_000
+    path.write_text("a,b\n" + "".join(f"{i},{i * 0.5}\n" for i in range(n)))
+    chunks = list(ChunkReader(path, chunk_rows=20_000))
+    assert sum(len(c) for c in chunks) == n
+    assert len(chunks) > 1 and max(len(c) for c in chunks) < n
+
+
+def test_narrowest_types():
+    chunk = pa.table({"i": ["1", "", "-3"], "f": ["1", "2.5", "nan"], "s": ["1", "x", ""], "e": ["", "", ""]})
+    types = tableio.narrowest_types([chunk], chunk.column_names)
+    assert types == {"i": pa.int64(), "f": pa.float64(), "s": pa.string(), "e": pa.string()}
+    typed = tableio.apply_types(chunk, types)
+    assert typed["i"].to_pylist() == [1, None, -3]
+
+
+@pytest.mark.parametrize("ext", ["parquet", "csv", "fits"])
+def test_interrupted_write_leaves_nothing(tmp_path, ext):
+    path = tmp_path / f"out.{ext}"
+    chunk = tableio.astropy_to_arrow(_table())
+    with pytest.raises(RuntimeError, match="simulated"):
+        with open_sink(path, RUN) as sink:
+            sink.write(chunk if sink.kind == "arrow" else _table())
+            raise RuntimeError("simulated failure mid-write")
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_interrupt_keeps_an_existing_target_intact(tmp_path):
+    path = tmp_path / "out.parquet"
+    write_table(_table(), path, run_meta=RUN)
+    before = path.read_bytes()
+    with pytest.raises(KeyboardInterrupt):
+        with open_sink(path, RUN, overwrite=True) as sink:
+            sink.write(tableio.astropy_to_arrow(_table()[:1]))
+            raise KeyboardInterrupt
+    assert path.read_bytes() == before
+    assert [p.name for p in tmp_path.iterdir()] == ["out.parquet"]
+
+
+def test_existing_output_needs_explicit_overwrite(tmp_path):
+    path = tmp_path / "out.ecsv"
+    write_table(_table(), path)
+    with pytest.raises(StelltempError, match="already exists"):
+        write_table(_table(), path)
+    with pytest.raises(StelltempError, match="already exists"):
+        tableio.check_output(path)
+    write_table(_table()[:1], path, overwrite=True)
+    assert len(read_table(path)) == 1
+    with pytest.raises(StelltempError, match="replace the input"):
+        tableio.check_output(path, overwrite=True, input_path=path)
+
+
+def test_output_file_mode_follows_umask(tmp_path):
+    path = tmp_path / "out.parquet"
+    write_table(_table(), path)
+    mask = os.umask(0)
+    os.umask(mask)
+    assert os.stat(path).st_mode & 0o777 == 0o666 & ~mask
+
+
+def test_parquet_reader_streams_batches(tmp_path):
+    path = tmp_path / "in.parquet"
+    pq.write_table(pa.table({"x": np.arange(1000.0)}), path, row_group_size=300)
+    reader = ChunkReader(path, chunk_rows=250)
+    sizes = [len(c) for c in reader]
+    assert reader.num_rows == 1000 and sum(sizes) == 1000 and max(sizes) <= 300
