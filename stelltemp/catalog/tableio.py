@@ -537,48 +537,66 @@ class ParquetSink(Sink):
 
 
 class CsvSink(Sink):
-    """Appends chunks to a CSV file; strings are quoted only when they must be."""
+    """Appends chunks to a CSV file.
+
+    Cells are quoted only when they contain a comma, quote or line break, so
+    text columns read from a CSV are written back exactly as read.  Numbers
+    use the shortest text that reads back to the same float64; nulls are empty.
+    """
 
     def __init__(self, tmp, run_meta):
         self.tmp, self.run_meta, self.writer, self.schema = tmp, run_meta, None, None
         self.units = {}
-        self._fh = None
 
     def write(self, chunk):
-        import pyarrow.csv as pcsv
-
-        if self._fh is None:
+        if self.writer is None:
             self.schema = chunk.schema
             self.units = {f.name: unit_of_field(f) for f in chunk.schema if unit_of_field(f)}
-            self._fh = open(self.tmp, "wb")
-            self.writer = self._fh
+            self.writer = open(self.tmp, "wb")
             header = ",".join(_csv_quote(n) for n in self.schema.names) + "\n"
-            self._fh.write(header.encode())
+            self.writer.write(header.encode())
         chunk = chunk.cast(self.schema)
-        style = "none" if _csv_plain(chunk) else "needed"
-        pcsv.write_csv(chunk, self._fh, pcsv.WriteOptions(include_header=False, quoting_style=style))
+        if chunk.num_rows:
+            self.writer.write(_csv_text(chunk))
 
     def close(self):
-        if self._fh is not None:
-            self._fh.close()
+        if self.writer is not None:
+            self.writer.close()
 
     def sidecar(self):
         return json.dumps({"run": self.run_meta, "units": self.units}, indent=1)
 
 
 def _csv_quote(text):
-    if any(c in text for c in ',"\r\n') or text != text.strip():
+    if any(c in text for c in ',"\r\n'):
         return '"' + text.replace('"', '""') + '"'
     return text
 
 
-def _csv_plain(chunk):
-    """True when no string cell needs quotes (so the text is written exactly as read)."""
+def _csv_text(chunk):
+    """CSV lines (bytes) of a pyarrow Table, built column-wise in Arrow."""
+    cells = []
     for field, col in zip(chunk.schema, chunk.columns):
         if pa.types.is_string(field.type) or pa.types.is_large_string(field.type):
-            if pc.any(pc.match_substring_regex(col, '[",\r\n]')).as_py():
-                return False
-    return True
+            text = col
+        else:
+            try:
+                text = pc.cast(col, pa.string())
+            except (pa.ArrowInvalid, pa.ArrowNotImplementedError):  # lists, structs...
+                text = pa.array([None if v is None else json.dumps(v, default=str) for v in col.to_pylist()],
+                                type=pa.string())
+        need = pc.fill_null(pc.match_substring_regex(text, '[",\r\n]'), False)
+        if pc.any(need).as_py():
+            quoted = pc.binary_join_element_wise('"', pc.replace_substring(text, '"', '""'), '"', "")
+            text = pc.if_else(need, quoted, text)
+        cells.append(pc.fill_null(text, ""))
+    line = pc.binary_join_element_wise(*cells, ",") if len(cells) > 1 else cells[0]
+    line = pc.binary_join_element_wise(line, "", "\n")
+    if isinstance(line, pa.ChunkedArray):
+        line = line.combine_chunks()
+    line = line.cast(pa.large_string())
+    offsets = np.frombuffer(line.buffers()[1], dtype=np.int64)[line.offset : line.offset + len(line) + 1]
+    return memoryview(line.buffers()[2])[offsets[0] : offsets[-1]]
 
 
 class AstropySink(Sink):
