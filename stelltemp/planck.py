@@ -119,7 +119,7 @@ def wien_root(power):
     peak" depends on the variable one differentiates against and on whether
     one counts energy or photons (Rybicki & Lightman 1979, §1.5).
     """
-    return brentq(lambda x: power * -np.expm1(-x) - x, 1e-3, power + 1.0, xtol=1e-15, rtol=4e-16)
+    return brentq(lambda x: power * -np.expm1(-x) - x, 1e-3, power + 1.0, xtol=1e-15, rtol=1e-15)
 
 
 def wien_b_lambda():

@@ -45,5 +45,8 @@ def describe(mask):
 
 
 def describe_all(masks):
-    """Vectorised `describe` over an integer array."""
-    return np.array([describe(m) for m in np.asarray(masks).ravel()], dtype=object)
+    """`describe` over an integer array (one string per distinct mask)."""
+    masks = np.asarray(masks, dtype=np.int64).ravel()
+    unique, inverse = np.unique(masks, return_inverse=True)
+    names = np.array([describe(m) for m in unique], dtype=str)
+    return names[inverse]

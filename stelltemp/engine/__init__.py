@@ -1,0 +1,311 @@
+"""Temperatures of stars from their photometry.
+
+:func:`estimate` is the engine's one entry point: magnitudes in two or more
+passbands in, one row of results per star out, as an astropy QTable with
+units.  It never raises for a bad star (the row comes back NaN with flags,
+see :mod:`stelltemp.engine.flags`); it raises
+:class:`~stelltemp.errors.StelltempError` for bad arguments.
+
+A blackbody colour temperature is *not* an effective temperature: real
+stellar spectra have absorption lines, edges and molecular bands, so the
+temperature of the blackbody with the same colour differs from T_eff by
+hundreds of K depending on the colour used.  The calibrated column
+``teff_cal`` uses empirical colour–T_eff relations
+(:mod:`stelltemp.calibrations`) and is the one to quote as T_eff.
+"""
+
+from types import SimpleNamespace
+
+import numpy as np
+from astropy import units as u
+from astropy.table import QTable
+
+from .. import bandgrid as bg
+from ..calibrations import combine_teff, relations
+from ..errors import StelltempError
+from ..extinction import DEFAULT_LAW, DEFAULT_RV, check_law
+from ..passbands import get_passband
+from . import flags as fl
+from .colour import colour_interval, invert_colour
+from .derived import angular_diameter_mas, derived_quantities
+from .fit import fit_blackbody
+
+__all__ = ["estimate", "BLACKBODY_NOTE", "METHODS"]
+
+BLACKBODY_NOTE = ("t_bb is a blackbody colour temperature, not an effective temperature; "
+                  "teff_cal (empirical calibrations, inside their validity ranges) is the T_eff to quote.")
+METHODS = ("auto", "colour", "fit")
+#: magnitudes beyond this are taken as absurd (flagged, band dropped)
+ABSURD_MAG = 40.0
+DEFAULT_MAG_ERR = 0.03
+
+
+def _column(values, n, name, default=None):
+    if values is None:
+        return None if default is None else np.full(n, float(default))
+    try:
+        arr = np.asarray(values, dtype=float)
+    except (TypeError, ValueError):
+        raise StelltempError(f"{name} must be numeric") from None
+    if arr.ndim > 1 or (arr.ndim == 1 and arr.size not in (1, n)):
+        raise StelltempError(f"{name} has {arr.size} values for {n} stars")
+    return np.broadcast_to(arr.reshape(-1) if arr.ndim else arr, (n,)).astype(float)
+
+
+def _clean_photometry(mags, errs, keys, n):
+    """(n, nb) arrays of magnitudes and errors with bad values removed, and flags."""
+    flags = np.zeros(n, np.int64)
+    m = np.empty((n, len(keys)))
+    e = np.empty((n, len(keys)))
+    for b, k in enumerate(keys):
+        m[:, b] = _column(mags[k], n, f"magnitudes in {k}")
+        e[:, b] = _column(errs.get(k), n, f"errors in {k}", DEFAULT_MAG_ERR)
+    with np.errstate(invalid="ignore"):
+        absurd = (np.abs(m) > ABSURD_MAG) | (e < 0) | (e > 5)
+        flags[np.any(absurd & np.isfinite(m), axis=1)] |= fl.ABSURD_VALUE
+        m[absurd | ~np.isfinite(m)] = np.nan
+        e[~np.isfinite(e)] = DEFAULT_MAG_ERR
+        e[e == 0] = 1e-4  # an exact magnitude: keep it, with a tiny error
+    return m, e, flags
+
+
+def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, rv=DEFAULT_RV, law=DEFAULT_LAW,
+             fit_ebv=False, parallax=None, parallax_err=None, feh=None, logg=None,
+             method="auto", monte_carlo=0, seed=None):
+    """Temperatures, errors, flags and derived quantities for many stars.
+
+    Parameters
+    ----------
+    mags : dict
+        Passband key (``'jc.B'``, ``'2mass.Ks'``, …) → magnitudes (array over
+        stars; NaN = not measured).  Two bands at least.
+    errs : dict, optional
+        Same keys → 1σ magnitude errors (missing or NaN: 0.03 mag).
+    ebv, ebv_err : float or array
+        E(B−V) (nominal, of the law) and its 1σ error, mag.
+    rv : float
+        R_V (default 3.1).
+    law : str
+        Extinction law: G23 (default), F99, F19, CCM89, O94.
+    fit_ebv : bool
+        Fit E(B−V) too (three or more bands; ``ebv``/``ebv_err`` act as a prior).
+    parallax, parallax_err : float or array, optional
+        Parallax and error in mas, for radius and luminosity.
+    feh, logg : float or array, optional
+        [Fe/H] and log g for the empirical calibrations.
+    method : {'auto', 'colour', 'fit'}
+        'colour': exact inversion of one colour (exactly two bands);
+        'fit': multi-band fit of T and angular diameter; 'auto': colour for
+        two bands, fit for more.
+    monte_carlo : int
+        If > 0, that many noisy realisations per star (magnitudes and a common
+        E(B−V) drawn independently, so colours sharing a band stay correlated)
+        give percentile intervals instead of the analytic ones.
+    seed : int, optional
+        Random seed for the Monte Carlo.
+
+    Returns
+    -------
+    QTable
+        One row per star; columns listed in :data:`RESULT_COLUMNS`.
+    """
+    if not isinstance(mags, dict) or len(mags) < 2:
+        raise StelltempError("need magnitudes in at least two passbands")
+    if method not in METHODS:
+        raise StelltempError(f"unknown method {method!r}; choose one of {', '.join(METHODS)}")
+    check_law(law, rv)
+    rv = float(rv)
+    keys = [get_passband(k).key for k in mags]
+    if method == "colour" and len(keys) != 2:
+        raise StelltempError(f"method 'colour' takes exactly two bands, got {len(keys)}")
+    if fit_ebv and len(keys) < 3:
+        raise StelltempError("fitting E(B−V) needs at least three bands")
+    if int(monte_carlo) < 0:
+        raise StelltempError("monte_carlo must be 0 or a positive number of samples")
+    pivots = [get_passband(k).pivot_wavelength.value for k in keys]
+    order = np.argsort(pivots)
+    keys = [keys[i] for i in order]
+    given = list(mags)
+    mags = {keys[j]: mags[given[i]] for j, i in enumerate(order)}
+    errs = {} if errs is None else {get_passband(k).key: v for k, v in errs.items()}
+    n = max((np.size(v) for v in mags.values()), default=0)
+    m, e, flags = _clean_photometry(mags, errs, keys, n)
+    ebv = _column(ebv, n, "E(B-V)")
+    ebv_err = _column(ebv_err, n, "E(B-V) error")
+    with np.errstate(invalid="ignore"):
+        bad_red = ~np.isfinite(ebv) | (ebv < bg.E_MIN) | (ebv > bg.E_MAX) | ~(ebv_err >= 0)
+    flags |= np.where(bad_red, fl.BAD_INPUT, 0)
+    ebv_err = np.where(np.isfinite(ebv_err), ebv_err, 0.0)
+
+    use_colour = method == "colour" or (method == "auto" and len(keys) == 2)
+    if use_colour:
+        core = _by_colour(m, e, keys, ebv, ebv_err, law, rv)
+    else:
+        core = _by_fit(m, e, keys, ebv, ebv_err, fit_ebv, law, rv)
+    flags |= core.pop("flags")
+    if monte_carlo:
+        lo, hi = _monte_carlo_interval(m, e, keys, ebv, ebv_err, fit_ebv, use_colour, law, rv,
+                                       int(monte_carlo), seed)
+        core["t_lo"], core["t_hi"] = lo, hi
+
+    t = core["t"]
+    theta = angular_diameter_mas(core["a"])
+    lnt_err = np.log(core["t_hi"] / core["t_lo"]) / 2
+    lntheta_err = 0.2 * np.log(10) * core["a_err"]  # θ ∝ 10^(−0.2 a)
+    cov_t_theta = -0.2 * np.log(10) * core["cov_lnt_a"]
+    plx = _column(parallax, n, "parallax")
+    plx_err = _column(parallax_err, n, "parallax error", 0.0)
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        derived = derived_quantities(t, np.where(np.isfinite(lnt_err), lnt_err, np.nan), theta,
+                                     lntheta_err, cov_t_theta, plx, plx_err)
+        cal = _calibrated(m, e, keys, t, core["ebv"], ebv_err, feh, logg, law, rv, n)
+    flags |= cal.flags & ~fl.BAD_INPUT
+
+    table = QTable()
+    table["t_bb"] = t * u.K
+    table["t_bb_lo"] = core["t_lo"] * u.K
+    table["t_bb_hi"] = core["t_hi"] * u.K
+    table["t_bb_err"] = (core["t_hi"] - core["t_lo"]) / 2 * u.K
+    table["theta"] = theta * u.mas
+    table["theta_err"] = theta * lntheta_err * u.mas
+    table["ebv_used"] = core["ebv"] * u.mag
+    table["ebv_used_err"] = core["ebv_err"] * u.mag
+    table["n_bands"] = core["n_bands"]
+    table["chi2"] = core["chi2"]
+    table["dof"] = core["dof"]
+    table["p_value"] = core["p_value"]
+    table["lambda_peak"] = derived["lambda_peak_nm"] * u.nm
+    table["lambda_peak_err"] = derived["lambda_peak_err_nm"] * u.nm
+    table["fbol"] = derived["fbol_cgs"] * u.erg / u.s / u.cm**2
+    table["fbol_err"] = derived["fbol_err_cgs"] * u.erg / u.s / u.cm**2
+    table["radius"] = derived["radius_rsun"] * u.R_sun
+    table["radius_err"] = derived["radius_err_rsun"] * u.R_sun
+    table["luminosity"] = derived["lum_lsun"] * u.L_sun
+    table["luminosity_err"] = derived["lum_err_lsun"] * u.L_sun
+    table["teff_cal"] = cal.teff * u.K
+    table["teff_cal_err"] = cal.teff_err * u.K
+    table["n_cal"] = cal.n_used
+    table["flags"] = flags
+    table["flag_names"] = fl.describe_all(flags).astype(str)
+    table.meta.update({
+        "method": "colour" if use_colour else ("fit+ebv" if fit_ebv else "fit"),
+        "passbands": ",".join(keys),
+        "extinction_law": law,
+        "R_V": rv,
+        "uncertainty": f"monte_carlo:{int(monte_carlo)}" if monte_carlo else "analytic",
+        "note": BLACKBODY_NOTE,
+    })
+    return table
+
+
+RESULT_COLUMNS = (
+    "t_bb", "t_bb_lo", "t_bb_hi", "t_bb_err", "theta", "theta_err", "ebv_used", "ebv_used_err",
+    "n_bands", "chi2", "dof", "p_value", "lambda_peak", "lambda_peak_err", "fbol", "fbol_err",
+    "radius", "radius_err", "luminosity", "luminosity_err", "teff_cal", "teff_cal_err", "n_cal",
+    "flags", "flag_names",
+)
+
+
+def _offset_from_bands(m, e, keys, t, ebv, law, rv):
+    """Magnitude offset a (−2.5 log10 Ω) given T: weighted mean of m − M, and its error parts."""
+    lnt = np.log(np.where(np.isfinite(t), t, 5800.0))
+    mod = np.empty_like(m)
+    d_t = np.empty_like(m)
+    for b, k in enumerate(keys):
+        mod[:, b], d_t[:, b], _ = bg.band_table(k, law, rv).evaluate(lnt, ebv, want_de=False)
+    w = np.where(np.isfinite(m), 1 / e**2, 0.0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        wsum = w.sum(axis=1)
+        a = np.nansum(w * (m - mod), axis=1) / wsum
+        mean_slope = (w * d_t).sum(axis=1) / wsum
+    a = np.where(np.isfinite(t), a, np.nan)
+    return a, 1 / np.sqrt(wsum), mean_slope
+
+
+def _by_colour(m, e, keys, ebv, ebv_err, law, rv):
+    blue, red = keys
+    res = colour_interval(m[:, 0] - m[:, 1], np.hypot(e[:, 0], e[:, 1]), blue, red,
+                          np.where(np.isfinite(ebv), ebv, 0.0), ebv_err, law, rv)
+    t = res["t"]
+    a, a_phot_err, slope = _offset_from_bands(m, e, keys, t, np.where(np.isfinite(ebv), ebv, 0.0), law, rv)
+    lnt_err = np.log(res["t_hi"] / res["t_lo"]) / 2
+    with np.errstate(invalid="ignore"):
+        a_err = np.sqrt(a_phot_err**2 + (slope * lnt_err) ** 2)
+    flags = res["flags"] | np.where(np.isnan(m).any(axis=1), fl.BAD_INPUT, 0)
+    n = len(t)
+    return {"t": t, "t_lo": res["t_lo"], "t_hi": res["t_hi"], "a": a, "a_err": a_err,
+            "cov_lnt_a": -slope * lnt_err**2, "ebv": ebv, "ebv_err": ebv_err,
+            "n_bands": np.isfinite(m).sum(axis=1), "chi2": np.full(n, np.nan),
+            "dof": np.zeros(n, int), "p_value": np.full(n, np.nan), "flags": flags}
+
+
+def _by_fit(m, e, keys, ebv, ebv_err, fit_ebv, law, rv):
+    prior = np.where(ebv_err > 0, ebv_err, np.inf)
+    res = fit_blackbody(m, e, keys, np.where(np.isfinite(ebv), ebv, 0.0), prior, fit_ebv, law, rv)
+    t = res["t"]
+    lnt_err = res["lnt_err"]
+    flags = res["flags"]
+    if not fit_ebv:
+        red_part = np.abs(res["dlnt_de"]) * ebv_err
+        flags = flags | np.where(red_part > lnt_err, fl.REDDENING_DOMINATES, 0)
+        lnt_err = np.hypot(lnt_err, red_part)
+    t_lo = t * np.exp(-lnt_err)
+    t_hi = t * np.exp(lnt_err)
+    open_top = t_hi > bg.T_MAX
+    flags = flags | np.where(open_top, fl.RJ_LIMIT, 0)
+    t_hi = np.where(open_top, np.inf, t_hi)
+    return {"t": t, "t_lo": t_lo, "t_hi": t_hi, "a": res["a"], "a_err": res["a_err"],
+            "cov_lnt_a": res["cov_lnt_a"], "ebv": res["ebv"],
+            "ebv_err": res["ebv_err"] if fit_ebv else ebv_err,
+            "n_bands": res["n_bands"], "chi2": res["chi2"], "dof": res["dof"],
+            "p_value": res["p_value"], "flags": flags}
+
+
+def _monte_carlo_interval(m, e, keys, ebv, ebv_err, fit_ebv, use_colour, law, rv, samples, seed):
+    """16th and 84th percentiles of T over noisy realisations of each star."""
+    rng = np.random.default_rng(seed)
+    n, nb = m.shape
+    mm = (m[:, None, :] + e[:, None, :] * rng.standard_normal((n, samples, nb))).reshape(-1, nb)
+    ee = np.repeat(e, samples, axis=0)
+    base = np.where(np.isfinite(ebv), ebv, 0.0)
+    ss = np.clip(np.repeat(base, samples) + np.repeat(ebv_err, samples) * rng.standard_normal(n * samples),
+                 bg.E_MIN, bg.E_MAX)
+    if use_colour:
+        t, _, f = invert_colour(mm[:, 0] - mm[:, 1], keys[0], keys[1], ss, law, rv)
+        # samples bluer than the hot edge count as hotter than any grid temperature
+        t = np.where((f & (fl.NO_SOLUTION | fl.AT_GRID_EDGE)) != 0,
+                     np.where(mm[:, 0] - mm[:, 1] < 0.5, np.inf, 0.0), t)
+    else:
+        prior = np.where(np.repeat(ebv_err, samples) > 0, np.repeat(ebv_err, samples), np.inf)
+        t = fit_blackbody(mm, ee, keys, ss, prior, fit_ebv, law, rv)["t"]
+    t = t.reshape(n, samples)
+    lo, hi = np.nanpercentile(np.where(np.isnan(t), np.nan, t), [15.865, 84.135], axis=1)
+    return lo, hi
+
+
+def _calibrated(m, e, keys, t_bb, ebv, ebv_err, feh, logg, law, rv, n):
+    """Empirical T_eff from every calibrated colour available, dereddened through the passbands.
+
+    The colour excess of each pair is that of a blackbody at the star's
+    colour temperature, reddened by the law: C(T, E) − C(T, 0).
+    """
+    colours, errors = {}, {}
+    lnt = np.log(np.where(np.isfinite(t_bb), t_bb, 5800.0))
+    e_used = np.where(np.isfinite(ebv), ebv, 0.0)
+    index = {k: i for i, k in enumerate(keys)}
+    for rel in relations():
+        blue, red = rel.bands
+        if blue not in index or red not in index or (blue, red) in colours:
+            continue
+        b, r = index[blue], index[red]
+        table = bg.colour_table(blue, red, law, rv)
+        reddened, _, slope_e = table.evaluate(lnt, e_used)
+        intrinsic, _, _ = table.evaluate(lnt, np.zeros(n), want_de=False)
+        colours[(blue, red)] = m[:, b] - m[:, r] - (reddened - intrinsic)
+        errors[(blue, red)] = np.hypot(np.hypot(e[:, b], e[:, r]), slope_e * ebv_err)
+    if not colours:
+        return SimpleNamespace(teff=np.full(n, np.nan), teff_err=np.full(n, np.nan),
+                               n_used=np.zeros(n, int), flags=np.full(n, fl.NO_CALIBRATION, np.int64))
+    feh = None if feh is None else _column(feh, n, "[Fe/H]")
+    logg = None if logg is None else _column(logg, n, "log g")
+    return combine_teff(colours, errors, feh=feh, logg=logg)
