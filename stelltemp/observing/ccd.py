@@ -61,11 +61,13 @@ SCINT_SCALE_HEIGHT_M = 8000.0
 C_Y_TYPICAL = 1.5
 
 
-def _check_positive(name, value, allow_zero=True):
+def _check_positive(name, value, allow_zero=True, allow_inf=False):
     v = np.asarray(value, dtype=float)
-    bad = ~np.isfinite(v) | ((v < 0) if allow_zero else (v <= 0))
+    finite_ok = ~np.isnan(v) & (np.isfinite(v) | (allow_inf & (v > 0)))
+    bad = ~finite_ok | ((v < 0) if allow_zero else (v <= 0))
     if np.any(bad):
-        raise StelltempError(f"{name} must be {'non-negative' if allow_zero else 'positive'} and finite")
+        raise StelltempError(f"{name} must be {'non-negative' if allow_zero else 'positive'} and "
+                             f"{'not NaN' if allow_inf else 'finite'}")
     return v
 
 
@@ -80,7 +82,7 @@ def effective_pixels(n_pix, n_background=np.inf):
         Pixels used to estimate the background (``inf`` for a perfectly known sky).
     """
     n_pix = _check_positive("n_pix", n_pix, allow_zero=False)
-    n_b = _check_positive("n_background", n_background, allow_zero=False)
+    n_b = _check_positive("n_background", n_background, allow_zero=False, allow_inf=True)
     return n_pix * (1.0 + n_pix / n_b)
 
 

@@ -219,6 +219,22 @@ def _pixel_rates(source_rate, fwhm, pixel_arcsec, binning, sky_rate_binned, dark
     return phys, read
 
 
+def _limits(source_rate, fwhm, pixel_arcsec, sky_rate_binned, dark_rate_binned, full_well_e, gain_e_per_adu,
+            saturation_adu, bias_adu, binning, headroom, profile, beta):
+    """(time to headroom × full well, time to headroom × ADC range), s."""
+    if not (0 < headroom <= 1):
+        raise StelltempError(f"headroom must be in (0, 1], got {headroom!r}")
+    phys, read = _pixel_rates(source_rate, fwhm, pixel_arcsec, binning, sky_rate_binned, dark_rate_binned,
+                              profile, beta)
+    room_adu = headroom * saturation_adu - bias_adu
+    t_fw = headroom * full_well_e / phys if phys > 0 else math.inf
+    if room_adu <= 0:
+        t_adc = 0.0
+    else:
+        t_adc = room_adu * gain_e_per_adu / read if read > 0 else math.inf
+    return t_fw, t_adc
+
+
 def time_to_limit(source_rate, fwhm, pixel_arcsec, sky_rate_binned, dark_rate_binned, full_well_e, gain_e_per_adu,
                   saturation_adu, bias_adu=0.0, binning=1, headroom=DEFAULT_HEADROOM, profile="moffat",
                   beta=MOFFAT_BETA_TURBULENCE):
@@ -246,16 +262,8 @@ def time_to_limit(source_rate, fwhm, pixel_arcsec, sky_rate_binned, dark_rate_bi
     float
         Time limit in s (``inf`` if nothing ever fills).
     """
-    if not (0 < headroom <= 1):
-        raise StelltempError(f"headroom must be in (0, 1], got {headroom!r}")
-    phys, read = _pixel_rates(source_rate, fwhm, pixel_arcsec, binning, sky_rate_binned, dark_rate_binned,
-                              profile, beta)
-    room_adu = headroom * saturation_adu - bias_adu
-    if room_adu <= 0:
-        return 0.0
-    t_fw = headroom * full_well_e / phys if phys > 0 else math.inf
-    t_adc = room_adu * gain_e_per_adu / read if read > 0 else math.inf
-    return min(t_fw, t_adc)
+    return min(_limits(source_rate, fwhm, pixel_arcsec, sky_rate_binned, dark_rate_binned, full_well_e,
+                       gain_e_per_adu, saturation_adu, bias_adu, binning, headroom, profile, beta))
 
 
 def saturation_advice(exposure_s, target_snr, source_rate, aperture_rate, sky_rate_binned, dark_rate_binned,
@@ -297,8 +305,9 @@ def saturation_advice(exposure_s, target_snr, source_rate, aperture_rate, sky_ra
                               profile, beta)
     peak_e = phys * t
     peak_adu = read * t / gain_e_per_adu + bias_adu
-    limit = time_to_limit(source_rate, fwhm, pixel_arcsec, sky_rate_binned, dark_rate_binned, full_well_e,
+    t_fw, t_adc = _limits(source_rate, fwhm, pixel_arcsec, sky_rate_binned, dark_rate_binned, full_well_e,
                           gain_e_per_adu, saturation_adu, bias_adu, binning, headroom, profile, beta)
+    limit = min(t_fw, t_adc)
     hard = peak_e >= full_well_e or peak_adu >= saturation_adu
     if t <= limit:
         return SaturationAdvice("ok", peak_e, peak_adu, limit, 1, t, t, "")
@@ -327,8 +336,8 @@ def saturation_advice(exposure_s, target_snr, source_rate, aperture_rate, sky_ra
                 hi = mid
         n = hi
         each = per_exposure(n)
-        where = "full well" if peak_e >= headroom * full_well_e else "ADC range"
-        msg = (f"{status}: a {t:.3g} s exposure fills {where} (peak {peak_e:.3g} e-, {peak_adu:.0f} ADU); "
+        where = "the full well" if t_fw <= t_adc else "the ADC range"
+        msg = (f"{status}: a {t:.3g} s exposure passes {headroom:.0%} of {where} after {limit:.3g} s (peak {peak_e:.3g} e-, {peak_adu:.0f} ADU); "
                f"take {n} x {each:.3g} s (total {n * each:.3g} s) for the same S/N {goal:.3g}")
         advice = SaturationAdvice(status, peak_e, peak_adu, limit, n, each, n * each, msg)
     if warn:
