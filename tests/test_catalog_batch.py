@@ -86,7 +86,7 @@ def test_bad_rows_are_flagged_and_the_run_goes_on(tmp_path):
     assert flags["b"] & F.BAD_INPUT and notes["b"] == "jc.B: not a number"
     assert flags["c"] & F.BAD_INPUT and notes["c"] == "jc.B: infinite"
     assert flags["d"] & F.ABSURD_VALUE and notes["d"] == "jc.B: outside [-40, 40]"
-    assert flags["e"] == F.ABSURD_VALUE and notes["e"] == "jc.V_err: outside [0, 40]"
+    assert flags["e"] == F.ABSURD_VALUE and notes["e"] == "jc.V_err: outside [0, 5]"
     assert np.isfinite(back["t_bb"][4])  # default error used instead
     assert flags["f"] & F.BAD_INPUT and notes["f"] == "no usable magnitude"
     assert flags["g"] & F.BAD_INPUT and notes["g"] == "ebv: missing"

@@ -50,7 +50,7 @@ def test_prepare_inputs_negative_error_missing_ebv_and_empty_rows():
     clean_in = prepare_inputs(lambda n: chunk[n], cmap, 3)
     assert clean_in.flags.tolist() == [0, F.BAD_INPUT, F.ABSURD_VALUE | F.BAD_INPUT]
     assert clean_in.notes[1] == "no usable magnitude"
-    assert clean_in.notes[2] == "eV: outside [0, 40]; E: missing"
+    assert clean_in.notes[2] == "eV: outside [0, 5]; E: missing"
     assert np.isnan(clean_in.errs["jc.V"][2])
     # fitting E(B-V): an empty reddening cell is not a problem
     fitted = prepare_inputs(lambda n: chunk[n], cmap, 3, fit_ebv=True)

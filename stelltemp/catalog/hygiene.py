@@ -36,8 +36,9 @@ LIMITS = {
     # |mag| <= 40 : common practice (the brightest and faintest catalogued
     # objects lie well within it)
     "mag": (-40.0, 40.0),
-    # a 1-sigma error is non-negative; one above 40 mag says nothing: common practice
-    "err": (0.0, 40.0),
+    # a 1-sigma error is non-negative; above 5 mag it carries no information
+    # (the same limit as the engine's own check): common practice
+    "err": (0.0, 5.0),
     # E(B-V): slightly negative values occur in noisy reddening maps; the most
     # reddened sight lines stay far below 30 mag (from memory)
     "ebv": (-1.0, 30.0),

@@ -1,0 +1,74 @@
+"""The ``catalogue`` subcommand hooks."""
+
+import argparse
+import json
+
+import pyarrow.parquet as pq
+
+from stelltemp.catalog.cli_hooks import add_cli, run_cli
+
+try:
+    from test_catalog_helpers import fake_estimate
+except ImportError:  # tests run as a package
+    from tests.test_catalog_helpers import fake_estimate
+
+
+def _parse(argv):
+    parser = argparse.ArgumentParser(prog="stelltemp")
+    add_cli(parser.add_subparsers(dest="command"))
+    return parser.parse_args(argv)
+
+
+def _input(tmp_path):
+    path = tmp_path / "in.csv"
+    path.write_text("star,jc.B,jc.V\ns1,11.0,10.5\ns2,x,11.0\n")
+    return path
+
+
+def test_json_summary_and_exit_code(tmp_path, capsys):
+    inp = _input(tmp_path)
+    out = tmp_path / "out.parquet"
+    args = _parse(["catalogue", str(inp), str(out), "--ebv", "0.05", "--json", "--quiet"])
+    assert args.func is run_cli
+    assert run_cli(args, engine=fake_estimate) == 0
+    summary = json.loads(capsys.readouterr().out)
+    assert summary["rows"] == 2 and summary["successes"] == 1 and summary["flag_counts"]["bad_input"] == 1
+    assert json.loads(pq.read_schema(out).metadata[b"stelltemp"])["ebv"] == "0.05"
+
+
+def test_existing_output_is_one_line_exit_2(tmp_path, capsys):
+    inp = _input(tmp_path)
+    out = tmp_path / "out.csv"
+    assert run_cli(_parse(["catalogue", str(inp), str(out), "--quiet"]), engine=fake_estimate) == 0
+    capsys.readouterr()
+    assert run_cli(_parse(["catalogue", str(inp), str(out), "--quiet"]), engine=fake_estimate) == 2
+    err = capsys.readouterr().err
+    assert err.startswith("stelltemp catalogue: ") and "already exists" in err and err.count("\n") == 1
+    assert run_cli(_parse(["catalogue", str(inp), str(out), "--replace"]), engine=fake_estimate) == 0
+    assert "2 rows in" in capsys.readouterr().out
+
+
+def test_bad_map_file_and_chunk_rows(tmp_path, capsys):
+    inp = _input(tmp_path)
+    args = _parse(["catalogue", str(inp), str(tmp_path / "o.csv"), "--columns", str(tmp_path / "none.toml")])
+    assert run_cli(args, engine=fake_estimate) == 2
+    assert "cannot read column map" in capsys.readouterr().err
+    args = _parse(["catalogue", str(inp), str(tmp_path / "o.csv"), "--chunk-rows", "0"])
+    assert run_cli(args, engine=fake_estimate) == 2
+
+
+def test_dask_option_runs_on_dask(tmp_path, capsys):
+    import pytest
+
+    pytest.importorskip("dask.dataframe")
+    inp = tmp_path / "in.parquet"
+    pq.write_table(_table(), inp)
+    args = _parse(["catalogue", str(inp), str(tmp_path / "o.parquet"), "--dask", "--workers", "1", "--json"])
+    assert run_cli(args, engine=fake_estimate) == 0
+    assert json.loads(capsys.readouterr().out)["backend"] == "dask"
+
+
+def _table():
+    import pyarrow as pa
+
+    return pa.table({"jc.B": [11.0, 12.0], "jc.V": [10.5, 11.0]})
