@@ -1,0 +1,113 @@
+"""Independent references shared by the physics and photometry tests.
+
+Everything here is computed without stelltemp's own integration code: the
+passband curves are read straight from the speclite data files, Vega straight
+from the CALSPEC FITS file shipped with astro-sedpy, the Planck function is a
+one-line numpy formula, and integrals are plain fine-grid trapezoids.  Only
+the registry table (which file, which convention, which adopted Vega
+magnitude) is read from stelltemp's package data, because that is what is
+being checked against.
+"""
+
+from functools import lru_cache
+from importlib import resources
+from types import SimpleNamespace
+
+import numpy as np
+import pytest
+from astropy import constants as const
+from astropy import units as u
+from astropy.io import fits
+from astropy.table import Table
+
+_H = const.h.cgs.value
+_C = const.c.cgs.value
+_K = const.k_B.cgs.value
+#: AB zero-magnitude flux density, 3631 Jy (Oke & Gunn 1983, ApJ 266, 713)
+AB_FNU = 3631e-23
+
+
+def planck_lambda(temperature_k, wave_aa):
+    """B_λ in erg s⁻¹ cm⁻² Å⁻¹ sr⁻¹, straight from Planck's formula (Planck 1901)."""
+    lam = np.asarray(wave_aa, float) * 1e-8
+    return 2 * _H * _C**2 / lam**5 / np.expm1(_H * _C / (lam * _K * temperature_k)) * 1e-8
+
+
+@lru_cache(maxsize=1)
+def registry():
+    path = resources.files("stelltemp") / "data" / "passbands.ecsv"
+    with resources.as_file(path) as p:
+        return Table.read(p, format="ascii.ecsv")
+
+
+@lru_cache(maxsize=None)
+def raw_curve(key):
+    """(wave Å, photon response peak 1, registry row) read from the speclite file.
+
+    Energy-response curves (Bessell 1990 UBVRI) become photon responses by
+    dividing by λ (Bessell & Murphy 2012, PASP 124, 140, §2 and appendix).
+    """
+    reg = registry()
+    row = reg[reg["key"] == key][0]
+    path = resources.files("speclite") / "data" / "filters" / f"{row['curve_file']}.ecsv"
+    with resources.as_file(path) as p:
+        tab = Table.read(p, format="ascii.ecsv")
+    col = tab["wavelength"]
+    wave = (np.asarray(col, float) * (col.unit or u.AA)).to_value(u.AA)
+    resp = np.asarray(tab["response"], float)
+    if row["detector"] == "energy":
+        resp = resp / wave
+    return wave, resp / resp.max(), row
+
+
+@lru_cache(maxsize=1)
+def raw_vega():
+    """CALSPEC alpha_lyr_stis_011 (Bohlin 2014, AJ 147, 127): wave Å, F_λ cgs."""
+    path = resources.files("sedpy") / "data" / "alpha_lyr_stis_011.fits"
+    with resources.as_file(path) as p, fits.open(p) as hdul:
+        wave = np.array(hdul[1].data["WAVELENGTH"], float)
+        flux = np.array(hdul[1].data["FLUX"], float)
+    keep = np.concatenate([[True], np.diff(wave) > 0])
+    return wave[keep], flux[keep]
+
+
+@lru_cache(maxsize=None)
+def fine_grid(key, step=0.5):
+    """Curve nodes plus a uniform ``step`` Å grid over the tabulated range."""
+    wave, _, _ = raw_curve(key)
+    return np.union1d(wave, np.arange(wave[0], wave[-1], step))
+
+
+def reference_mag(key, flam_on_grid, grid):
+    """Magnitude of F_λ (given on ``grid`` = fine_grid(key)) in the band's own system.
+
+    Photon-counting integral ∫ F_λ λ S dλ by trapezoid on the fine grid; the
+    zero point is Vega (plus the adopted Vega magnitude) or 3631 Jy.
+    """
+    wave, s_nodes, row = raw_curve(key)
+    s = np.interp(grid, wave, s_nodes)
+    num = np.trapezoid(flam_on_grid * grid * s, grid, axis=-1)
+    if row["magsys"] == "Vega":
+        vw, vf = raw_vega()
+        ref = np.trapezoid(np.interp(grid, vw, vf) * grid * s, grid)
+        offset = float(row["vega_mag"])
+    else:
+        ref = np.trapezoid(AB_FNU * _C * 1e8 / grid**2 * grid * s, grid)
+        offset = 0.0
+    return -2.5 * np.log10(num / ref) + offset
+
+
+@pytest.fixture(scope="session")
+def independent():
+    """Namespace of the independent reference functions above."""
+    return SimpleNamespace(
+        planck_lambda=planck_lambda,
+        registry=registry,
+        raw_curve=raw_curve,
+        raw_vega=raw_vega,
+        fine_grid=fine_grid,
+        reference_mag=reference_mag,
+        AB_FNU=AB_FNU,
+        C_CGS=_C,
+        H_CGS=_H,
+    )
