@@ -79,10 +79,10 @@ def test_csv_duplicate_names_comments_and_bad_lines(tmp_path):
     path = tmp_path / "in.csv"
     path.write_text("# invented survey\nid,jc.V,jc.V,x\n1,10,11,a\n2,12\n3,13,14,c,extra\n4,15,16,d\n")
     reader = ChunkReader(path)
-    assert reader.colnames == ["id", "jc.V", "jc.V_2", "x"]
+    assert reader.colnames == ["id", "jc.V", "jc.V.dup2", "x"]
     rows = pa.concat_tables(list(reader))
     assert rows["id"].to_pylist() == ["1", "4"]
-    assert any("renamed 'jc.V_2'" in n for n in reader.notes)
+    assert any("renamed 'jc.V.dup2'" in n for n in reader.notes)
     assert any("2 malformed CSV line(s) skipped" in n for n in reader.notes)
 
 

@@ -3,8 +3,9 @@
 Default naming (no map file)
 ----------------------------
 - a magnitude column is named by its passband key, e.g. ``jc.V`` or
-  ``2mass.Ks`` (only keys of a known photometric system are picked up, so a
-  column such as ``obs.date`` is left alone);
+  ``2mass.Ks`` (only keys of the built-in passband registry are picked up —
+  or, if the registry cannot be loaded, keys of a known photometric system —
+  so a column such as ``obs.date`` is left alone);
 - its 1-sigma error column is the key plus ``_err``, e.g. ``jc.V_err``;
 - ``ebv`` and ``ebv_err`` hold E(B−V) and its error (mag), ``parallax`` and
   ``parallax_err`` the parallax (mas), ``feh`` the [Fe/H] (dex) and ``logg``
@@ -164,7 +165,8 @@ def default_mapping(colnames, systems=KNOWN_SYSTEMS):
     registered = _registered_keys()
     bands = {}
     for name in names:
-        if name.endswith(ERR_SUFFIX) or not (name in registered or pattern.match(name)):
+        is_band = name in registered if registered else bool(pattern.match(name))
+        if name.endswith(ERR_SUFFIX) or not is_band:
             continue
         err = name + ERR_SUFFIX
         bands[name] = BandColumns(mag=name, err=err if err in present else None)

@@ -185,7 +185,7 @@ class ChunkReader:
     fmt : str
         Format name (see `EXTENSIONS`).
     colnames : list of str
-        Column names (duplicates renamed ``name_2``, ``name_3``… and noted).
+        Column names (repeats renamed ``name.dup2``, ``name.dup3``… and noted).
     num_rows : int or None
         Total rows when known before reading (None for CSV).
     notes : list of str
@@ -338,7 +338,7 @@ def _votable_infos(path):
 
 
 def _dedupe(names, notes):
-    """Rename repeated column names ``x`` -> ``x_2``, ``x_3``… and note it."""
+    """Rename repeated column names ``x`` -> ``x.dup2``, ``x.dup3``… and note it."""
     seen, out = {}, []
     taken = set(names)
     for name in names:
@@ -349,7 +349,7 @@ def _dedupe(names, notes):
         k = seen[name]
         while True:
             k += 1
-            new = f"{name}_{k}"
+            new = f"{name}.dup{k}"  # cannot look like a passband key
             if new not in taken:
                 break
         seen[name] = k
