@@ -47,6 +47,7 @@ __all__ = [
     "scaled_blackbody",
     "star_electron_rate",
     "sky_electron_rate",
+    "zero_point_rate",
     "sky_airmass_brightening",
     "dark_electron_rate",
     "extinction_factor",
@@ -231,13 +232,21 @@ def star_electron_rate(instrument: Instrument, filter_name: str, mag, band=None,
     return float(out) if np.ndim(out) == 0 else out
 
 
-def _zero_point_flam(pb, wave):
+def zero_point_rate(instrument: Instrument, filter_name: str):
+    """Electrons per second from a 0-mag source with the band's zero-point spectrum, above the atmosphere.
+
+    Vega-system bands: the Vega spectrum scaled to magnitude 0 (Vega itself
+    has the passband's adopted magnitude).  AB and ST bands: F_ν = 3631 Jy
+    or F_λ = 3.63×10⁻⁹ erg s⁻¹ cm⁻² Å⁻¹ exactly (magnitude 0 by definition).
+    """
+    spec = instrument.filter(filter_name)
+    pb = spec.passband
     if pb.magsys == "Vega":
-        w, f = vega_spectrum()
-        return np.interp(wave, w, f)
-    if pb.magsys == "AB":
-        return ab_flam(wave)
-    return st_flam(wave)
+        return star_electron_rate(instrument, filter_name, 0.0, airmass=0.0)
+    grid = band_grid(pb, _curve_points(instrument, spec))
+    zp = ab_flam(grid) if pb.magsys == "AB" else st_flam(grid)
+    return float(photon_integral(grid, zp, system_efficiency(instrument, filter_name, grid))
+                 * instrument.telescope.collecting_area_cm2)
 
 
 def sky_electron_rate(instrument: Instrument, filter_name: str, sky_mag=None):
@@ -251,15 +260,8 @@ def sky_electron_rate(instrument: Instrument, filter_name: str, sky_mag=None):
         zero-point source (Vega or flat F_ν), see the module docstring.
     """
     spec = instrument.filter(filter_name)
-    pb = spec.passband
     mu = spec.sky_mag_arcsec2 if sky_mag is None else np.asarray(sky_mag, float)
-    grid = band_grid(pb, _curve_points(instrument, spec))
-    zp = _zero_point_flam(pb, grid)
-    # magnitude of the zero-point source computed the same way as the star's
-    m0 = -2.5 * np.log10(band_integral(grid, zp, pb)) + mag_offset(pb)
-    per_arcsec2 = photon_integral(grid, zp, system_efficiency(instrument, filter_name, grid)) \
-        * 10.0 ** (-0.4 * (mu - m0)) * instrument.telescope.collecting_area_cm2
-    out = per_arcsec2 * instrument.camera.binned_scale_arcsec**2
+    out = zero_point_rate(instrument, filter_name) * 10.0 ** (-0.4 * mu) * instrument.camera.binned_scale_arcsec**2
     return float(out) if np.ndim(out) == 0 else out
 
 
