@@ -23,9 +23,10 @@ Vega-system bands, a flat F_ν (3631 Jy) for AB bands — scaled to that
 magnitude.  This is the stated convention; the true night-sky spectrum (lines,
 continuum) differs, which matters mostly for broad or red bands.
 
-The integration grid is the passband's own grid refined to ≤ 5 Å, plus the
+The integration grid is the passband's own grid refined to ≤ 2 Å, plus the
 points of the QE and reflectivity curves inside the band; curves are
-interpolated linearly.
+interpolated linearly (the passband as the core does it, through
+``Passband.photon_response_at``).
 """
 
 from __future__ import annotations
@@ -56,11 +57,11 @@ __all__ = [
 #: h c in erg Å: photons per erg at wavelength λ (Å) are λ / hc
 HC_ERG_ANGSTROM = H_CGS * C_CGS * 1e8
 
-_STEP_A = 5.0
+_STEP_A = 2.0
 
 
 def band_grid(passband, extra=()):
-    """Integration grid (Å) over the passband: its points, a ≤ 5 Å mesh and ``extra`` points inside."""
+    """Integration grid (Å) over the passband: its points, a ≤ 2 Å mesh and ``extra`` points inside."""
     lo, hi = passband.wave[0], passband.wave[-1]
     mesh = np.linspace(lo, hi, max(int(np.ceil((hi - lo) / _STEP_A)) + 1, 2))
     pts = [passband.wave, mesh]
@@ -68,6 +69,14 @@ def band_grid(passband, extra=()):
         e = np.asarray(e, float)
         pts.append(e[(e > lo) & (e < hi)])
     return np.unique(np.concatenate(pts))
+
+
+def _photon_response_at(pb, wave):
+    """The passband's photon response at any wavelengths, as the core interpolates it."""
+    at = getattr(pb, "photon_response_at", None)
+    if at is not None:  # energy curves interpolated first, then divided by λ
+        return at(wave)
+    return np.interp(wave, pb.wave, pb.photon_response, left=0.0, right=0.0)
 
 
 def _curve_points(instrument: Instrument, spec):
@@ -88,7 +97,7 @@ def system_efficiency(instrument: Instrument, filter_name: str, wave):
     spec = instrument.filter(filter_name)
     pb = spec.passband
     w = np.asarray(wave, float)
-    eff = spec.peak_transmission * np.interp(w, pb.wave, pb.photon_response, left=0.0, right=0.0)
+    eff = spec.peak_transmission * _photon_response_at(pb, w)
     eff = eff * instrument.telescope.throughput(w)
     if not spec.curve_includes_detector:
         eff = eff * instrument.camera.qe(w)

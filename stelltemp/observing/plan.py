@@ -489,7 +489,10 @@ def _v_like_filter(instrument):
     """The filter whose pivot wavelength is closest to 5500 Å (for the V-band Moon model)."""
     best, dist = None, math.inf
     for spec in instrument.filters.values():
-        d = abs(spec.passband.pivot_wavelength.to_value(u.AA) - 5500.0)
+        pb = spec.passband
+        s_, w_ = pb.photon_response, pb.wave
+        pivot = math.sqrt(np.trapezoid(s_ * w_, w_) / np.trapezoid(s_ / w_, w_))  # Tokunaga & Vacca 2005
+        d = abs(pivot - 5500.0)
         if d < dist:
             best, dist = spec, d
     return best if dist < 800 else None
