@@ -34,18 +34,9 @@ from .planck import dlnb_dlnt, planck_lambda_cgs
 T_MIN, T_MAX = 1000.0, 100000.0
 N_T = 241
 E_MIN, E_MAX, E_STEP = -0.5, 6.0, 0.1
-#: integration step inside a passband, Å (kinks of the tabulated curve are kept as nodes)
-FINE_STEP = 2.0
 
 LN10_04 = 0.4 * np.log(10.0)
 MAG = 2.5 / np.log(10.0)
-
-
-def fine_grid(band):
-    """Integration wavelengths for a passband: its nodes plus a FINE_STEP Å grid."""
-    lo, hi = band.wave[0], band.wave[-1]
-    n = int(np.ceil((hi - lo) / FINE_STEP)) + 1
-    return np.union1d(band.wave, np.linspace(lo, hi, n))
 
 
 def trapezoid_weights(x):
@@ -147,8 +138,8 @@ def blackbody_band_terms(band, temperature_k, ebv, law=DEFAULT_LAW, rv=DEFAULT_R
     computation the tables are built from, also used to check them.
     """
     band = get_passband(band)
-    lam = fine_grid(band)
-    weight = trapezoid_weights(lam) * lam * np.interp(lam, band.wave, band.photon_response)
+    lam = band.integration_grid
+    weight = trapezoid_weights(lam) * lam * band.photon_response_at(lam)
     t = np.atleast_1d(np.asarray(temperature_k, float))
     e = np.atleast_1d(np.asarray(ebv, float))
     b = planck_lambda_cgs(t[:, None], lam[None, :]) * weight  # (nT, nλ)

@@ -30,6 +30,8 @@ __all__ = ["Passband", "get_passband", "builtin_keys", "load_passband_file", "re
 
 DETECTORS = ("energy", "photon")
 MAGSYSTEMS = ("Vega", "AB", "ST")
+#: wavelength step (Å) of the grid used for integrals over a band
+INTEGRATION_STEP = 2.0
 
 
 @dataclass(frozen=True, eq=False)
@@ -67,13 +69,41 @@ class Passband:
     citation: str = ""
 
     @cached_property
-    def photon_response(self):
-        """Response for the photon-counting integral ∫ F_λ λ S dλ, peak 1."""
+    def _photon_norm(self):
         s = self.response if self.detector == "photon" else self.response / self.wave
-        return s / s.max()
+        return 1.0 / s.max()
+
+    @property
+    def photon_response(self):
+        """Photon-counting response S at the tabulated wavelengths, peak 1."""
+        return self.photon_response_at(self.wave)
+
+    def photon_response_at(self, wave):
+        """Photon-counting response S(λ) for the integral ∫ F_λ λ S dλ, at any wavelengths (Å).
+
+        The tabulated curve is interpolated linearly *as tabulated* and only
+        then divided by λ for energy curves, so an energy curve is used
+        exactly as its authors defined it (∫ F_λ R dλ with R linear between
+        the tabulated points).
+        """
+        wave = np.asarray(wave, float)
+        r = np.interp(wave, self.wave, self.response, left=0.0, right=0.0)
+        if self.detector == "energy":
+            r = r / wave
+        return r * self._photon_norm
+
+    @cached_property
+    def integration_grid(self):
+        """Wavelengths (Å) for integrals over the band: its nodes plus a 2 Å grid."""
+        lo, hi = self.wave[0], self.wave[-1]
+        n = int(np.ceil((hi - lo) / INTEGRATION_STEP)) + 1
+        grid = np.union1d(self.wave, np.linspace(lo, hi, n))
+        grid.flags.writeable = False
+        return grid
 
     def _moment(self, power):
-        return np.trapezoid(self.photon_response * self.wave**power, self.wave)
+        grid = self.integration_grid
+        return np.trapezoid(self.photon_response_at(grid) * grid**power, grid)
 
     @property
     def pivot_wavelength(self):
@@ -93,7 +123,8 @@ class Passband:
     @property
     def fwhm(self):
         """Full width at half maximum of the photon response (outermost half-maximum crossings)."""
-        s, w = self.photon_response, self.wave
+        w = self.integration_grid
+        s = self.photon_response_at(w)
         above = np.nonzero(s >= 0.5)[0]
         i, j = above[0], above[-1]
         lo = w[i] if i == 0 else np.interp(0.5, [s[i - 1], s[i]], [w[i - 1], w[i]])

@@ -3,9 +3,10 @@
 All integrals are photon-counting integrals ∫ F_λ λ S(λ) dλ with the
 passband's :attr:`~stelltemp.passbands.Passband.photon_response` S, so
 energy-response curves are handled correctly (Bessell & Murphy 2012, PASP
-124, 140).  The integration grid is the union of the passband and spectrum
-wavelengths inside the passband, both interpolated linearly; this is the same
-choice synphot makes and lets tests compare the two directly.
+124, 140).  The integration grid is the union of the passband's 2 Å integration grid
+and the spectrum's own wavelengths inside the passband, with both curves
+interpolated linearly (an energy curve is interpolated before it is divided
+by λ).
 
 Magnitudes:
 
@@ -29,7 +30,7 @@ __all__ = ["band_integral", "synthetic_mag", "synthetic_colour", "photon_flux", 
 def _merged_grid(band, wave):
     lo, hi = band.wave[0], band.wave[-1]
     inside = wave[(wave > lo) & (wave < hi)]
-    return np.union1d(band.wave, inside)
+    return np.union1d(band.integration_grid, inside)
 
 
 def band_integral(wave, flam, passband):
@@ -57,7 +58,7 @@ def band_integral(wave, flam, passband):
             f"spectrum ({wave[0]:.0f}–{wave[-1]:.0f} Å) does not cover passband {band.key} "
             f"({lo:.0f}–{hi:.0f} Å); stelltemp does not extrapolate spectra")
     grid = _merged_grid(band, wave)
-    s = np.interp(grid, band.wave, band.photon_response)
+    s = band.photon_response_at(grid)
     if flam.ndim == 1:
         f = np.interp(grid, wave, flam)
     else:
@@ -69,9 +70,9 @@ def _reference_integral(band, magsys):
     if magsys == "Vega":
         w, f = vega_spectrum()
         return float(band_integral(w, f, band))
-    grid = band.wave
+    grid = band.integration_grid
     ref = ab_flam(grid) if magsys == "AB" else st_flam(grid)
-    return float(np.trapezoid(ref * grid * band.photon_response, grid))
+    return float(np.trapezoid(ref * grid * band.photon_response_at(grid), grid))
 
 
 @lru_cache(maxsize=None)

@@ -48,8 +48,8 @@ def _pair(blue, red, law, rv):
 def _rayleigh_jeans_mag(key, ebv, law, rv):
     """Magnitude of the T-independent shape 1/λ⁴ (times λ S dλ), reddened, plus the band offset."""
     band = get_passband(key)
-    lam = bg.fine_grid(band)
-    weight = bg.trapezoid_weights(lam) * lam * np.interp(lam, band.wave, band.photon_response)
+    lam = band.integration_grid
+    weight = bg.trapezoid_weights(lam) * lam * band.photon_response_at(lam)
     k = relative_extinction(lam, law, rv)
     tau = 10 ** (-0.4 * rv * np.outer(ebv, k))
     integral = tau @ (weight / lam**4)
