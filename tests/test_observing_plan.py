@@ -136,3 +136,14 @@ def test_cli_exposure_text_plot_and_sun(tmp_path):
     with pytest.raises(StelltempError, match="no filter 'Q'"):
         run_cli(p.parse_args(["exposure", "--instrument", str(CCD_FILE), "--mag", "3", "--snr", "5",
                               "--filters", "V,Q"]), out, err)
+
+
+def test_plan_night_into_twilight_warns(rig):
+    # windows allowed up to sunset (sun_limit="sun") reach into civil twilight: the plan says so, with the caution
+    targets = Table(rows=[("Invented-W", "11:00:00", "0", 9.0, "V")], names=["name", "ra", "dec", "mag", "band"])
+    t = plan.plan_night(rig, targets, "2025-03-10", snr=50.0, sun_limit="sun", min_alt_deg=3.0, moon=False,
+                        step_min=20.0)
+    warns = t.meta["sun_warnings"]
+    assert any(w.startswith("CIVIL TWILIGHT") for w in warns)
+    assert all("certified solar filter" in w for w in warns)
+    assert t["window_start"][0] < t.meta["twilight"]["civil_evening"]

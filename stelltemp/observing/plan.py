@@ -457,16 +457,23 @@ def plan_night(instrument: Instrument, targets, date, *, snr=None, exposure_s=No
                     continue
             r["flags"] = "; ".join(flags)
             rows.append(r)
-    best_times = [windows[i].best for i in good if windows[i].usable]
+    # Sun check at the start, best moment and end of every window (windows lie in the chosen dark time,
+    # but with sun_limit="civil" they may reach into bright twilight)
+    usable = [i for i in good if windows[i].usable]
     warnings_ = []
-    if best_times:
+    if usable:
         from astropy.time import Time
 
-        names = [targets[i]["name"] for i in good if windows[i].usable]
-        coords = ([targets[i]["ra_deg"] for i in good if windows[i].usable],
-                  [targets[i]["dec_deg"] for i in good if windows[i].usable])
-        tt = Time([b.mjd for b in best_times], format="mjd", scale="utc")
-        warnings_ = sun_warnings(tt if len(tt) > 1 else tt[0], loc, coords, names)
+        mjds = [getattr(windows[i], k).mjd for k in ("start", "best", "end") for i in usable]
+        names = [targets[i]["name"] for _ in range(3) for i in usable]
+        coords = ([targets[i]["ra_deg"] for _ in range(3) for i in usable],
+                  [targets[i]["dec_deg"] for _ in range(3) for i in usable])
+        tt = Time(mjds, format="mjd", scale="utc")
+        if len(tt) == 1:
+            tt = tt[0]
+        for w in sun_warnings(tt, loc, coords, names):
+            if w not in warnings_:
+                warnings_.append(w)
     meta = {
         "instrument": instrument.title or instrument.source,
         "date": str(night.parse_date(date)),
