@@ -147,3 +147,18 @@ def test_plan_night_into_twilight_warns(rig):
     assert any(w.startswith("CIVIL TWILIGHT") for w in warns)
     assert all("certified solar filter" in w for w in warns)
     assert t["window_start"][0] < t.meta["twilight"]["civil_evening"]
+
+
+def test_night_tracks_extinction_through_the_night(rig):
+    targets = plan.parse_targets(Table(rows=[("Invented-T", "11:24:00", "+02:00:00", 10.0, "V", 6000.0)],
+                                       names=["name", "ra", "dec", "mag", "band", "teff"]))
+    tr = plan.night_tracks(rig, targets, "2025-03-10", step_min=30.0)
+    x = tr["airmass"][0]
+    up = np.nonzero(np.isfinite(x))[0]
+    i, j = up[0], up[len(up) // 2]
+    for f, spec in rig.filters.items():
+        r = tr["rates"][f][0]
+        # counts scale as 10^(-0.4 k X) across the night (Bouguer's law, common practice)
+        assert r[i] / r[j] == pytest.approx(10 ** (-0.4 * spec.extinction_mag_per_airmass * (x[i] - x[j])))
+        assert np.all(np.isnan(r[~np.isfinite(x)]))
+    assert tr["dark"].any() and tr["names"] == ["Invented-T"]

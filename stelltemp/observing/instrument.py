@@ -330,9 +330,7 @@ class _Ctx:
                 k = _KEYLINE.match(line)
                 if k and k.group(1) == key:
                     return n
-        if key is None or section == "":
-            return header_line
-        return header_line
+        return header_line  # key absent (or not asked for): point at the table header
 
     def top_line(self, key: str) -> int | None:
         for n, line in enumerate(self.lines, start=1):
