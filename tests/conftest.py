@@ -42,11 +42,7 @@ def registry():
 
 @lru_cache(maxsize=None)
 def raw_curve(key):
-    """(wave Å, photon response peak 1, registry row) read from the speclite file.
-
-    Energy-response curves (Bessell 1990 UBVRI) become photon responses by
-    dividing by λ (Bessell & Murphy 2012, PASP 124, 140, §2 and appendix).
-    """
+    """(wave Å, response as tabulated with peak 1, registry row) read from the speclite file."""
     reg = registry()
     row = reg[reg["key"] == key][0]
     path = resources.files("speclite") / "data" / "filters" / f"{row['curve_file']}.ecsv"
@@ -55,9 +51,21 @@ def raw_curve(key):
     col = tab["wavelength"]
     wave = (np.asarray(col, float) * (col.unit or u.AA)).to_value(u.AA)
     resp = np.asarray(tab["response"], float)
-    if row["detector"] == "energy":
-        resp = resp / wave
     return wave, resp / resp.max(), row
+
+
+def photon_response(key, grid):
+    """Photon-counting response S on ``grid`` (Å), peak 1 at the tabulated nodes.
+
+    The tabulated curve is interpolated linearly as tabulated; an energy-response
+    curve (Bessell 1990 UBVRI) then becomes a photon response by dividing by λ,
+    since ∫ F_λ R dλ = ∫ F_λ λ (R/λ) dλ (Bessell & Murphy 2012, PASP 124, 140, §2).
+    """
+    wave, resp, row = raw_curve(key)
+    s = np.interp(grid, wave, resp, left=0.0, right=0.0)
+    if row["detector"] == "energy":
+        return s / grid / (resp / wave).max()
+    return s
 
 
 @lru_cache(maxsize=1)
@@ -84,8 +92,8 @@ def reference_mag(key, flam_on_grid, grid):
     Photon-counting integral ∫ F_λ λ S dλ by trapezoid on the fine grid; the
     zero point is Vega (plus the adopted Vega magnitude) or 3631 Jy.
     """
-    wave, s_nodes, row = raw_curve(key)
-    s = np.interp(grid, wave, s_nodes)
+    row = raw_curve(key)[2]
+    s = photon_response(key, grid)
     num = np.trapezoid(flam_on_grid * grid * s, grid, axis=-1)
     if row["magsys"] == "Vega":
         vw, vf = raw_vega()
@@ -104,6 +112,7 @@ def independent():
         planck_lambda=planck_lambda,
         registry=registry,
         raw_curve=raw_curve,
+        photon_response=photon_response,
         raw_vega=raw_vega,
         fine_grid=fine_grid,
         reference_mag=reference_mag,
