@@ -248,7 +248,7 @@ def compute_chunk(chunk, cmap, opts, engine):
     masks = old | clean.flags
     res["flags"] = masks
     res["flag_names"] = fast_flag_names(masks)
-    res[NOTES_COLUMN] = clean.notes.astype(str)
+    res[NOTES_COLUMN] = clean.notes
     return res
 
 

@@ -157,12 +157,18 @@ class RowNotes:
     def __init__(self, n):
         self.flags = np.zeros(n, np.int64)
         self.notes = np.full(n, "", dtype=object)
+        self.any = False
+
+    def text(self):
+        """The notes as a str array (cheap when there are none)."""
+        return self.notes.astype(str) if self.any else np.full(len(self.notes), "", dtype="<U1")
 
     def add(self, mask, bit, note):
         """Set `bit` and append `note` on the rows where `mask` is true."""
         idx = np.flatnonzero(mask)
         if idx.size == 0:
             return
+        self.any = True
         self.flags[idx] |= bit
         cur = self.notes[idx]
         self.notes[idx] = np.where(cur == "", note, cur + ("; " + note))
@@ -204,7 +210,7 @@ class CleanInputs:
     errs: dict
     scalars: dict
     flags: np.ndarray
-    notes: np.ndarray
+    notes: np.ndarray  # str
 
 
 def prepare_inputs(get, cmap, n, fit_ebv=False):
@@ -250,4 +256,4 @@ def prepare_inputs(get, cmap, n, fit_ebv=False):
             scalars[name] = vals
         elif name in cmap.values:
             scalars[name] = float(cmap.values[name])
-    return CleanInputs(mags=mags, errs=errs, scalars=scalars, flags=notes.flags, notes=notes.notes)
+    return CleanInputs(mags=mags, errs=errs, scalars=scalars, flags=notes.flags, notes=notes.text())

@@ -528,7 +528,9 @@ class ParquetSink(Sink):
             meta.pop(b"pandas", None)
             meta[b"stelltemp"] = json.dumps(self.run_meta).encode()
             self.schema = chunk.schema.with_metadata(meta)
-            self.writer = pq.ParquetWriter(self.tmp, self.schema)
+            # dictionary pages only for text: on float columns they cost time and save nothing
+            text = [f.name for f in self.schema if pa.types.is_string(f.type) or pa.types.is_large_string(f.type)]
+            self.writer = pq.ParquetWriter(self.tmp, self.schema, use_dictionary=text or False)
         self.writer.write_table(chunk.cast(self.schema))
 
     def close(self):
@@ -575,28 +577,45 @@ def _csv_quote(text):
 
 def _csv_text(chunk):
     """CSV lines (bytes) of a pyarrow Table, built column-wise in Arrow."""
-    cells = []
+    cells, texts = [], []
     for field, col in zip(chunk.schema, chunk.columns):
         if pa.types.is_string(field.type) or pa.types.is_large_string(field.type):
             text = col
+            texts.append(len(cells))
         else:
             try:
                 text = pc.cast(col, pa.string())
             except (pa.ArrowInvalid, pa.ArrowNotImplementedError):  # lists, structs...
                 text = pa.array([None if v is None else json.dumps(v, default=str) for v in col.to_pylist()],
                                 type=pa.string())
-        need = pc.fill_null(pc.match_substring_regex(text, '[",\r\n]'), False)
-        if pc.any(need).as_py():
-            quoted = pc.binary_join_element_wise('"', pc.replace_substring(text, '"', '""'), '"', "")
-            text = pc.if_else(need, quoted, text)
+                texts.append(len(cells))
         cells.append(pc.fill_null(text, ""))
-    line = pc.binary_join_element_wise(*cells, ",") if len(cells) > 1 else cells[0]
+    line = _join(cells)
+    if texts and not _plain_lines(line, len(cells)):
+        for i in texts:  # some text cell holds a comma, quote or line break: quote those cells
+            text = cells[i]
+            need = pc.match_substring_regex(text, '[",\r\n]')
+            quoted = pc.binary_join_element_wise('"', pc.replace_substring(text, '"', '""'), '"', "")
+            cells[i] = pc.if_else(need, quoted, text)
+        line = _join(cells)
     line = pc.binary_join_element_wise(line, "", "\n")
     if isinstance(line, pa.ChunkedArray):
         line = line.combine_chunks()
     line = line.cast(pa.large_string())
     offsets = np.frombuffer(line.buffers()[1], dtype=np.int64)[line.offset : line.offset + len(line) + 1]
     return memoryview(line.buffers()[2])[offsets[0] : offsets[-1]]
+
+
+def _join(cells):
+    return pc.binary_join_element_wise(*cells, ",") if len(cells) > 1 else cells[0]
+
+
+def _plain_lines(line, ncols):
+    """True when every joined line has exactly ncols - 1 commas and no quote or line break."""
+    commas_ok = pc.all(pc.equal(pc.count_substring(line, ","), ncols - 1)).as_py() in (True, None)
+    return commas_ok and not any(
+        pc.any(pc.match_substring(line, ch)).as_py() for ch in ('"', "\n", "\r")
+    )
 
 
 class AstropySink(Sink):
