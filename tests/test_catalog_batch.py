@@ -206,3 +206,32 @@ def test_compute_chunk_rejects_an_engine_that_loses_rows():
 def test_fast_flag_names_matches_describe():
     masks = np.array([0, 3, F.ABSURD_VALUE, 3, 0], dtype=np.int64)
     assert list(fast_flag_names(masks)) == [F.describe(m) for m in masks]
+
+
+@pytest.mark.parametrize("ext", ["fits", "vot", "ecsv"])
+def test_astropy_format_inputs_with_masked_cells(tmp_path, ext):
+    from astropy.table import MaskedColumn
+
+    t = Table()
+    t["name"] = ["invented-a", "invented-b", "invented-c"]
+    t["jc.B"] = MaskedColumn([11.0, 12.0, 13.0], mask=[False, True, False])
+    t["jc.V"] = [10.5, 11.0, 12.0]
+    t["jc.V_err"] = [0.02, 0.02, -0.5]
+    inp = tmp_path / f"in.{ext}"
+    t.write(inp, format={"fits": "fits", "vot": "votable", "ecsv": "ascii.ecsv"}[ext])
+    out = tmp_path / "out.parquet"
+    summary = run_catalogue(inp, out, engine=fake_estimate, quiet=True)
+    back = pq.read_table(out)
+    flags = back["flags"].to_pylist()
+    assert flags[0] == 0 and flags[1] & F.BAD_INPUT and flags[2] & F.ABSURD_VALUE
+    assert back["name"].to_pylist() == ["invented-a", "invented-b", "invented-c"]
+    assert summary.successes == 2
+
+
+def test_progress_bar_hidden_when_quiet_or_not_a_terminal():
+    from stelltemp.catalog.batch import _progress
+
+    with _progress(10, quiet=True) as bar:
+        assert bar.disable
+    with _progress(10, quiet=False) as bar:  # pytest captures stderr: not a terminal
+        assert bar.disable

@@ -49,6 +49,8 @@ def add_cli(subparsers):
     p.add_argument("--scheduler", metavar="ADDRESS",
                    help="address of a running dask.distributed scheduler (implies --dask)")
     p.add_argument("--workers", type=int, metavar="N", help="local Dask workers (default: all cores)")
+    p.add_argument("--dask-local", choices=("threads", "processes"), default="threads",
+                   help="local Dask workers as threads (default) or processes")
     p.set_defaults(func=run_cli)
     return p
 
@@ -74,7 +76,7 @@ def run_cli(args, engine=None):
             from stelltemp.catalog.scale import run_catalogue_dask
 
             summary = run_catalogue_dask(args.input, args.output, scheduler=args.scheduler,
-                                         workers=args.workers, **common)
+                                         workers=args.workers, local=args.dask_local, **common)
         else:
             from stelltemp.catalog.batch import run_catalogue
 

@@ -115,6 +115,8 @@ def astropy_to_arrow(table):
         values = col.value if hasattr(col, "value") and unit is not None and not hasattr(col, "mask") else col
         mask = np.ma.getmaskarray(values) if hasattr(values, "mask") else None
         data = np.asarray(values.data if hasattr(values, "mask") else values)
+        if not data.dtype.isnative:  # FITS is big-endian; Arrow wants native order
+            data = data.astype(data.dtype.newbyteorder("="))
         if data.ndim > 1:
             arr = pa.array(data.tolist())
         elif data.dtype.kind == "S":
