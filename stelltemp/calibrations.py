@@ -576,14 +576,26 @@ def add_cli(subparsers):
     p.add_argument("--colour", type=float, help="dereddened colour (mag) for --use")
     p.add_argument("--colour-error", type=float, default=0.0, help="1-sigma colour error (mag)")
     p.add_argument("--feh", type=float, default=None, help="[Fe/H] (dex); default solar, 0.0")
+    p.add_argument("--json", action="store_true", help="machine-readable output")
     p.set_defaults(func=run_cli)
     return p
 
 
+def _relation_summary(r):
+    return {"key": r.key, "colour": r.colour_name, "blue": r.blue, "red": r.red, "stage": r.stage,
+            "colour_range_mag": list(r.colour_range), "feh_range_dex": list(r.feh_range),
+            "scatter_K": r.scatter, "citation": str(r.citation)}
+
+
 def run_cli(args):
     """Run the ``relations`` subcommand; returns the exit code."""
+    from stelltemp.cli import emit_json
+
     if args.use is None:
         rels = relations_for(args.bands) if args.bands else relations()
+        if args.json:
+            emit_json({"relations": [_relation_summary(r) for r in rels]})
+            return 0
         for r in rels:
             print(f"{r.key:18s} {r.colour_name:7s} {r.stage:5s} "
                   f"X in [{r.colour_range[0]:.2f}, {r.colour_range[1]:.2f}]  "
@@ -595,7 +607,14 @@ def run_cli(args):
     res = combine_teff({args.use: [args.colour]}, {args.use: [args.colour_error]},
                        feh=None if args.feh is None else [args.feh])
     rel = get_relation(args.use)
-    if res.none_applicable[0]:
+    applied = not res.none_applicable[0]
+    if args.json:
+        emit_json({"relation": _relation_summary(rel), "colour_mag": args.colour,
+                   "teff_K": float(res.teff[0]) if applied else None,
+                   "teff_err_K": float(res.teff_err[0]) if applied else None,
+                   "feh_assumed": bool(res.feh_assumed[0]), "inside_range": bool(applied)})
+        return 0 if applied else 1
+    if not applied:
         print(f"{rel.label}: colour {args.colour:.3f} or [Fe/H] outside the published range; "
               "no temperature")
         return 1

@@ -15,6 +15,7 @@ Subcommands (core; others are registered by their own modules):
 import argparse
 import json
 import math
+import os
 import sys
 
 import numpy as np
@@ -384,6 +385,12 @@ def main(argv=None):
     except KeyboardInterrupt:
         print("stelltemp: interrupted", file=sys.stderr)
         return 130
+    except Exception as exc:  # a bug of ours: one line, unless debugging
+        if os.environ.get("STELLTEMP_DEBUG"):
+            raise
+        print(f"stelltemp: internal error: {exc.__class__.__name__}: {exc} "
+              "(set STELLTEMP_DEBUG=1 for the traceback, and please report it)", file=sys.stderr)
+        return 1
 
 
 if __name__ == "__main__":
