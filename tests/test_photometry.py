@@ -56,19 +56,21 @@ def _flat_residuals(source, magsys):
     return {str(k): float(ph.synthetic_mag(GRID, source, k, magsys)) for k in KEYS}
 
 
-def test_flat_3631_jy_source_has_ab_magnitude_zero_in_every_band():
+def test_flat_3631_jy_source_has_ab_magnitude_zero_in_every_band(record_property):
     # AB definition (Oke & Gunn 1983, ApJ 266, 713). Before commit 9a10253 the AB/ST references were
     # integrated on the passband nodes only and this was off by up to 8.6e-4 mag (jc.Rc).
     res = _flat_residuals(_flat_fnu_ab(GRID), "AB")
     worst = max(res, key=lambda k: abs(res[k]))
     print("AB magnitude of a flat 3631 Jy source:", {k: f"{v:+.2e}" for k, v in res.items()})
+    record_property("flat_ab_max_abs_mag", abs(res[worst]))
     assert abs(res[worst]) < 1e-6, f"{worst}: {res[worst]:+.2e} mag"
 
 
-def test_flat_st_source_has_st_magnitude_zero_in_every_band():
+def test_flat_st_source_has_st_magnitude_zero_in_every_band(record_property):
     res = _flat_residuals(np.full_like(GRID, 10 ** (-0.4 * 21.10)), "ST")
     worst = max(res, key=lambda k: abs(res[k]))
     print("ST magnitude of a flat ST source:", {k: f"{v:+.2e}" for k, v in res.items()})
+    record_property("flat_st_max_abs_mag", abs(res[worst]))
     assert abs(res[worst]) < 1e-6, f"{worst}: {res[worst]:+.2e} mag"
 
 
@@ -134,6 +136,24 @@ def test_photon_flux(independent):
     assert ph.photon_flux(wave, np.full_like(wave, f0), key) == pytest.approx(expected, rel=1e-6)
 
 
+@pytest.mark.xfail(strict=True, reason="bug: photometry.band_integral does not check that the spectrum's "
+                   "wavelengths increase; np.interp with unsorted xp silently returns garbage when the "
+                   "first and last samples happen to bracket the band (and a reversed spectrum gets a "
+                   "misleading 'does not cover' message)")
+def test_unsorted_spectrum_is_refused_or_handled():
+    wave = np.arange(4000.0, 8000.0, 1.0)
+    flam = (wave / 5000.0) ** -3
+    good = float(ph.synthetic_mag(wave, flam, "jc.V"))
+    rng = np.random.default_rng(7)
+    order = np.concatenate([[0], 1 + rng.permutation(wave.size - 2), [wave.size - 1]])
+    try:
+        shuffled = float(ph.synthetic_mag(wave[order], flam[order], "jc.V"))
+    except StelltempError as err:
+        assert "increas" in str(err) or "order" in str(err)
+        return
+    assert shuffled == pytest.approx(good, abs=1e-9)
+
+
 def test_spectrum_must_cover_the_passband():
     wave = np.arange(4000.0, 6000.0, 1.0)
     with pytest.raises(StelltempError, match="does not cover passband jc.B") as err:
@@ -155,7 +175,7 @@ def test_user_passband_zero_points_are_not_shared(tmp_path):
 
 # ------------------------------------------------------------ the Sun
 
-def test_solar_model_colours_against_published_solar_colours():
+def test_solar_model_colours_against_published_solar_colours(record_property):
     # A model solar spectrum is not the Sun: the Kurucz (1993) model's line blanketing in the blue
     # and its continuum are approximations, so its synthetic colours differ from the measured solar
     # colours by a few hundredths of a magnitude.  We check agreement within 0.04 mag and print
@@ -168,6 +188,8 @@ def test_solar_model_colours_against_published_solar_colours():
     # Casagrande et al. 2012, ApJ 761, 16: solar V−Ks = 1.560 ± 0.008
     res_vks = vks - 1.560
     print(f"Kurucz 1993 Sun: B-V = {bv:.4f} (residual {res_bv:+.4f}), V-Ks = {vks:.4f} (residual {res_vks:+.4f})")
+    record_property("sun_model_bv_residual_mag", res_bv)
+    record_property("sun_model_vks_residual_mag", res_vks)
     assert abs(res_bv) < 0.04
     assert abs(res_vks) < 0.04
 
