@@ -131,8 +131,18 @@ def test_dlnb_dlnt_matches_finite_difference():
 
 
 def test_bad_wavelength_rejected():
-    with pytest.raises(StelltempError, match="wavelength"):
-        planck.radiance_lambda(5000, -5 * u.nm)
+    for bad in (-5 * u.nm, 0 * u.nm, np.nan * u.nm):
+        with pytest.raises(StelltempError, match="wavelength"):
+            planck.radiance_lambda(5000, bad)
+
+
+@pytest.mark.xfail(strict=True, reason="bug: planck.radiance_nu does not validate frequencies "
+                   "(radiance_lambda does, through _as_angstrom): −5 Hz silently gives +3.8e-35, 0 Hz a "
+                   "divide-by-zero RuntimeWarning, NaN a NaN")
+@pytest.mark.parametrize("freq", [-5 * u.Hz, 0 * u.Hz, np.nan * u.Hz])
+def test_bad_frequency_rejected(freq):
+    with pytest.raises(StelltempError, match="frequenc"):
+        planck.radiance_nu(5000, freq)
 
 
 # ------------------------------------------------------------ constants, Wien
