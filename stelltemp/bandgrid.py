@@ -21,7 +21,7 @@ linear in the tabulated data), so a colour costs one evaluation.
 """
 
 from dataclasses import dataclass
-from functools import lru_cache
+from functools import cached_property, lru_cache
 
 import numpy as np
 
@@ -34,6 +34,12 @@ from .planck import dlnb_dlnt, planck_lambda_cgs
 T_MIN, T_MAX = 1000.0, 100000.0
 N_T = 241
 E_MIN, E_MAX, E_STEP = -0.5, 6.0, 0.1
+
+#: cubic Hermite data (f(0), f(1), f'(0), f'(1)) to power-basis coefficients (1, t, t², t³)
+_HERMITE = np.array([[1.0, 0.0, 0.0, 0.0],
+                     [0.0, 0.0, 1.0, 0.0],
+                     [-3.0, 3.0, -2.0, -1.0],
+                     [2.0, -2.0, 1.0, 1.0]])
 
 LN10_04 = 0.4 * np.log(10.0)
 MAG = 2.5 / np.log(10.0)
@@ -66,7 +72,38 @@ class HermiteTable:
         return self.coef.shape[:2]
 
     def __sub__(self, other):
-        return HermiteTable(self.coef - other.coef, self.lnt0, self.h_t, self.e0, self.h_e)
+        diff = HermiteTable(self.coef - other.coef, self.lnt0, self.h_t, self.e0, self.h_e)
+        # the patches are linear in the node data: subtract them instead of rebuilding
+        diff.__dict__["patches"] = self.patches - other.patches
+        return diff
+
+    @cached_property
+    def patches(self):
+        """Power-basis coefficients of each cell: p(t, s) = Σ C[a, b] tᵃ sᵇ, shape (nT−1, nE−1, 4, 4).
+
+        From node data by C = H G Hᵀ, with H the cubic Hermite-to-power matrix
+        and G the 4 × 4 node data (values, scaled slopes, cross terms) of the cell.
+        """
+        c = self.coef
+        # G[a, b]: a over (f at t=0, f at t=1, slope_t at 0, slope_t at 1); b likewise in s
+        g = np.empty((c.shape[0] - 1, c.shape[1] - 1, 4, 4))
+        for a, (di, t_part) in enumerate(((0, 0), (1, 0), (0, 1), (1, 1))):
+            for b, (dj, s_part) in enumerate(((0, 0), (1, 0), (0, 1), (1, 1))):
+                comp = {(0, 0): 0, (1, 0): 1, (0, 1): 2, (1, 1): 3}[(t_part, s_part)]
+                g[..., a, b] = c[di:di + c.shape[0] - 1, dj:dj + c.shape[1] - 1, comp]
+        out = np.einsum("ia,...ab,jb->...ij", _HERMITE, g, _HERMITE)
+        out.flags.writeable = False
+        return np.ascontiguousarray(out)
+
+    def cell(self, lnt, ebv):
+        """Cell indices and local coordinates (flat cell index, t, s) of points."""
+        nt, ne = self.shape
+        u = (lnt - self.lnt0) / self.h_t
+        v = (ebv - self.e0) / self.h_e
+        # NaN inputs map to cell 0 and still give NaN results through t or s
+        i = np.clip(np.floor(np.nan_to_num(u)), 0, nt - 2).astype(np.intp)
+        j = np.clip(np.floor(np.nan_to_num(v)), 0, ne - 2).astype(np.intp)
+        return i * (ne - 1) + j, u - i, v - j
 
     def evaluate(self, lnt, ebv, want_de=True):
         """Value, ∂/∂lnT and ∂/∂E at points (ln T, E); arrays broadcast together.
@@ -77,45 +114,16 @@ class HermiteTable:
         """
         lnt, ebv = np.broadcast_arrays(np.asarray(lnt, float), np.asarray(ebv, float))
         shape = lnt.shape
-        lnt, ebv = lnt.ravel(), ebv.ravel()
-        nt, ne = self.shape
-        u = (lnt - self.lnt0) / self.h_t
-        v = (ebv - self.e0) / self.h_e
-        # NaN inputs map to cell 0 and still give NaN results through t or s
-        i = np.clip(np.floor(np.nan_to_num(u)), 0, nt - 2).astype(np.intp)
-        j = np.clip(np.floor(np.nan_to_num(v)), 0, ne - 2).astype(np.intp)
-        t = u - i
-        s = v - j
-        flat = self.coef.reshape(-1, 4)
-        k = i * ne + j
-        lo_lo, lo_hi, hi_lo, hi_hi = flat[k], flat[k + 1], flat[k + ne], flat[k + ne + 1]
-
-        # Hermite basis in s (E direction): a* weight node values, b* weight slopes
-        s2 = s * s
-        s3 = s2 * s
-        as0, as1 = 2 * s3 - 3 * s2 + 1, 3 * s2 - 2 * s3
-        bs0, bs1 = s3 - 2 * s2 + s, s3 - s2
-        # collapse the E direction first: value f and scaled T-slope g at both T nodes
-        f0 = lo_lo[:, 0] * as0 + lo_hi[:, 0] * as1 + lo_lo[:, 2] * bs0 + lo_hi[:, 2] * bs1
-        f1 = hi_lo[:, 0] * as0 + hi_hi[:, 0] * as1 + hi_lo[:, 2] * bs0 + hi_hi[:, 2] * bs1
-        g0 = lo_lo[:, 1] * as0 + lo_hi[:, 1] * as1 + lo_lo[:, 3] * bs0 + lo_hi[:, 3] * bs1
-        g1 = hi_lo[:, 1] * as0 + hi_hi[:, 1] * as1 + hi_lo[:, 3] * bs0 + hi_hi[:, 3] * bs1
-
-        t2 = t * t
-        t3 = t2 * t
-        at0, at1 = 2 * t3 - 3 * t2 + 1, 3 * t2 - 2 * t3
-        bt0, bt1 = t3 - 2 * t2 + t, t3 - t2
-        value = f0 * at0 + f1 * at1 + g0 * bt0 + g1 * bt1
-        d_lnt = ((f1 - f0) * (6 * t - 6 * t2) + g0 * (3 * t2 - 4 * t + 1) + g1 * (3 * t2 - 2 * t)) / self.h_t
+        k, t, s = self.cell(lnt.ravel(), ebv.ravel())
+        c = self.patches.reshape(-1, 4, 4)[k]  # (n, 4 powers of t, 4 powers of s)
+        s_ = s[:, None]
+        q = c[:, :, 0] + s_ * (c[:, :, 1] + s_ * (c[:, :, 2] + s_ * c[:, :, 3]))  # polynomial in t
+        value = q[:, 0] + t * (q[:, 1] + t * (q[:, 2] + t * q[:, 3]))
+        d_lnt = (q[:, 1] + t * (2 * q[:, 2] + 3 * t * q[:, 3])) / self.h_t
         d_e = None
         if want_de:
-            das = 6 * s - 6 * s2  # d(as1)/ds = -d(as0)/ds
-            dbs0, dbs1 = 3 * s2 - 4 * s + 1, 3 * s2 - 2 * s
-            df0 = (lo_hi[:, 0] - lo_lo[:, 0]) * das + lo_lo[:, 2] * dbs0 + lo_hi[:, 2] * dbs1
-            df1 = (hi_hi[:, 0] - hi_lo[:, 0]) * das + hi_lo[:, 2] * dbs0 + hi_hi[:, 2] * dbs1
-            dg0 = (lo_hi[:, 1] - lo_lo[:, 1]) * das + lo_lo[:, 3] * dbs0 + lo_hi[:, 3] * dbs1
-            dg1 = (hi_hi[:, 1] - hi_lo[:, 1]) * das + hi_lo[:, 3] * dbs0 + hi_hi[:, 3] * dbs1
-            d_e = ((df0 * at0 + df1 * at1 + dg0 * bt0 + dg1 * bt1) / self.h_e).reshape(shape)
+            dq = c[:, :, 1] + s_ * (2 * c[:, :, 2] + 3 * s_ * c[:, :, 3])
+            d_e = ((dq[:, 0] + t * (dq[:, 1] + t * (dq[:, 2] + t * dq[:, 3]))) / self.h_e).reshape(shape)
         return value.reshape(shape), d_lnt.reshape(shape), d_e
 
     def nodes(self):
@@ -166,7 +174,9 @@ def _band_table(key, law, rv):
     m, m_t, m_e, m_te = blackbody_band_terms(key, np.exp(lnt), e, law, rv)
     coef = np.stack([m, h_t * m_t, h_e * m_e, h_t * h_e * m_te], axis=-1)
     coef.flags.writeable = False
-    return HermiteTable(coef, float(lnt[0]), float(h_t), float(e[0]), float(h_e))
+    table = HermiteTable(coef, float(lnt[0]), float(h_t), float(e[0]), float(h_e))
+    table.patches  # noqa: B018 - build the cell polynomials once, with the table
+    return table
 
 
 def band_table(passband, law=DEFAULT_LAW, rv=DEFAULT_RV):

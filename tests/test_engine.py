@@ -261,7 +261,7 @@ def test_derived_quantities_follow_the_laws():
     assert res["radius"][0].to_value(u.R_sun) == pytest.approx(
         0.5 * theta * 10 * 3.0856775814913673e16 / 6.957e8, rel=1e-6)
     # σ_R/R = σ_θ/θ ⊕ σ_ϖ/ϖ (first order)
-    rel = np.hypot(res["theta_err"][0] / res["theta"][0], 0.01)
+    rel = np.hypot(res["theta_err"][0].value / res["theta"][0].value, 0.01)
     assert res["radius_err"][0].to_value(u.R_sun) == pytest.approx(res["radius"][0].value * rel, rel=1e-6)
 
 

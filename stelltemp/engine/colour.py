@@ -107,6 +107,7 @@ def invert_colour(colour, blue, red, ebv=0.0, law=DEFAULT_LAW, rv=DEFAULT_RV):
     s = v - j
     s2 = s * s
     s3 = s2 * s
+    # cubic Hermite basis in s: node values (as0, as1) and scaled slopes (bs0, bs1)
     as0, as1 = 2 * s3 - 3 * s2 + 1, 3 * s2 - 2 * s3
     bs0, bs1 = s3 - 2 * s2 + s, s3 - s2
     val = np.ascontiguousarray(table.coef[..., 0]).ravel()
@@ -137,16 +138,13 @@ def invert_colour(colour, blue, red, ebv=0.0, law=DEFAULT_LAW, rv=DEFAULT_RV):
         hi = np.where(redder, hi, mid)
     i = np.minimum(lo, nt - 2)
 
-    # cubic in the cell coordinate t: p(t) = f0 + g0 t + a2 t² + a3 t³
-    flat = table.coef.reshape(-1, 4)
-    k = i * ne + j
-    q00, q01, q10, q11 = flat[k], flat[k + 1], flat[k + ne], flat[k + ne + 1]
-    f0 = q00[:, 0] * as0 + q01[:, 0] * as1 + q00[:, 2] * bs0 + q01[:, 2] * bs1
-    f1 = q10[:, 0] * as0 + q11[:, 0] * as1 + q10[:, 2] * bs0 + q11[:, 2] * bs1
-    g0 = q00[:, 1] * as0 + q01[:, 1] * as1 + q00[:, 3] * bs0 + q01[:, 3] * bs1
-    g1 = q10[:, 1] * as0 + q11[:, 1] * as1 + q10[:, 3] * bs0 + q11[:, 3] * bs1
-    a2 = 3 * (f1 - f0) - 2 * g0 - g1
-    a3 = 2 * (f0 - f1) + g0 + g1
+    # inside the cell the colour is a cubic in the cell coordinate t:
+    # p(t) = q0 + q1 t + q2 t² + q3 t³, with the E direction already summed
+    c = table.patches.reshape(-1, 4, 4)[i * (ne - 1) + j]
+    s_ = s[:, None]
+    q = c[:, :, 0] + s_ * (c[:, :, 1] + s_ * (c[:, :, 2] + s_ * c[:, :, 3]))
+    f0, g0, a2, a3 = q[:, 0], q[:, 1], q[:, 2], q[:, 3]
+    f1 = f0 + g0 + a2 + a3
     with np.errstate(divide="ignore", invalid="ignore"):
         t = np.clip((cc - f0) / (f1 - f0), 0.0, 1.0)
         for _ in range(_NEWTON_STEPS):
