@@ -211,20 +211,22 @@ def spectrum_figure(temperature_k, bands):
             level = next((i for i, spans in enumerate(taken)
                           if all(centre + half < a or centre - half > b for a, b in spans)), 0)
             taken[level].append((centre - half, centre + half))
-            ax2.text(x_label, 1.03 + 0.09 * level, pb.key, color=col, ha="center", va="bottom", fontsize=8.5)
-        ax2.set_ylim(0, 1.55)
+            ax2.text(x_label, 1.05 + 0.1 * level, pb.key, color=col, ha="center", va="bottom", fontsize=8.5)
+        ax2.set_ylim(0, 1.67)
         ax2.set_ylabel("passband response (relative, peak = 1)")
 
         ax.plot(wave, b / 10.0**k, color=PALETTE["ink"], lw=2.0, gid="spectrum")
-        ax.axvline(peak_nm, color=PALETTE["ember"], ls="--", lw=1.4, gid="wien-peak")
+        b_peak = float(radiance_lambda(t, peak_nm * u.nm).to_value(u.W / u.m**2 / u.nm / u.sr)) / 10.0**k
+        # the marker stops at the curve so it does not cross the passband labels above it
+        ax.plot([peak_nm, peak_nm], [0, b_peak], color=PALETTE["ember"], ls="--", lw=1.4, gid="wien-peak")
+        ax.plot([peak_nm], [b_peak], "o", color=PALETTE["ember"], ms=5)
         b_mm_k = wien_b_lambda() * 1e3
         left = frac(peak_nm) < 0.55
-        ax.text(peak_nm, 0.965, f"{'  ' if left else ''}Wien peak  λ$_{{max}}$ = b/T = {b_mm_k:.4f} mm K / "
-                f"{t:,.0f} K = {peak_nm:,.1f} nm{'' if left else '  '}",
+        ax.text(peak_nm, 0.965, f"● Wien peak  λ$_{{max}}$ = b/T = {b_mm_k:.4f} mm K / {t:,.0f} K = {peak_nm:,.1f} nm",
                 transform=ax.get_xaxis_transform(), color=PALETTE["ember"], fontsize=9, va="top",
                 ha="left" if left else "right")
         ax.set_xlim(lo, hi)
-        ax.set_ylim(0, np.max(b) / 10.0**k * 1.5)
+        ax.set_ylim(0, np.max(b) / 10.0**k * 1.67)
         if log_x:
             from matplotlib.ticker import LogLocator, NullFormatter, ScalarFormatter
 
@@ -407,9 +409,13 @@ def star_fit_figure(table, typed_mags, law="G23", rv=3.1):
         res = fig.add_subplot(gs[1], sharex=ax)
         ax.errorbar(wave, mags, yerr=errs, fmt="o", color=PALETTE["harbour"], ms=6, capsize=3,
                     label="observed (1σ)", gid="observed", zorder=3)
+        above, last_w = False, None
         for w, key, m in zip(wave, (p[1] for p in pts), mags):
-            ax.annotate(key, (w, m), xytext=(0, 13), textcoords="offset points", ha="center", fontsize=8.5,
-                        color=PALETTE["slate"])
+            # close neighbours take turns above and below their points so labels do not collide
+            above = not above if last_w is not None and math.log10(w / last_w) < 0.08 else True
+            last_w = w
+            ax.annotate(key, (w, m), xytext=(0, 13 if above else -13), textcoords="offset points", ha="center",
+                        va="bottom" if above else "top", fontsize=8.5, color=PALETTE["slate"])
         if have_fit:
             ax.plot(wave, model, "s--", color=PALETTE["ember"], mfc="none", ms=8, lw=1.0,
                     label="fitted reddened blackbody, through each passband", gid="model")

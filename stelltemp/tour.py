@@ -1,0 +1,441 @@
+"""``stelltemp tour``: the whole job once, on the invented demo scenario.
+
+One command for a newcomer.  It reads ``catalogs_demo/`` (an invented
+teaching observatory, 40 field stars and a 20-star cluster; see its
+README) and, in a fresh output folder:
+
+1. runs the catalogue engine over ``targets.csv`` → ``temperatures.ecsv``
+   (blackbody colour temperatures with 68 % intervals, flags, derived
+   quantities, calibrated T_eff where a relation applies);
+2. compares the temperatures with the generating values in ``truth.csv``
+   (the demo stars *are* reddened blackbodies, so a fit should recover them
+   within its errors);
+3. draws the catalogue's colour–temperature diagram, blackbody colours
+   against temperature with the calibrated relations, one star's fit and
+   its spectrum under the passbands;
+4. plans the night in the scenario with the demo instrument: best window,
+   airmass and the exposure per filter for the S/N goal (``plan.ecsv``),
+   an altitude/airmass chart and S/N against exposure time for one star;
+5. prints a short summary (with any Sun-safety warning of the observing
+   module) and the paths.
+
+The demo folder sits at the top of the source tree, not inside the
+package, so it is looked for in the current directory and beside the
+package's parent directory.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import sys
+import tomllib
+from pathlib import Path
+
+import numpy as np
+
+from .errors import StelltempError
+
+__all__ = ["add_cli", "run_cli", "run_tour", "find_demo_dir", "load_scenario", "DEMO_DIRNAME", "SCENARIO_FILE"]
+
+DEMO_DIRNAME = "catalogs_demo"
+SCENARIO_FILE = "scenario.toml"
+DEFAULT_OUT = "tour_output"
+#: passbands drawn under the showcase star's spectrum and in the blackbody-colour figure
+SPECTRUM_BANDS = ("jc.B", "jc.V", "jc.Rc", "jc.Ic", "2mass.J", "2mass.H", "2mass.Ks")
+COLOUR_BANDS = ("jc.B", "jc.V", "jc.Ic", "2mass.Ks")
+#: targets drawn in the altitude chart besides the showcase star (more would crowd the legend)
+CHART_TARGETS = 7
+
+_SCENARIO_KEYS = {"title": str, "date": str, "instrument": str, "targets": str, "truth": str,
+                  "extinction_law": str, "r_v": (int, float), "snr_goal": (int, float), "showcase_star": str}
+
+
+# ------------------------------------------------------------------- inputs
+def find_demo_dir(explicit=None):
+    """The demo folder: ``explicit`` if given, else ./catalogs_demo, else the source tree's.
+
+    Raises
+    ------
+    StelltempError
+        One line naming the places searched.
+    """
+    if explicit is not None:
+        candidates = [Path(explicit)]
+    else:
+        candidates = [Path.cwd() / DEMO_DIRNAME, Path(__file__).resolve().parents[1] / DEMO_DIRNAME]
+    for c in candidates:
+        if (c / SCENARIO_FILE).is_file():
+            return c
+    places = " and ".join(str(c) for c in dict.fromkeys(candidates))
+    raise StelltempError(f"demo data not found (no {SCENARIO_FILE} in {places}); "
+                         "run the tour from a source checkout of stelltemp")
+
+
+def load_scenario(demo_dir):
+    """Read and check ``scenario.toml``; file entries become absolute paths."""
+    demo_dir = Path(demo_dir)
+    path = demo_dir / SCENARIO_FILE
+    try:
+        doc = tomllib.loads(path.read_text(encoding="utf-8"))
+    except (OSError, tomllib.TOMLDecodeError) as exc:
+        raise StelltempError(f"cannot read {path}: {exc}") from None
+    for key, kind in _SCENARIO_KEYS.items():
+        if key not in doc:
+            raise StelltempError(f"{path}: missing '{key}'")
+        if not isinstance(doc[key], kind) or isinstance(doc[key], bool):
+            raise StelltempError(f"{path}: '{key}' has the wrong type")
+    for key in ("instrument", "targets", "truth"):
+        doc[key] = demo_dir / doc[key]
+    for key in ("instrument", "targets"):
+        if not doc[key].is_file():
+            raise StelltempError(f"demo file missing: {doc[key]}")
+    return doc
+
+
+def prepare_output(out_dir, replace=False):
+    """Create the output folder; refuse a non-empty one unless ``replace``."""
+    out = Path(out_dir)
+    if out.exists() and not out.is_dir():
+        raise StelltempError(f"output path {out} exists and is not a folder")
+    if out.is_dir() and any(out.iterdir()) and not replace:
+        raise StelltempError(f"output folder {out} is not empty; give another with --out or allow reuse with --replace")
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise StelltempError(f"cannot create output folder {out}: {exc.strerror or exc}") from None
+    return out
+
+
+def _read_csv(path):
+    from astropy.table import Table
+
+    try:
+        return Table.read(path, format="ascii.csv")
+    except Exception as exc:  # astropy raises many types for malformed tables
+        raise StelltempError(f"cannot read {path}: {str(exc).splitlines()[0]}") from None
+
+
+def _floats(col):
+    data = getattr(col, "value", col)
+    return np.ma.filled(np.ma.asarray(data, dtype=float), np.nan)
+
+
+# --------------------------------------------------------------- the checks
+def truth_comparison(results, truth):
+    """How far each recovered temperature lies from the generating one, in its own errors.
+
+    The engine's intervals are symmetric in ln T, so the distance is
+    measured in ln T and divided by the side of the interval that faces the
+    true value; an open upper side (Rayleigh–Jeans limit) counts as infinite.
+
+    Returns
+    -------
+    dict
+        ``compared`` (stars with a temperature and a truth row),
+        ``median_abs_z``, ``within_1sigma`` and ``within_3sigma`` (fractions),
+        ``worst`` (name and z of the largest deviation).
+    """
+    true_t = {str(n): float(t) for n, t in zip(truth["name"], truth["t_true"])}
+    names = [str(n) for n in results["name"]]
+    t = _floats(results["t_bb"])
+    lo = _floats(results["t_bb_lo"])
+    hi = _floats(results["t_bb_hi"])
+    tt = np.array([true_t.get(n, np.nan) for n in names])
+    with np.errstate(invalid="ignore", divide="ignore"):
+        side = np.where(tt < t, np.log(t / lo), np.log(hi / t))
+        z = np.abs(np.log(t / tt)) / side
+    ok = np.isfinite(t) & np.isfinite(tt) & ~np.isnan(z)
+    if not ok.any():
+        return {"compared": 0}
+    worst = int(np.nanargmax(np.where(ok, z, -np.inf)))
+    return {"compared": int(ok.sum()), "median_abs_z": float(np.median(z[ok])),
+            "within_1sigma": float(np.mean(z[ok] <= 1)), "within_3sigma": float(np.mean(z[ok] <= 3)),
+            "worst": {"name": names[worst], "z": float(z[worst])}}
+
+
+def planning_temperatures(table, bands, law, rv):
+    """Temperature of the blackbody matching each star's *observed* (reddened) colours.
+
+    The exposure calculator scales an unreddened blackbody to the V
+    magnitude; giving it the temperature fitted with E(B−V) = 0 to the
+    instrument's own bands reproduces the reddened colours across them,
+    which is what sets the count rates.  NaN where fewer than two bands.
+    """
+    from .engine import estimate
+
+    present = [b for b in bands if b in table.colnames]
+    if len(present) < 2:
+        return np.full(len(table), np.nan)
+    mags = {b: _floats(table[b]) for b in present}
+    errs = {b: _floats(table[b + "_err"]) for b in present if b + "_err" in table.colnames}
+    with np.errstate(invalid="ignore"):
+        for b in present:  # sentinels such as 99.999 are no measurement
+            bad = ~(np.abs(mags[b]) < 40)
+            mags[b] = np.where(bad, np.nan, mags[b])
+            if b in errs:
+                errs[b] = np.where(bad | ~(errs[b] <= 5), np.nan, errs[b])
+    res = estimate(mags, errs, ebv=0.0, law=law, rv=rv)
+    return _floats(res["t_bb"])
+
+
+def _showcase_fit(row, bands, law, rv):
+    """Engine result (one-row QTable) and typed magnitudes of one star, as in the catalogue run."""
+    from .engine import estimate
+
+    typed, mags, errs = [], {}, {}
+    for b in bands:
+        m = float(_floats(row[b]))
+        e = float(_floats(row[b + "_err"])) if b + "_err" in row.colnames else math.nan
+        if math.isfinite(m) and abs(m) < 40:
+            typed.append((b, m, e if math.isfinite(e) else None))
+            mags[b] = [m]
+            if math.isfinite(e):
+                errs[b] = [e]
+    opts = {k: float(_floats(row[k])) for k in ("ebv", "ebv_err", "parallax", "parallax_err", "feh")
+            if k in row.colnames}
+    table = estimate(mags, errs, law=law, rv=rv, **opts)
+    return table, typed
+
+
+def _separation_deg(ra1, dec1, ra2, dec2):
+    """Angle between two directions on the sky (all in degrees), haversine form."""
+    p1, p2 = math.radians(dec1), math.radians(dec2)
+    h = math.sin((p2 - p1) / 2) ** 2 + math.cos(p1) * math.cos(p2) * math.sin(math.radians(ra2 - ra1) / 2) ** 2
+    return math.degrees(2 * math.asin(min(1.0, math.sqrt(h))))
+
+
+def _chart_subset(plan, showcase, skip=(), n_extra=CHART_TARGETS):
+    """Names for the altitude chart: the showcase star and others spread through the night.
+
+    ``skip`` names stars to leave out (the showcase's cluster companions
+    share its track and would hide it).
+    """
+    seen, order = set(skip), []
+    for r in plan:
+        name = str(r["target"])
+        if name in seen or name == showcase or not str(r["best_time"]):
+            continue
+        seen.add(name)
+        order.append((str(r["best_time"]), name))
+    order.sort()
+    if len(order) > n_extra:
+        idx = np.linspace(0, len(order) - 1, n_extra).round().astype(int)
+        order = [order[i] for i in idx]
+    return [showcase] + [n for _, n in order]
+
+
+# -------------------------------------------------------------------- tour
+def run_tour(out_dir=DEFAULT_OUT, *, replace=False, demo_dir=None, quiet=False, stream=None):
+    """Run the whole demo: temperatures, figures and the night plan.
+
+    Parameters
+    ----------
+    out_dir : path-like
+        Output folder (created; must be empty unless ``replace``).
+    replace : bool
+        Allow a non-empty output folder; files of the same name are replaced.
+    demo_dir : path-like, optional
+        The demo folder (default: found by :func:`find_demo_dir`).
+    quiet : bool
+        Print nothing.
+    stream : file, optional
+        Where the summary goes (default stdout).
+
+    Returns
+    -------
+    dict
+        Counts, the comparison with the truth, plan facts, Sun warnings and
+        the ``files`` written (name → path); also written as ``summary.json``.
+    """
+    from astropy.table import Table
+
+    from . import plots
+    from .catalog import run_catalogue
+    from .engine import BLACKBODY_NOTE
+    from .engine import flags as fl
+    from .observing.cli_hooks import table_to_jsonable
+    from .observing.figures import plot_night, plot_snr_curves
+    from .observing.instrument import load_instrument
+    from .observing.plan import night_tracks, parse_targets, plan_night, plan_target
+
+    demo = find_demo_dir(demo_dir)
+    sc = load_scenario(demo)
+    out = prepare_output(out_dir, replace)
+    law, rv, snr = sc["extinction_law"], float(sc["r_v"]), float(sc["snr_goal"])
+    files = {}
+
+    # 1. temperatures for every row, written as a table file
+    files["temperatures"] = str(out / "temperatures.ecsv")
+    run = run_catalogue(sc["targets"], files["temperatures"], law=law, rv=rv, overwrite=True, quiet=True)
+    results = Table.read(files["temperatures"], format="ascii.ecsv")
+    targets = _read_csv(sc["targets"])
+    t_bb = _floats(results["t_bb"])
+    flags = np.asarray(results["flags"], dtype=np.int64)
+    unsolved = [(str(n), fl.describe(f)) for n, t, f in zip(results["name"], t_bb, flags) if not math.isfinite(t)]
+
+    # 2. against the generating values
+    truth = None
+    if Path(sc["truth"]).is_file():
+        truth = truth_comparison(results, _read_csv(sc["truth"]))
+
+    # 3. figures of the run and of one star
+    star = sc["showcase_star"]
+    rows = [i for i, n in enumerate(targets["name"]) if str(n) == star]
+    if not rows:
+        raise StelltempError(f"showcase star {star} is not in {sc['targets']}")
+    star_row = targets[rows[0]]
+    files["catalogue_figure"] = plots.plot_catalogue_results(results, out / "catalogue_diagram.png", law=law, rv=rv)
+    files["colour_figure"] = plots.plot_colour_temperature(list(COLOUR_BANDS), out / "blackbody_colours.png",
+                                                           law=law, rv=rv)
+    bands = [b for b in results.meta.get("passbands", "").split(",") if b] or \
+        [c for c in targets.colnames if c in SPECTRUM_BANDS]
+    fit_table, typed = _showcase_fit(star_row, bands, law, rv)
+    files["fit_figure"] = plots.plot_star_fit(fit_table, typed, out / f"fit_{star}.png", law=law, rv=rv)
+    star_t = float(fit_table["t_bb"][0].value)
+    files["spectrum_figure"] = plots.plot_spectrum_with_passbands(star_t, list(SPECTRUM_BANDS),
+                                                                  out / f"spectrum_{star}.png")
+
+    # 4. the night plan
+    instrument = load_instrument(sc["instrument"])
+    filter_bands = [instrument.filters[f].passband.key for f in instrument.filters]
+    plan_t = planning_temperatures(targets, filter_bands, law, rv)
+    plan_in = Table({"name": targets["name"], "ra": targets["ra"], "dec": targets["dec"],
+                     "mag": targets["mag"], "band": targets["band"],
+                     "teff": np.where(np.isfinite(plan_t), np.round(plan_t, 0), np.nan)})
+    plan_targets = parse_targets(plan_in)
+    plan = plan_night(instrument, plan_targets, sc["date"], snr=snr)
+    by_name = {t["name"]: t for t in plan_targets}
+    saved = plan.copy(copy_data=True)
+    saved.meta = table_to_jsonable(plan)["meta"]
+    saved.meta["note"] = ("exposures for blackbodies of each star's observed (reddened) colour temperature, "
+                          "scaled to its V magnitude; invented demo data")
+    files["plan"] = str(out / "plan.ecsv")
+    try:
+        saved.write(files["plan"], format="ascii.ecsv", overwrite=True)
+    except OSError as exc:
+        raise StelltempError(f"cannot write {files['plan']}: {exc.strerror or exc}") from None
+    centre = by_name[star]
+    companions = {t["name"] for t in plan_targets if not t["error"] and  # they share the showcase's track
+                  _separation_deg(centre["ra_deg"], centre["dec_deg"], t["ra_deg"], t["dec_deg"]) < 1.0}
+    chart_names = _chart_subset(plan, star, skip=companions)
+    tracks = night_tracks(instrument, [by_name[n] for n in chart_names if n in by_name], sc["date"])
+    files["night_figure"] = plot_night(tracks, str(out / "night_altitude.png"), plan.meta["min_altitude_deg"])
+    star_plan = plan[plan["target"] == star]
+    airmass = float(np.nanmin(np.asarray(star_plan["min_airmass"], float))) if len(star_plan) else 1.0
+    p = by_name[star]
+    one = plan_target(instrument, p["mag"], p["band"], p["teff"], snr=snr,
+                      airmass=airmass if math.isfinite(airmass) else 1.0, name=star)
+    files["snr_figure"] = plot_snr_curves(one, str(out / f"snr_{star}.png"))
+
+    exposure = np.asarray(plan["exposure"], float)
+    summary = {
+        "scenario": sc["title"],
+        "date": sc["date"],
+        "demo_dir": str(demo),
+        "stars": int(run.rows),
+        "solved": int(run.successes),
+        "without_temperature": [{"name": n, "flags": f} for n, f in unsolved],
+        "truth": truth,
+        "plan": {"rows": len(plan), "targets": len(set(plan["target"])), "filters": list(instrument.filters),
+                 "snr_goal": snr, "dark_start_utc": plan.meta.get("dark_start"),
+                 "dark_end_utc": plan.meta.get("dark_end"),
+                 "rows_with_exposure": int(np.count_nonzero(np.isfinite(exposure) & (exposure > 0))),
+                 "rows_not_ok_saturation": int(np.count_nonzero(np.asarray(plan["saturation"]) != "ok")),
+                 "rows_with_advice": int(np.count_nonzero(np.char.str_len(np.asarray(plan["advice"], str)) > 0))},
+        "sun_warnings": list(plan.meta.get("sun_warnings", [])),
+        "note": BLACKBODY_NOTE,
+        "files": {k: str(v) for k, v in files.items()},
+    }
+    files["summary"] = str(out / "summary.json")
+    summary["files"]["summary"] = files["summary"]
+    Path(files["summary"]).write_text(json.dumps(_plain(summary), indent=1, ensure_ascii=False) + "\n",
+                                      encoding="utf-8")
+    if not quiet:
+        print_summary(summary, stream or sys.stdout)
+    return summary
+
+
+def _plain(value):
+    """JSON-ready copy: numpy scalars to Python, NaN/inf to None."""
+    if isinstance(value, dict):
+        return {k: _plain(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_plain(v) for v in value]
+    if isinstance(value, np.generic):
+        value = value.item()
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    return value
+
+
+_FILE_NOTES = {
+    "temperatures": "temperature, 68 % interval and flags for every star",
+    "catalogue_figure": "colour temperature against observed B−V, flagged stars ringed",
+    "colour_figure": "blackbody colours against temperature, with calibrated relations",
+    "fit_figure": "one star's magnitudes with the fitted reddened blackbody",
+    "spectrum_figure": "that star's blackbody under the passbands, Wien peak marked",
+    "plan": "best window, airmass and exposure per target and filter",
+    "night_figure": "altitude and airmass through the night",
+    "snr_figure": "S/N against exposure time for one star",
+    "summary": "this summary as JSON",
+}
+
+
+def print_summary(s, stream):
+    """The tour's closing report, a dozen lines."""
+    w = lambda text="": print(text, file=stream)  # noqa: E731
+    w(f"stelltemp tour: {s['scenario']}, evening of {s['date']}")
+    w("  (every star, number and name in the demo is invented)")
+    w(f"temperatures  {s['stars']} stars read, {s['solved']} with a blackbody colour temperature")
+    for miss in s["without_temperature"]:
+        w(f"              no temperature for {miss['name']} (flags: {miss['flags'] or 'none'})")
+    tr = s["truth"]
+    if tr and tr.get("compared"):
+        w(f"              against the invented truth: median |T_bb - T_true|/sigma = {tr['median_abs_z']:.2f}; "
+          f"{tr['within_1sigma']:.0%} within 1 sigma, {tr['within_3sigma']:.0%} within 3 sigma "
+          f"({tr['compared']} stars)")
+    p = s["plan"]
+    w(f"night plan    {p['rows']} rows: {p['targets']} targets x {len(p['filters'])} filters "
+      f"({', '.join(p['filters'])}) for S/N {p['snr_goal']:g}; "
+      f"{p['rows_with_exposure']} with an exposure time")
+    if p["dark_start_utc"]:
+        w(f"              dark from {p['dark_start_utc'][11:16]} to {p['dark_end_utc'][11:16]} UTC; "
+          f"{p['rows_not_ok_saturation']} row(s) near saturation, {p['rows_with_advice']} with advice "
+          "(see plan.ecsv)")
+    if s["sun_warnings"]:
+        for warning in s["sun_warnings"]:
+            w(f"Sun           {warning}")
+    else:
+        w("Sun           no planned time in daylight or twilight and no target near the Sun")
+    import textwrap
+
+    w(textwrap.fill(s["note"], width=100, initial_indent="note          ", subsequent_indent=" " * 14))
+    w("files")
+    for key, path in s["files"].items():
+        w(f"  {path:42s} {_FILE_NOTES.get(key, '')}")
+    w("next          stelltemp catalogue YOUR_TABLE.csv results.ecsv   "
+      "(columns named as in catalogs_demo/targets.csv)")
+
+
+# --------------------------------------------------------------------- CLI
+def add_cli(subparsers):
+    """Register the ``tour`` subcommand on an argparse subparsers object."""
+    p = subparsers.add_parser(
+        "tour", help="run the whole job once on the invented demo data",
+        description="Temperatures for the invented demo stars, figures, and a night plan with exposures, "
+                    "written to one folder, with a short summary.")
+    p.add_argument("--out", default=DEFAULT_OUT, metavar="DIR", help=f"output folder (default {DEFAULT_OUT})")
+    p.add_argument("--replace", action="store_true", help="allow reusing a non-empty output folder")
+    p.add_argument("--json", action="store_true", help="print the summary as JSON")
+    p.add_argument("--quiet", action="store_true", help="print nothing on success")
+    p.set_defaults(func=run_cli)
+    return p
+
+
+def run_cli(args) -> int:
+    """Run the tour from parsed arguments; 0 on success (errors raise StelltempError)."""
+    summary = run_tour(args.out, replace=args.replace, quiet=args.quiet or args.json)
+    if args.json:
+        print(json.dumps(_plain(summary), indent=2, ensure_ascii=False))
+    return 0
