@@ -10,7 +10,7 @@ is tabulated with its exact partial derivatives ∂M/∂lnT, ∂M/∂E and
 (−0.5 to 6.0).  Between nodes a bicubic Hermite patch reproduces value
 and derivatives exactly at the nodes; with the derivatives exact, the
 interpolation error falls as the fourth power of the step, and the test
-suite measures it below 1e-6 mag everywhere on the grid (the documented
+suite measures it at about 1e-6 mag at most anywhere on the grid (the documented
 target is 1e-4 mag).  A star of angular diameter θ (radians) has
 m = M(T, E) − 2.5 log10(π θ² / 4).
 

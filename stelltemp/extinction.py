@@ -45,7 +45,10 @@ def check_law(law, rv):
     if law not in LAWS:
         raise StelltempError(f"unknown extinction law {law!r}; choose one of {', '.join(LAWS)}")
     cls, citation = LAWS[law]
-    rv = float(rv)
+    try:
+        rv = float(rv)
+    except (TypeError, ValueError):
+        raise StelltempError(f"R_V must be a number, got {rv!r}") from None
     lo, hi = cls.Rv_range
     if not (lo <= rv <= hi):
         raise StelltempError(f"R_V = {rv:g} is outside the range {lo}–{hi} of law {law}")

@@ -174,6 +174,25 @@ def _checked_curve(wave, response, origin):
     return wave, response / response.max()
 
 
+def _close_gaps(wave, response, factor=10.0):
+    """Put zero-response nodes into gaps far wider than the curve's usual step.
+
+    Some published tables omit their rows of zero response; linear
+    interpolation across such a gap invents a plateau of response (the
+    speclite ``sdss2010-u`` curve jumps from 4160 to 7620 Å, where the
+    same data without the atmosphere, ``sdss2010noatm-u``, has zeros at
+    4180 and 7600 Å: Doi et al. 2010, AJ 139, 1628, Table 4).
+    """
+    step = np.median(np.diff(wave))
+    gaps = np.nonzero(np.diff(wave) > factor * step)[0]
+    if gaps.size == 0:
+        return wave, response
+    new_w = np.concatenate([wave, wave[gaps] + step, wave[gaps + 1] - step])
+    new_r = np.concatenate([response, np.zeros(2 * gaps.size)])
+    order = np.argsort(new_w)
+    return new_w[order], new_r[order]
+
+
 def registry_table():
     """The built-in registry as an astropy Table (keys, systems, citations)."""
     return _registry().copy()
@@ -204,7 +223,7 @@ def _builtin(key):
     with resources.as_file(curve) as p:
         tab = Table.read(p, format="ascii.ecsv")
     wave = u.Quantity(tab["wavelength"], u.AA if tab["wavelength"].unit is None else None)
-    wave, response = _checked_curve(wave.to_value(u.AA), tab["response"], key)
+    wave, response = _close_gaps(*_checked_curve(wave.to_value(u.AA), tab["response"], key))
     citation = str(row["curve_source"])
     if row["magsys"] == "Vega":
         citation += f"; Vega magnitude {row['vega_mag']:g} from {row['zero_point_source']}"

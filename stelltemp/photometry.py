@@ -52,6 +52,8 @@ def band_integral(wave, flam, passband):
     band = get_passband(passband)
     wave = np.asarray(wave, float)
     flam = np.asarray(flam, float)
+    if wave.ndim != 1 or np.any(np.diff(wave) <= 0):
+        raise StelltempError("spectrum wavelengths must be one-dimensional and increase strictly")
     lo, hi = band.wave_range
     if wave[0] > lo or wave[-1] < hi:
         raise StelltempError(
@@ -96,7 +98,11 @@ def mag_offset(passband, magsys=None):
     band = get_passband(passband)
     magsys = magsys or band.magsys
     zp = 2.5 * np.log10(zero_point_integral(band, magsys))
-    return zp + (band.vega_mag if magsys == "Vega" else 0.0)
+    if magsys != "Vega":
+        return zp
+    if np.isnan(band.vega_mag):
+        raise StelltempError(f"{band.key} has no adopted Vega magnitude (it is an {band.magsys} band)")
+    return zp + band.vega_mag
 
 
 def synthetic_mag(wave, flam, passband, magsys=None):
@@ -114,7 +120,7 @@ def synthetic_mag(wave, flam, passband, magsys=None):
     """
     band = get_passband(passband)
     integral = band_integral(wave, flam, band)
-    with np.errstate(divide="ignore"):
+    with np.errstate(divide="ignore", invalid="ignore"):  # zero or negative flux: inf or NaN
         return -2.5 * np.log10(integral) + mag_offset(band, magsys)
 
 

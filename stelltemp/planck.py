@@ -154,6 +154,8 @@ def as_kelvin(temperature):
     StelltempError
         If a value is not a temperature, or is ≤ 0 K, NaN or infinite.
     """
+    if temperature is None:
+        raise StelltempError("not a temperature: None")
     if isinstance(temperature, u.Quantity):
         try:
             t = temperature.to_value(u.K, equivalencies=u.temperature())
@@ -167,8 +169,8 @@ def as_kelvin(temperature):
     t = np.asarray(t, dtype=float)
     bad = ~np.isfinite(t) | (t <= 0)
     if np.any(bad):
-        first = t[bad].flat[0] if t.ndim else float(t)
-        raise StelltempError(f"temperature must be finite and above 0 K, got {first!r} K")
+        first = float(t[bad].flat[0]) if t.ndim else float(t)
+        raise StelltempError(f"temperature must be finite and above 0 K, got {first:g} K")
     return t
 
 
@@ -194,6 +196,8 @@ def radiance_nu(temperature, frequency):
         nu = frequency.to_value(u.Hz, equivalencies=u.spectral())
     else:
         nu = np.asarray(frequency, float)
+    if np.any(~np.isfinite(nu) | (nu <= 0)):
+        raise StelltempError("frequencies must be finite and positive")
     b = planck_nu_cgs(as_kelvin(temperature), nu)
     return (b * u.erg / u.s / u.cm**2 / u.Hz / u.sr).to(u.W / u.m**2 / u.Hz / u.sr)
 
@@ -224,9 +228,17 @@ def surface_flux(temperature):
     return (SIGMA_CGS * as_kelvin(temperature) ** 4 * u.erg / u.s / u.cm**2).to(u.W / u.m**2)
 
 
+def _quantity(value, unit, what):
+    """``value`` as a Quantity in ``unit``, or one clear error naming what was expected."""
+    try:
+        return u.Quantity(value, unit)
+    except (u.UnitConversionError, u.UnitsError, TypeError, ValueError):
+        raise StelltempError(f"{what} must be a number or a Quantity convertible to {unit}, got {value!r}") from None
+
+
 def luminosity(radius, temperature):
     """Luminosity 4πR²σT⁴ of a sphere of the given radius (Quantity), in W."""
-    r = u.Quantity(radius, u.m)
+    r = _quantity(radius, u.m, "radius")
     if np.any(r.value <= 0) or not np.all(np.isfinite(r.value)):
         raise StelltempError("radius must be finite and positive")
     return (4 * np.pi * r**2 * surface_flux(temperature)).to(u.W)
@@ -234,7 +246,7 @@ def luminosity(radius, temperature):
 
 def radius_from_luminosity(lum, temperature):
     """Radius √(L / 4πσT⁴) of a sphere of luminosity ``lum`` (Quantity), in m."""
-    lum = u.Quantity(lum, u.W)
+    lum = _quantity(lum, u.W, "luminosity")
     if np.any(lum.value <= 0) or not np.all(np.isfinite(lum.value)):
         raise StelltempError("luminosity must be finite and positive")
     return np.sqrt(lum / (4 * np.pi * surface_flux(temperature))).to(u.m)
@@ -242,7 +254,7 @@ def radius_from_luminosity(lum, temperature):
 
 def temperature_from_flux(flux):
     """Temperature (F/σ)^(1/4) of a blackbody surface emitting ``flux`` (Quantity), in K."""
-    f = u.Quantity(flux, u.W / u.m**2)
+    f = _quantity(flux, u.W / u.m**2, "flux")
     if np.any(f.value <= 0) or not np.all(np.isfinite(f.value)):
         raise StelltempError("flux must be finite and positive")
     sigma = SIGMA_CGS * u.erg / u.s / u.cm**2 / u.K**4

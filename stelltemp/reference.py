@@ -5,7 +5,8 @@
   data files of the ``astro-sedpy`` package.  It covers 900 Å to 300 µm, so
   no passband of the registry needs extrapolation.
 * Sun: the Kurucz (1993) solar model distributed with ``astro-sedpy``
-  (``sun_kurucz93``, Teff = 5777 K, log g = 4.44), 90 Å to 160 µm.  It is a
+  (``sun_kurucz93``, Teff = 5777 K, log g = 4.44), 925 Å to 160 µm (the
+  file's rows below 925 Å have no flux and are dropped).  It is a
   model of the Sun, not the Sun: synthetic solar colours from it differ from
   the observed solar colours by a few hundredths of a magnitude.
 * AB: F_ν = 3631 Jy (Oke & Gunn 1983, ApJ 266, 713).
@@ -33,7 +34,8 @@ def _read_sedpy_spectrum(name):
         data = hdul[1].data
         wave = np.array(data["WAVELENGTH"], dtype=float)
         flux = np.array(data["FLUX"], dtype=float)
-    keep = np.concatenate([[True], np.diff(wave) > 0])  # drop repeated wavelengths if any
+    # drop repeated wavelengths and rows without a flux (the solar model has NaN below 925 Å)
+    keep = np.concatenate([[True], np.diff(wave) > 0]) & np.isfinite(flux)
     return wave[keep], flux[keep]
 
 

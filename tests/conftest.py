@@ -62,6 +62,14 @@ def photon_response(key, grid):
     since ∫ F_λ R dλ = ∫ F_λ λ (R/λ) dλ (Bessell & Murphy 2012, PASP 124, 140, §2).
     """
     wave, resp, row = raw_curve(key)
+    if key == "sdss.u":
+        # The airmass-1.3 SDSS u table omits its zero rows between 4160 and 7620 Å; the
+        # same Doi et al. 2010 (AJ 139, 1628, Table 4) data without the atmosphere
+        # (speclite sdss2010noatm-u) has zero nodes at 4180 and 7600 Å.
+        wave = np.concatenate([wave, [4180.0, 7600.0]])
+        resp = np.concatenate([resp, [0.0, 0.0]])
+        order = np.argsort(wave)
+        wave, resp = wave[order], resp[order]
     s = np.interp(grid, wave, resp, left=0.0, right=0.0)
     if row["detector"] == "energy":
         return s / grid / (resp / wave).max()

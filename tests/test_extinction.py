@@ -84,8 +84,6 @@ def test_rv_outside_range(law, rv):
     assert law in str(err.value) and "\n" not in str(err.value)
 
 
-@pytest.mark.xfail(strict=True, reason="bug: a non-numeric R_V raises a bare ValueError from float() "
-                   "in extinction.check_law instead of a StelltempError naming R_V")
 def test_non_numeric_rv():
     with pytest.raises(StelltempError, match="R_V"):
         ext.check_law("G23", "three")
