@@ -235,3 +235,11 @@ def test_progress_bar_hidden_when_quiet_or_not_a_terminal():
         assert bar.disable
     with _progress(10, quiet=False) as bar:  # pytest captures stderr: not a terminal
         assert bar.disable
+
+
+def test_table_without_usable_columns_is_one_clear_error(tmp_path):
+    inp = tmp_path / "in.csv"
+    inp.write_text("ra,dec\n10.1,-5.2\n")
+    with pytest.raises(StelltempError, match="no magnitude columns"):
+        run_catalogue(inp, tmp_path / "out.csv", engine=fake_estimate, quiet=True)
+    assert not (tmp_path / "out.csv").exists()

@@ -27,6 +27,9 @@ from stelltemp.errors import StelltempError
 
 #: suffix given to a result column whose name is already an input column
 RESULT_SUFFIX = "_result"
+#: rows per chunk: measured on 2 cores, 50 000 rows ran faster and in less
+#: than half the memory of 200 000 (the engine's work arrays stay in cache)
+DEFAULT_CHUNK_ROWS = 50_000
 #: column with the reasons of the flags set before the engine ran
 NOTES_COLUMN = "input_notes"
 
@@ -340,7 +343,7 @@ def run_catalogue(
     method="auto",
     fit_ebv=False,
     overwrite=False,
-    chunk_rows=200_000,
+    chunk_rows=DEFAULT_CHUNK_ROWS,
     quiet=False,
     engine=None,
 ):

@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import sys
 
+from stelltemp.catalog.batch import DEFAULT_CHUNK_ROWS
 from stelltemp.errors import StelltempError
 
 COMMAND = "catalogue"
@@ -42,7 +43,8 @@ def add_cli(subparsers):
     p.add_argument("--law", default="G23", help="extinction law name (default G23)")
     p.add_argument("--method", default="auto", help="engine method (default auto)")
     p.add_argument("--replace", action="store_true", help="allow replacing an existing output file")
-    p.add_argument("--chunk-rows", type=int, default=200_000, metavar="N", help="rows per chunk (default 200000)")
+    p.add_argument("--chunk-rows", type=int, default=DEFAULT_CHUNK_ROWS, metavar="N",
+                   help=f"rows per chunk (default {DEFAULT_CHUNK_ROWS}); memory grows with it")
     p.add_argument("--quiet", action="store_true", help="no progress bar and no closing summary text")
     p.add_argument("--json", action="store_true", help="print the closing summary as JSON on stdout")
     p.add_argument("--dask", action="store_true", help="run on Dask (Parquet input; needs stelltemp[scale])")

@@ -115,7 +115,7 @@ def main(argv=None):
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--rows", type=int, default=1_000_000)
     parser.add_argument("--naive-sample", type=int, default=5)
-    parser.add_argument("--chunk-rows", type=int, default=200_000)
+    parser.add_argument("--chunk-rows", type=int, default=50_000)
     args = parser.parse_args(argv)
 
     from stelltemp.catalog import run_catalogue
