@@ -72,3 +72,9 @@ def _table():
     import pyarrow as pa
 
     return pa.table({"jc.B": [11.0, 12.0], "jc.V": [10.5, 11.0]})
+
+
+def test_cli_default_chunk_matches_the_library():
+    from stelltemp.catalog import batch, cli_hooks
+
+    assert cli_hooks.DEFAULT_CHUNK_ROWS == batch.DEFAULT_CHUNK_ROWS

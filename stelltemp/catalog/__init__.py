@@ -14,8 +14,25 @@ Modules, one idea each:
 - :mod:`stelltemp.catalog.cli_hooks` — the ``catalogue`` subcommand.
 """
 
-from stelltemp.catalog.batch import RunOptions, RunSummary, estimate_table, run_catalogue
-from stelltemp.catalog.mapping import ColumnMap, default_mapping, load_mapping
+import importlib
+
+# names load their module on first use, so registering the CLI stays cheap
+_HOME = {
+    "ColumnMap": "mapping",
+    "default_mapping": "mapping",
+    "load_mapping": "mapping",
+    "RunOptions": "batch",
+    "RunSummary": "batch",
+    "estimate_table": "batch",
+    "run_catalogue": "batch",
+}
+
+
+def __getattr__(name):
+    if name in _HOME:
+        return getattr(importlib.import_module(f"stelltemp.catalog.{_HOME[name]}"), name)
+    raise AttributeError(f"module 'stelltemp.catalog' has no attribute '{name}'")
+
 
 __all__ = [
     "ColumnMap",

@@ -15,10 +15,11 @@ from __future__ import annotations
 
 import sys
 
-from stelltemp.catalog.batch import DEFAULT_CHUNK_ROWS
 from stelltemp.errors import StelltempError
 
 COMMAND = "catalogue"
+#: same as stelltemp.catalog.batch.DEFAULT_CHUNK_ROWS (not imported: keeps CLI start-up light)
+DEFAULT_CHUNK_ROWS = 50_000
 
 
 def add_cli(subparsers):
