@@ -1,0 +1,159 @@
+"""The tour end to end on the invented demo, and the demo data themselves."""
+
+import math
+from pathlib import Path
+
+import numpy as np
+import pytest
+from astropy.table import Table
+
+from stelltemp import tour
+from stelltemp.errors import StelltempError
+
+DEMO = Path(__file__).resolve().parents[1] / "catalogs_demo"
+PNG_MAGIC = b"\x89PNG\r\n\x1a\n"
+
+
+@pytest.fixture(scope="module")
+def run(tmp_path_factory):
+    out = tmp_path_factory.mktemp("tour") / "out"
+    summary = tour.run_tour(out, quiet=True)
+    return out, summary
+
+
+def _read(path):
+    return Table.read(path, format="ascii.ecsv" if str(path).endswith(".ecsv") else "ascii.csv")
+
+
+def _floats(col):
+    return np.ma.filled(np.ma.asarray(getattr(col, "value", col), dtype=float), np.nan)
+
+
+def test_every_output_exists(run):
+    out, summary = run
+    files = summary["files"]
+    for key in ("temperatures", "plan", "catalogue_figure", "colour_figure", "fit_figure", "spectrum_figure",
+                "night_figure", "snr_figure", "summary"):
+        path = Path(files[key])
+        assert path.parent == out and path.is_file() and path.stat().st_size > 0, key
+        if path.suffix == ".png":
+            assert path.read_bytes()[:8] == PNG_MAGIC, key
+
+
+def test_temperatures_recover_the_generating_values(run):
+    out, _ = run
+    res = _read(out / "temperatures.ecsv")
+    truth = {str(n): t for n, t in zip(_read(DEMO / "truth.csv")["name"], _read(DEMO / "truth.csv")["t_true"])}
+    t = _floats(res["t_bb"])
+    ok = np.isfinite(t)
+    tt = np.array([truth[str(n)] for n in res["name"]])
+    # the engine's 68 % intervals are symmetric in ln T: sigma(ln T) = ln(hi/lo) / 2
+    sig = np.log(_floats(res["t_bb_hi"]) / _floats(res["t_bb_lo"])) / 2
+    z = np.abs(np.log(t[ok] / tt[ok])) / sig[ok]
+    # The demo stars are reddened blackbodies with Gaussian magnitude and E(B-V) noise of the
+    # quoted size, so z should follow |N(0,1)|: 68.3 % below 1, 99.7 % below 3.  The engine's
+    # errors are linearised, and ~58 stars give a binomial scatter of about +/-6 % on the 1-sigma
+    # fraction, so we ask for 60 % and 90 %: a failure means the errors are too small or biased,
+    # not bad luck (the data are fixed).
+    assert np.mean(z <= 1) >= 0.60
+    assert np.mean(z <= 3) >= 0.90
+    assert ok.sum() >= 55
+
+
+def test_every_row_has_a_temperature_or_a_flag(run):
+    out, _ = run
+    res = _read(out / "temperatures.ecsv")
+    t = _floats(res["t_bb"])
+    flags = np.asarray(res["flags"], np.int64)
+    assert np.all(np.isfinite(t) | (flags != 0))
+    by_name = {str(n): i for i, n in enumerate(res["name"])}
+    from stelltemp.engine import flags as fl
+
+    lone = by_name["demo-F23"]  # measured in V only
+    assert not math.isfinite(t[lone]) and flags[lone] & fl.BAD_INPUT
+    sentinel = by_name["demo-F07"]  # 99.999 in jc.B: flagged, solved from the other bands
+    assert math.isfinite(t[sentinel]) and flags[sentinel] & fl.ABSURD_VALUE
+
+
+def test_night_plan_has_each_target_and_filter_with_positive_exposure(run):
+    out, summary = run
+    plan = _read(out / "plan.ecsv")
+    targets = _read(DEMO / "targets.csv")
+    filters = summary["plan"]["filters"]
+    assert filters == ["B", "V", "R", "I"]  # the demo instrument's filters
+    pairs = sorted(zip((str(x) for x in plan["target"]), (str(x) for x in plan["filter"])))
+    assert pairs == sorted((str(n), f) for n in targets["name"] for f in filters)
+    exposure = _floats(plan["exposure"])
+    assert np.all(np.isfinite(exposure) & (exposure > 0))
+    assert plan["exposure"].unit == "s"
+    # the S/N goal is met by the planned exposure (the exposure is the one for that goal)
+    np.testing.assert_allclose(_floats(plan["snr"]), 100.0, rtol=1e-3)
+    assert plan.meta["date"] == "2026-11-08"
+
+
+def test_summary_counts_match_the_files(run):
+    out, summary = run
+    res = _read(out / "temperatures.ecsv")
+    assert summary["stars"] == len(res) == 60
+    assert summary["solved"] == int(np.isfinite(_floats(res["t_bb"])).sum())
+    assert summary["truth"]["compared"] == summary["solved"]
+    assert summary["plan"]["rows"] == 240
+    assert isinstance(summary["sun_warnings"], list)
+
+
+def test_a_non_empty_output_folder_is_refused(run, tmp_path, capsys):
+    out, _ = run
+    with pytest.raises(StelltempError, match="--replace"):
+        tour.run_tour(out, quiet=True)
+    from stelltemp.cli import main
+
+    assert main(["tour", "--out", str(out)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "not empty" in err[0]
+
+
+def test_missing_demo_data_is_one_clear_error(tmp_path):
+    with pytest.raises(StelltempError, match="demo data not found"):
+        tour.run_tour(tmp_path / "out", demo_dir=tmp_path / "nowhere", quiet=True)
+    assert not (tmp_path / "out").exists()  # nothing created before the check
+
+
+def test_text_summary_names_the_files_and_the_check(run, tmp_path):
+    import io
+
+    _, summary = run
+    buf = io.StringIO()
+    tour.print_summary(summary, buf)
+    text = buf.getvalue()
+    assert "60 stars read" in text and "within 1 sigma" in text and "plan.ecsv" in text
+    assert "invented" in text
+
+
+# ------------------------------------------------------------- the demo data
+def test_demo_values_lie_in_the_stated_ranges():
+    targets, truth = _read(DEMO / "targets.csv"), _read(DEMO / "truth.csv")
+    assert list(targets["name"]) == list(truth["name"])
+    assert set(targets["provenance"]) == {"invented"} == set(truth["provenance"])
+    field = truth["group"] == "field"
+    assert field.sum() == 40 and (~field).sum() == 20
+    assert truth["t_true"].min() >= 3200 and truth["t_true"].max() <= 25000
+    assert 0 <= truth["ebv_true"][field].min() and truth["ebv_true"][field].max() <= 0.3
+    assert abs(np.mean(truth["ebv_true"][~field]) - 0.25) < 0.02
+    assert np.std(truth["ebv_true"][~field]) < 0.03
+    errs = np.concatenate([_floats(targets[c]) for c in targets.colnames if c.endswith("_err")
+                           and c not in ("ebv_err", "parallax_err")])
+    errs = errs[np.isfinite(errs) & (errs < 1)]  # the 9.999 sentinel is deliberate
+    assert errs.min() >= 0.01 and errs.max() <= 0.05
+
+
+def test_demo_truth_magnitudes_are_reddened_blackbodies():
+    # the README's claim: noise-free magnitudes are blackbody_mag(T, E(B-V), theta) through each band
+    from stelltemp.bandgrid import blackbody_mag
+    from stelltemp.plots import MAS_PER_RAD
+
+    truth = _read(DEMO / "truth.csv")
+    for band in ("jc.B", "jc.V", "2mass.Ks", "gaia3.BP"):
+        model = blackbody_mag(band, _floats(truth["t_true"]), _floats(truth["ebv_true"]), "G23", 3.1,
+                              _floats(truth["theta_true_mas"]) / MAS_PER_RAD)
+        # 0.005 mag covers the rounding of the stored values; more means the demo needs regenerating
+        assert np.max(np.abs(model - _floats(truth[band + "_true"]))) < 5e-3, band
