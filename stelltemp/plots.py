@@ -70,8 +70,9 @@ _STYLE = {
 
 MAS_PER_RAD = 180.0 / math.pi * 3600e3
 
-#: flag bits that concern the temperature itself (the others speak of T_eff or reddening)
+
 def _temperature_flag_mask():
+    """Flag bits that concern the temperature itself (the others speak of T_eff or reddening)."""
     from .engine import flags as fl
 
     return fl.BAD_INPUT | fl.NO_SOLUTION | fl.AT_GRID_EDGE | fl.RJ_LIMIT | fl.POOR_FIT | fl.ABSURD_VALUE
@@ -95,7 +96,7 @@ def _value_cmap():
     return LinearSegmentedColormap.from_list("stelltemp-values", [_colour(c) for c in VALUE_RAMP])
 
 
-def _new_figure(width, height, **grid):
+def _new_figure(width, height):
     """A Figure on an Agg canvas (no pyplot, no global state)."""
     import matplotlib
     from matplotlib.backends.backend_agg import FigureCanvasAgg

@@ -101,7 +101,7 @@ def test_summary_counts_match_the_files(run):
     assert isinstance(summary["sun_warnings"], list)
 
 
-def test_a_non_empty_output_folder_is_refused(run, tmp_path, capsys):
+def test_a_non_empty_output_folder_is_refused(run, capsys):
     out, _ = run
     with pytest.raises(StelltempError, match="--replace"):
         tour.run_tour(out, quiet=True)
@@ -118,7 +118,7 @@ def test_missing_demo_data_is_one_clear_error(tmp_path):
     assert not (tmp_path / "out").exists()  # nothing created before the check
 
 
-def test_text_summary_names_the_files_and_the_check(run, tmp_path):
+def test_text_summary_names_the_files_and_the_check(run):
     import io
 
     _, summary = run
