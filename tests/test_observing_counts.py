@@ -141,3 +141,15 @@ def test_spectrum_must_cover_filter(rig):
     w = np.linspace(5000.0, 6000.0, 10)
     with pytest.raises(StelltempError, match="does not cover"):
         counts.electron_rate_spectrum(w, np.ones_like(w), rig, "V")
+
+
+def test_ab_zero_point_photon_rate_is_exact(ideal):
+    # AB definition (Oke & Gunn 1983, ApJ 266, 713): F_ν = 3631 Jy.  Photons per second per cm²
+    # through a photon response S are ∫ F_ν S / (h ν) dν = (3631 Jy / h) ∫ S(λ) dλ / λ, exactly;
+    # evaluated here on the response's own integration grid, independently of counts.py.
+    h_cgs = 6.62607015e-27  # erg s, exact in the SI since 2019
+    pb = ideal.filter("g").passband
+    grid = pb.integration_grid
+    expected = 3631e-23 / h_cgs * np.trapezoid(pb.photon_response_at(grid) / grid, grid)
+    got = counts.zero_point_rate(ideal, "g") / ideal.telescope.collecting_area_cm2
+    assert got == pytest.approx(expected, rel=1e-9)
