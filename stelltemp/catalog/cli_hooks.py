@@ -85,7 +85,8 @@ def run_cli(args, engine=None):
 
             summary = run_catalogue(args.input, args.output, chunk_rows=args.chunk_rows, **common)
     except StelltempError as exc:
-        print(f"stelltemp {COMMAND}: {exc}", file=sys.stderr)
+        text = str(exc).replace("(allow replacing it explicitly)", "(add --replace to replace it)")
+        print(f"stelltemp {COMMAND}: {text}", file=sys.stderr)
         return 2
     if args.json:
         print(summary.to_json())
