@@ -13,6 +13,12 @@ from . import ccd
 
 __all__ = ["plot_snr_curves", "plot_night"]
 
+#: more targets than this: names at the tracks instead of a legend
+LEGEND_LIMIT = 10
+#: track colours of our own (dark enough to read on the twilight shading)
+TRACK_COLOURS = ("#1b6ca8", "#c8553d", "#2a9d8f", "#8d5a97", "#e09f3e", "#3d405b",
+                 "#7a9e3c", "#b5838d", "#264653", "#9c6644")
+
 
 def _save(fig, path):
     from matplotlib.backends.backend_agg import FigureCanvasAgg
@@ -81,13 +87,29 @@ def plot_night(tracks, path, min_alt_deg=30.0):
     fig = Figure(figsize=(8, 4.8))
     ax = fig.add_subplot(111)
     sun = tracks["sun_alt"]
-    for level, shade in ((-0.833, 0.08), (-6.0, 0.15), (-12.0, 0.25), (-18.0, 0.35)):
-        ax.fill_between(hours, 0, 90, where=sun < level, color="navy", alpha=shade, lw=0)
-    for name, alt in zip(tracks["names"], tracks["alt"]):
-        ax.plot(hours, np.where(alt > 0, alt, np.nan), label=name)
+    # twilight shading in greys, light enough that the tracks stay readable
+    for level, shade in ((-0.833, 0.06), (-6.0, 0.08), (-12.0, 0.10), (-18.0, 0.12)):
+        ax.fill_between(hours, 0, 90, where=sun < level, color="#20304a", alpha=shade, lw=0)
+    names = list(tracks["names"])
+    many = len(names) > LEGEND_LIMIT
+    dark = sun < -18.0
+    for i, (name, alt) in enumerate(zip(names, tracks["alt"])):
+        colour = TRACK_COLOURS[i % len(TRACK_COLOURS)]
+        ax.plot(hours, np.where(alt > 0, alt, np.nan), color=colour, lw=0.9 if many else 1.4, label=name)
+        if many:
+            # many targets: name each track at its highest point in dark time instead of a legend
+            usable = np.where(dark & (alt > min_alt_deg), alt, -np.inf)
+            k = int(np.argmax(usable))
+            if np.isfinite(usable[k]):
+                ax.annotate(name, (hours[k], alt[k]), fontsize=6, color=colour, ha="center",
+                            va="bottom", xytext=(0, 1), textcoords="offset points")
     ax.axhline(min_alt_deg, color="k", ls=":", lw=0.8)
     ax.set_ylim(0, 90)
-    ax.set_xlim(hours[0], hours[-1])
+    night = np.nonzero(sun < 0)[0]
+    if night.size:  # from an hour before sunset to an hour after sunrise
+        ax.set_xlim(max(hours[0], hours[night[0]] - 1), min(hours[-1], hours[night[-1]] + 1))
+    else:
+        ax.set_xlim(hours[0], hours[-1])
     ax.set_xlabel(f"time (h UTC from {times[0].isot[:10]} 00:00)")
     ax.set_ylabel("altitude (deg)")
     ax2 = ax.twinx()
@@ -96,7 +118,7 @@ def plot_night(tracks, path, min_alt_deg=30.0):
     ax2.set_yticks(90.0 - np.degrees(np.arccos(1.0 / marks)))
     ax2.set_yticklabels([f"{m:g}" for m in marks])
     ax2.set_ylabel("airmass sec z (dimensionless)")
-    ax.set_title("Altitude through the night (shading: twilights, darkest = Sun below -18 deg)")
-    if tracks["names"]:
-        ax.legend(fontsize="small", loc="upper right")
+    ax.set_title("Altitude through the night (grey: twilights; darkest band: Sun below -18 deg)")
+    if names and not many:
+        ax.legend(fontsize="small", loc="upper left", bbox_to_anchor=(1.08, 1.0))
     return _save(fig, path)
