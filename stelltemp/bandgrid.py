@@ -115,16 +115,31 @@ class HermiteTable:
         lnt, ebv = np.broadcast_arrays(np.asarray(lnt, float), np.asarray(ebv, float))
         shape = lnt.shape
         k, t, s = self.cell(lnt.ravel(), ebv.ravel())
-        c = self.patches.reshape(-1, 4, 4)[k]  # (n, 4 powers of t, 4 powers of s)
-        s_ = s[:, None]
-        q = c[:, :, 0] + s_ * (c[:, :, 1] + s_ * (c[:, :, 2] + s_ * c[:, :, 3]))  # polynomial in t
-        value = q[:, 0] + t * (q[:, 1] + t * (q[:, 2] + t * q[:, 3]))
-        d_lnt = (q[:, 1] + t * (2 * q[:, 2] + 3 * t * q[:, 3])) / self.h_t
+        q, dq = self.cubics(k, s, want_de)
+        value, d_lnt = self.horner(q, t)
         d_e = None
         if want_de:
-            dq = c[:, :, 1] + s_ * (2 * c[:, :, 2] + 3 * s_ * c[:, :, 3])
-            d_e = ((dq[:, 0] + t * (dq[:, 1] + t * (dq[:, 2] + t * dq[:, 3]))) / self.h_e).reshape(shape)
+            d_e = (dq[:, 0] + t * (dq[:, 1] + t * (dq[:, 2] + t * dq[:, 3]))) / self.h_e
+            d_e = d_e.reshape(shape)
         return value.reshape(shape), d_lnt.reshape(shape), d_e
+
+    def cubics(self, k, s, want_de=False):
+        """Cubics in t of cells ``k`` at E coordinates ``s``: q (n, 4) and, if asked, ∂q/∂s.
+
+        With E fixed, a star's cubic changes only when its temperature moves
+        to another cell, so iterative solvers can keep q between steps.
+        """
+        c = self.patches.reshape(-1, 4, 4)[k]  # (n, 4 powers of t, 4 powers of s)
+        s_ = s[:, None]
+        q = c[:, :, 0] + s_ * (c[:, :, 1] + s_ * (c[:, :, 2] + s_ * c[:, :, 3]))
+        dq = c[:, :, 1] + s_ * (2 * c[:, :, 2] + 3 * s_ * c[:, :, 3]) if want_de else None
+        return q, dq
+
+    def horner(self, q, t):
+        """Value and ∂/∂lnT of cubics q (n, 4) at cell coordinates t."""
+        value = q[:, 0] + t * (q[:, 1] + t * (q[:, 2] + t * q[:, 3]))
+        d_lnt = (q[:, 1] + t * (2 * q[:, 2] + 3 * t * q[:, 3])) / self.h_t
+        return value, d_lnt
 
     def nodes(self):
         """(ln T nodes, E nodes) of the table."""

@@ -268,3 +268,9 @@ def test_derived_quantities_follow_the_laws():
 def test_blackbody_note_is_in_the_output():
     res = estimate({"jc.B": [1.0], "jc.V": [0.5]})
     assert "not an effective temperature" in res.meta["note"]
+
+
+@pytest.mark.parametrize("keys", [["jc.B", "jc.V"], FIVE])
+def test_empty_input_gives_an_empty_table(keys):
+    res = estimate({k: np.array([]) for k in keys})
+    assert len(res) == 0 and "t_bb" in res.colnames

@@ -158,7 +158,8 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, rv=DEFAULT_RV, law=DEFAUL
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         derived = derived_quantities(t, np.where(np.isfinite(lnt_err), lnt_err, np.nan), theta,
                                      lntheta_err, cov_t_theta, plx, plx_err)
-        cal = _calibrated(m, e, keys, t, core["ebv"], ebv_err, feh, logg, law, rv, n)
+        terms = _reddening_terms(keys, t, core["ebv"], law, rv, core.get("model"), core.get("model_de"))
+        cal = _calibrated(m, e, keys, ebv_err, feh, logg, terms, n)
     flags |= cal.flags & ~fl.BAD_INPUT
 
     table = QTable()
@@ -258,7 +259,7 @@ def _by_fit(m, e, keys, ebv, ebv_err, fit_ebv, law, rv):
             "cov_lnt_a": res["cov_lnt_a"], "ebv": res["ebv"],
             "ebv_err": res["ebv_err"] if fit_ebv else ebv_err,
             "n_bands": res["n_bands"], "chi2": res["chi2"], "dof": res["dof"],
-            "p_value": res["p_value"], "flags": flags}
+            "p_value": res["p_value"], "model": res["model"], "model_de": res["model_de"], "flags": flags}
 
 
 def _monte_carlo_interval(m, e, keys, ebv, ebv_err, fit_ebv, use_colour, law, rv, samples, seed):
@@ -283,25 +284,44 @@ def _monte_carlo_interval(m, e, keys, ebv, ebv_err, fit_ebv, use_colour, law, rv
     return lo, hi
 
 
-def _calibrated(m, e, keys, t_bb, ebv, ebv_err, feh, logg, law, rv, n):
+def _reddening_terms(keys, t_bb, ebv, law, rv, model=None, model_de=None):
+    """Per band: the excess M(T, E) − M(T, 0) of a blackbody at the star's T_bb, and ∂M/∂E.
+
+    ``model``/``model_de`` (n, n_bands), when the fit already has M(T, E) and
+    ∂M/∂E at the solution, save evaluating them again.
+    """
+    n = len(t_bb)
+    lnt = np.log(np.where(np.isfinite(t_bb), t_bb, 5800.0))
+    e_used = np.where(np.isfinite(ebv), ebv, 0.0)
+    terms = {}
+    for b, key in enumerate(keys):
+        table = bg.band_table(key, law, rv)
+        if model is None:
+            reddened, _, slope_e = table.evaluate(lnt, e_used)
+        else:
+            reddened, slope_e = model[:, b], model_de[:, b]
+        intrinsic, _, _ = table.evaluate(lnt, np.zeros(n), want_de=False)
+        terms[key] = (reddened - intrinsic, slope_e)
+    return terms
+
+
+def _calibrated(m, e, keys, ebv_err, feh, logg, terms, n):
     """Empirical T_eff from every calibrated colour available, dereddened through the passbands.
 
     The colour excess of each pair is that of a blackbody at the star's
-    colour temperature, reddened by the law: C(T, E) − C(T, 0).
+    colour temperature, reddened by the law: C(T, E) − C(T, 0) (``terms``
+    from :func:`_reddening_terms`).
     """
     colours, errors = {}, {}
-    lnt = np.log(np.where(np.isfinite(t_bb), t_bb, 5800.0))
-    e_used = np.where(np.isfinite(ebv), ebv, 0.0)
     index = {k: i for i, k in enumerate(keys)}
     for rel in relations():
         blue, red = rel.bands
         if blue not in index or red not in index or (blue, red) in colours:
             continue
         b, r = index[blue], index[red]
-        table = bg.colour_table(blue, red, law, rv)
-        reddened, _, slope_e = table.evaluate(lnt, e_used)
-        intrinsic, _, _ = table.evaluate(lnt, np.zeros(n), want_de=False)
-        colours[(blue, red)] = m[:, b] - m[:, r] - (reddened - intrinsic)
+        excess = terms[blue][0] - terms[red][0]
+        slope_e = terms[blue][1] - terms[red][1]
+        colours[(blue, red)] = m[:, b] - m[:, r] - excess
         errors[(blue, red)] = np.hypot(np.hypot(e[:, b], e[:, r]), slope_e * ebv_err)
     if not colours:
         return SimpleNamespace(teff=np.full(n, np.nan), teff_err=np.full(n, np.nan),

@@ -59,6 +59,29 @@ def _start(mags, weights, keys, ebv, law, rv):
     return lnt
 
 
+def _inverse_symmetric(a):
+    """Inverses of a stack of symmetric 2×2 or 3×3 matrices by cofactors (NaN where singular)."""
+    if a.shape[-1] == 2:
+        det = a[:, 0, 0] * a[:, 1, 1] - a[:, 0, 1] ** 2
+        inv = np.empty_like(a)
+        inv[:, 0, 0], inv[:, 1, 1] = a[:, 1, 1], a[:, 0, 0]
+        inv[:, 0, 1] = inv[:, 1, 0] = -a[:, 0, 1]
+    else:
+        cof = np.empty_like(a)
+        for i in range(3):
+            for j in range(3):
+                r = [x for x in range(3) if x != i]
+                c = [x for x in range(3) if x != j]
+                minor = a[:, r[0], c[0]] * a[:, r[1], c[1]] - a[:, r[0], c[1]] * a[:, r[1], c[0]]
+                cof[:, j, i] = (-1) ** (i + j) * minor
+        det = np.einsum("nj,nj->n", a[:, 0, :], cof[:, :, 0])
+        inv = cof
+    with np.errstate(divide="ignore", invalid="ignore"):
+        singular = ~(np.abs(det) > 1e-300)
+        inv = inv / np.where(singular, np.nan, det)[:, None, None]
+    return inv
+
+
 def fit_blackbody(mags, errs, keys, ebv=0.0, ebv_err=np.inf, fit_ebv=False,
                   law=DEFAULT_LAW, rv=DEFAULT_RV):
     """Fit T, θ (and E(B−V)) to magnitudes in several bands, star by star.
@@ -109,15 +132,26 @@ def fit_blackbody(mags, errs, keys, ebv=0.0, ebv_err=np.inf, fit_ebv=False,
     e = ebv0.copy()
     lnt_lo, lnt_hi = np.log(bg.T_MIN), np.log(bg.T_MAX)
 
+    # With E(B−V) fixed, each star's cubic in a table cell is kept between
+    # iterations and rebuilt only when its temperature changes cell.
+    cached_cell = np.full((nb, n), -1, np.intp)
+    cached_q = np.zeros((nb, n, 4))
+
     def model_rows(rows, lnt_rows, e_rows, want_de):
         k = len(rows)
         mod = np.empty((k, nb))
         d_t = np.empty((k, nb))
         d_e = np.empty((k, nb)) if want_de else None
         for b, tab in enumerate(tables):
-            mod[:, b], d_t[:, b], de = tab.evaluate(lnt_rows, e_rows, want_de=want_de)
             if want_de:
-                d_e[:, b] = de
+                mod[:, b], d_t[:, b], d_e[:, b] = tab.evaluate(lnt_rows, e_rows, want_de=True)
+                continue
+            cell, t, s = tab.cell(lnt_rows, e_rows)
+            stale = np.nonzero(cached_cell[b, rows] != cell)[0]
+            if stale.size:
+                cached_q[b, rows[stale]] = tab.cubics(cell[stale], s[stale])[0]
+                cached_cell[b, rows[stale]] = cell[stale]
+            mod[:, b], d_t[:, b] = tab.horner(cached_q[b, rows], t)
         return mod, d_t, d_e
 
     def profile_a(mod):
@@ -194,11 +228,8 @@ def fit_blackbody(mags, errs, keys, ebv=0.0, ebv_err=np.inf, fit_ebv=False,
     if fit_ebv:
         normal[:, 2, 2] += prior_w
     normal[too_few] = np.eye(n_par)
-    with np.errstate(invalid="ignore"):
-        singular = np.abs(np.linalg.det(normal)) < 1e-300
-        normal[singular] = np.eye(n_par)
-        cov = np.linalg.inv(normal)
-        cov[singular | too_few] = np.nan
+    cov = _inverse_symmetric(normal)
+    cov[too_few] = np.nan
     # with E(B−V) fixed: how the best ln T moves per unit E, −[N⁻¹ Jᵀ W ∂M/∂E]_lnT
     dlnt_de = -np.einsum("np,nbp,nb->n", cov[:, 0, :], jac * w[..., None], d_e) if not fit_ebv else np.zeros(n)
     dof = n_bands - n_par + (1 if fit_ebv else 0) * (prior_w > 0)
@@ -218,6 +249,8 @@ def fit_blackbody(mags, errs, keys, ebv=0.0, ebv_err=np.inf, fit_ebv=False,
         "ebv_err": np.sqrt(cov[:, 2, 2]) if fit_ebv else np.zeros(n),
         "cov_lnt_e": cov[:, 0, 2] if fit_ebv else np.zeros(n),
         "dlnt_de": dlnt_de,
+        "model": mod,  # M_k(T, E) of each band at the solution (without the offset a)
+        "model_de": d_e,  # ∂M_k/∂E there
         "chi2": np.where(nan, np.nan, current),
         "dof": np.where(nan, 0, dof),
         "p_value": np.where(nan, np.nan, p_value),
