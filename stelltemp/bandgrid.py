@@ -100,9 +100,10 @@ class HermiteTable:
         nt, ne = self.shape
         u = (lnt - self.lnt0) / self.h_t
         v = (ebv - self.e0) / self.h_e
-        # NaN inputs map to cell 0 and still give NaN results through t or s
-        i = np.clip(np.floor(np.nan_to_num(u)), 0, nt - 2).astype(np.intp)
-        j = np.clip(np.floor(np.nan_to_num(v)), 0, ne - 2).astype(np.intp)
+        # fmax/fmin map NaN to the bound (cell 0), and NaN still reaches the
+        # results through t or s; truncating a value ≥ 0 is its floor
+        i = np.fmin(np.fmax(u, 0.0), nt - 2).astype(np.intp)
+        j = np.fmin(np.fmax(v, 0.0), ne - 2).astype(np.intp)
         return i * (ne - 1) + j, u - i, v - j
 
     def evaluate(self, lnt, ebv, want_de=True):
