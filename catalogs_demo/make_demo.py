@@ -1,7 +1,7 @@
 """Generate the invented demo scenario: one night of multi-band photometry.
 
-EVERY VALUE THIS SCRIPT WRITES IS INVENTED.  The scenario: the Hillside
-teaching observatory (invented; the site of ``instruments/hillside_04m_ccd.toml``)
+EVERY VALUE THIS SCRIPT WRITES IS INVENTED.  The scenario: the Quillmere
+teaching observatory (invented; the site of ``instruments/quillmere_04m_ccd.toml``)
 plans the night of ``DATE`` for 40 field stars and the 20 members of a
 compact cluster we call the "Lantern cluster" (invented).  No real
 observatory, person, star or catalogue is described.
@@ -59,7 +59,7 @@ from stelltemp.bandgrid import blackbody_mag  # noqa: E402
 SEED = 20261108
 #: local date of the evening (a night near new Moon at the invented site)
 DATE = "2026-11-08"
-INSTRUMENT = HERE / "instruments" / "hillside_04m_ccd.toml"
+INSTRUMENT = HERE / "instruments" / "quillmere_04m_ccd.toml"
 LAW, RV = "G23", 3.1
 
 OPTICAL = ["jc.B", "jc.V", "jc.Rc", "jc.Ic"]
@@ -257,7 +257,7 @@ def write_scenario(path):
     path.write_text(
         "# INVENTED demo scenario for stelltemp: every value is invented (see README.md).\n"
         "# Written by make_demo.py; read by `stelltemp tour`.\n"
-        'title = "Hillside teaching observatory (invented): one night of multi-band photometry"\n'
+        'title = "Quillmere teaching observatory (invented): one night of multi-band photometry"\n'
         f'date = "{DATE}"                 # local date of the evening\n'
         f'instrument = "instruments/{INSTRUMENT.name}"\n'
         'targets = "targets.csv"\n'

@@ -55,7 +55,7 @@ def ideal():
 
 @pytest.fixture(scope="module")
 def rig():
-    return load_instrument(DEMO / "hillside_04m_ccd.toml")
+    return load_instrument(DEMO / "quillmere_04m_ccd.toml")
 
 
 def test_ideal_system_equals_core_photon_flux(ideal):
@@ -108,7 +108,7 @@ def test_area_obstruction_and_extinction(rig):
     r2 = counts.star_electron_rate(rig, "V", 12.0, airmass=2.0)
     assert r2 / r1 == pytest.approx(10 ** (-0.4 * 0.18))  # 10^(-0.4 k dX), k = 0.18 in the demo file
     assert counts.star_electron_rate(rig, "V", 13.0, airmass=1.0) / r1 == pytest.approx(10**-0.4)
-    text = (DEMO / "hillside_04m_ccd.toml").read_text().replace("obstruction_m = 0.16", "obstruction_m = 0.0")
+    text = (DEMO / "quillmere_04m_ccd.toml").read_text().replace("obstruction_m = 0.16", "obstruction_m = 0.0")
     open_tube = parse_instrument(text)
     ratio = counts.star_electron_rate(open_tube, "V", 12.0) / r1
     assert ratio == pytest.approx(0.40**2 / (0.40**2 - 0.16**2))

@@ -57,13 +57,13 @@ def _line_of(text, needle):
 
 
 def test_demo_files_load():
-    for name in ("hillside_04m_ccd.toml", "hillside_028m_cmos.toml"):
+    for name in ("quillmere_04m_ccd.toml", "quillmere_028m_cmos.toml"):
         ins = load_instrument(DEMO / name)
         assert "nvented" in ins.title
         assert ins.filters and ins.site.seeing_fwhm_arcsec > 0
         for spec in ins.filters.values():
             assert spec.passband.wave.size > 2
-    cmos = load_instrument(DEMO / "hillside_028m_cmos.toml")
+    cmos = load_instrument(DEMO / "quillmere_028m_cmos.toml")
     assert cmos.camera.saturation_adu == 4095  # 12-bit ADC: 2**12 - 1
     assert cmos.camera.binning == 2
     assert cmos.camera.qe(5500.0) == pytest.approx(0.83)  # value in the invented curve file

@@ -16,7 +16,7 @@ from stelltemp.observing.cli_hooks import add_cli, run_cli
 from stelltemp.observing.instrument import load_instrument
 
 DEMO = Path(__file__).resolve().parents[1] / "catalogs_demo" / "instruments"
-CCD_FILE = DEMO / "hillside_04m_ccd.toml"
+CCD_FILE = DEMO / "quillmere_04m_ccd.toml"
 
 
 @pytest.fixture(scope="module")
@@ -115,7 +115,7 @@ def test_cli_nightplan(target_file, tmp_path):
 
 def test_cli_exposure_text_plot_and_sun(tmp_path):
     p = _parser()
-    args = p.parse_args(["exposure", "--instrument", str(DEMO / "hillside_028m_cmos.toml"), "--mag", "6",
+    args = p.parse_args(["exposure", "--instrument", str(DEMO / "quillmere_028m_cmos.toml"), "--mag", "6",
                          "--band", "jc.V", "--teff", "3500", "--snr", "300", "--plot", str(tmp_path / "snr.png")])
     out, err = io.StringIO(), io.StringIO()
     assert run_cli(args, out, err) == 0
