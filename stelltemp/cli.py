@@ -4,12 +4,17 @@ A thin layer over the Python API.  Every subcommand takes ``--json``; bad
 input prints one line, ``stelltemp: error: …``, on stderr and exits with
 code 2 (never a traceback).
 
-Subcommands (core; others are registered by their own modules):
+Subcommands:
 
 ``passbands``   list the built-in passbands and their properties
 ``blackbody``   Planck, Wien and Stefan–Boltzmann quantities for a temperature
 ``colourgrid``  synthetic magnitudes and colours of blackbodies over temperatures
 ``star``        temperature of one star from magnitudes typed on the command line
+``relations``   empirical colour–T_eff relations (:mod:`stelltemp.calibrations`)
+``catalogue``   temperatures for every row of a table file (:mod:`stelltemp.catalog`)
+``exposure``    counts, S/N and exposure time for one star (:mod:`stelltemp.observing`)
+``nightplan``   windows and exposures for a target list in one night
+``tour``        the whole job once on the invented demo data (:mod:`stelltemp.tour`)
 """
 
 import argparse
@@ -349,19 +354,14 @@ def build_parser():
 
 def _register_module_commands(sub):
     """Subcommands that live beside their own modules."""
-    from . import calibrations
+    from . import calibrations, tour
     from .catalog import cli_hooks as catalogue_cli
     from .observing import cli_hooks as observing_cli
 
     calibrations.add_cli(sub)
     catalogue_cli.add_cli(sub)
     observing_cli.add_cli(sub)
-    try:
-        from . import tour
-    except ImportError:  # the tour module is optional while it is being written
-        tour = None
-    if tour is not None:
-        tour.add_cli(sub)
+    tour.add_cli(sub)
 
 
 def main(argv=None):

@@ -6,7 +6,8 @@ a mask into the comma-separated names used in tables and reports.
 
 import numpy as np
 
-#: no bands, or fewer usable bands than the method needs (NaN, inf, non-numeric)
+#: a value was missing, non-numeric or infinite and was set aside (a catalogue run's
+#: ``input_notes`` say which); with fewer usable bands than the method needs there is no result
 BAD_INPUT = 1 << 0
 #: the colour is bluer than a blackbody of any finite temperature (no solution)
 NO_SOLUTION = 1 << 1

@@ -311,7 +311,8 @@ def read_targets(path):
     if not p.is_file():
         raise StelltempError(f"target list not found: {p}")
     try:
-        t = Table.read(p, format=fmt)
+        # CSV: '#' lines are comments, as in the catalogue reader
+        t = Table.read(p, format=fmt) if fmt == "ascii.ecsv" else Table.read(p, format=fmt, comment="#")
     except Exception as exc:  # astropy raises many types for malformed tables
         raise StelltempError(f"cannot read target list {p.name}: {str(exc).splitlines()[0]}") from None
     return parse_targets(t)
