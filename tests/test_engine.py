@@ -274,3 +274,25 @@ def test_blackbody_note_is_in_the_output():
 def test_empty_input_gives_an_empty_table(keys):
     res = estimate({k: np.array([]) for k in keys})
     assert len(res) == 0 and "t_bb" in res.colnames
+
+
+def test_quantities_are_accepted_at_the_edge():
+    mags = synth(FIVE, [5772.0], [0.0], theta_mas=[1.0])
+    plain = estimate(mags, parallax=100.0, parallax_err=1.0)
+    quant = estimate({k: v * u.mag for k, v in mags.items()}, ebv=0.0 * u.mag,
+                     parallax=0.1 * u.arcsec, parallax_err=1.0 * u.mas)
+    assert quant["radius"][0].value == pytest.approx(plain["radius"][0].value, rel=1e-12)
+    with pytest.raises(StelltempError, match="parallax"):
+        estimate(mags, parallax=3 * u.K)
+
+
+def test_astropy_tables_go_through_the_catalogue_layer():
+    from astropy.table import Table
+
+    from stelltemp.catalog import estimate_table
+
+    mags = synth(["jc.B", "jc.V", "2mass.Ks"], [4500.0, 9000.0], [0.1, 0.1])
+    table = Table({**{k: v for k, v in mags.items()}, "ebv": [0.1, 0.1]})
+    out = estimate_table(table)
+    assert np.allclose(out["t_bb"], [4500.0, 9000.0], rtol=1e-6)
+    assert "jc.B" in out.colnames  # input columns kept

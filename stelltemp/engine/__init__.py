@@ -40,9 +40,15 @@ ABSURD_MAG = 40.0
 DEFAULT_MAG_ERR = 0.03
 
 
-def _column(values, n, name, default=None):
+def _column(values, n, name, default=None, unit=u.mag):
+    """A per-star input as a float array of length n (Quantities converted to ``unit``)."""
     if values is None:
         return None if default is None else np.full(n, float(default))
+    if isinstance(values, u.Quantity):
+        try:
+            values = values.to_value(unit)
+        except u.UnitConversionError:
+            raise StelltempError(f"{name} must be in units convertible to {unit}, got {values.unit}") from None
     try:
         arr = np.asarray(values, dtype=float)
     except (TypeError, ValueError):
@@ -78,7 +84,9 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, rv=DEFAULT_RV, law=DEFAUL
     ----------
     mags : dict
         Passband key (``'jc.B'``, ``'2mass.Ks'``, …) → magnitudes (array over
-        stars; NaN = not measured).  Two bands at least.
+        stars, plain or a Quantity in mag; NaN = not measured).  Two bands at
+        least.  For an astropy Table with catalogue column names use
+        :func:`stelltemp.catalog.estimate_table`.
     errs : dict, optional
         Same keys → 1σ magnitude errors (missing or NaN: 0.03 mag).
     ebv, ebv_err : float or array
@@ -89,8 +97,8 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, rv=DEFAULT_RV, law=DEFAUL
         Extinction law: G23 (default), F99, F19, CCM89, O94.
     fit_ebv : bool
         Fit E(B−V) too (three or more bands; ``ebv``/``ebv_err`` act as a prior).
-    parallax, parallax_err : float or array, optional
-        Parallax and error in mas, for radius and luminosity.
+    parallax, parallax_err : float, array or Quantity, optional
+        Parallax and error (plain numbers in mas), for radius and luminosity.
     feh, logg : float or array, optional
         [Fe/H] and log g for the empirical calibrations.
     method : {'auto', 'colour', 'fit'}
@@ -153,8 +161,8 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, rv=DEFAULT_RV, law=DEFAUL
     lnt_err = np.log(core["t_hi"] / core["t_lo"]) / 2
     lntheta_err = 0.2 * np.log(10) * core["a_err"]  # θ ∝ 10^(−0.2 a)
     cov_t_theta = -0.2 * np.log(10) * core["cov_lnt_a"]
-    plx = _column(parallax, n, "parallax")
-    plx_err = _column(parallax_err, n, "parallax error", 0.0)
+    plx = _column(parallax, n, "parallax", unit=u.mas)
+    plx_err = _column(parallax_err, n, "parallax error", 0.0, unit=u.mas)
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         derived = derived_quantities(t, np.where(np.isfinite(lnt_err), lnt_err, np.nan), theta,
                                      lntheta_err, cov_t_theta, plx, plx_err)
@@ -326,6 +334,6 @@ def _calibrated(m, e, keys, ebv_err, feh, logg, terms, n):
     if not colours:
         return SimpleNamespace(teff=np.full(n, np.nan), teff_err=np.full(n, np.nan),
                                n_used=np.zeros(n, int), flags=np.full(n, fl.NO_CALIBRATION, np.int64))
-    feh = None if feh is None else _column(feh, n, "[Fe/H]")
-    logg = None if logg is None else _column(logg, n, "log g")
+    feh = None if feh is None else _column(feh, n, "[Fe/H]", unit=u.dex)
+    logg = None if logg is None else _column(logg, n, "log g", unit=u.dex(u.cm / u.s**2))
     return combine_teff(colours, errors, feh=feh, logg=logg)
