@@ -28,6 +28,7 @@ from astropy import units as u
 
 from . import __version__
 from .errors import StelltempError
+from .jsonable import json_ready
 
 EXIT_BAD_INPUT = 2
 
@@ -39,24 +40,9 @@ class _Parser(argparse.ArgumentParser):
         self.exit(EXIT_BAD_INPUT, f"stelltemp: error: {message} (see `{self.prog} --help`)\n")
 
 
-def _json_ready(value):
-    """Plain Python for json.dumps: numpy scalars and arrays, NaN/inf as None."""
-    if isinstance(value, dict):
-        return {k: _json_ready(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [_json_ready(v) for v in value]
-    if isinstance(value, np.ndarray):
-        return [_json_ready(v) for v in value.tolist()]
-    if isinstance(value, np.generic):
-        value = value.item()
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    return value
-
-
 def emit_json(obj, stream=None):
     """Print an object as JSON (NaN and inf become null)."""
-    print(json.dumps(_json_ready(obj), indent=2, ensure_ascii=False), file=stream or sys.stdout)
+    print(json.dumps(json_ready(obj), indent=2, ensure_ascii=False), file=stream or sys.stdout)
 
 
 def parse_temperature(text, unit="K"):

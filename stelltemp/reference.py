@@ -39,22 +39,23 @@ def _read_sedpy_spectrum(name):
     return wave[keep], flux[keep]
 
 
+def _frozen(name):
+    w, f = _read_sedpy_spectrum(name)
+    w.flags.writeable = False  # cached and shared: nobody may change them
+    f.flags.writeable = False
+    return w, f
+
+
 @lru_cache(maxsize=1)
 def vega_spectrum():
     """CALSPEC Vega spectrum: (wavelength Å, F_λ erg s⁻¹ cm⁻² Å⁻¹), read-only arrays."""
-    w, f = _read_sedpy_spectrum("alpha_lyr_stis_011.fits")
-    w.flags.writeable = False
-    f.flags.writeable = False
-    return w, f
+    return _frozen("alpha_lyr_stis_011.fits")
 
 
 @lru_cache(maxsize=1)
 def sun_spectrum():
-    """Kurucz (1993) solar model at 1 AU: (wavelength Å, F_λ erg s⁻¹ cm⁻² Å⁻¹)."""
-    w, f = _read_sedpy_spectrum("sun_kurucz93.fits")
-    w.flags.writeable = False
-    f.flags.writeable = False
-    return w, f
+    """Kurucz (1993) solar model at 1 AU: (wavelength Å, F_λ erg s⁻¹ cm⁻² Å⁻¹), read-only arrays."""
+    return _frozen("sun_kurucz93.fits")
 
 
 def ab_flam(wave_angstrom):

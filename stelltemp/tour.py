@@ -35,6 +35,7 @@ from pathlib import Path
 import numpy as np
 
 from .errors import StelltempError
+from .jsonable import json_ready
 
 __all__ = ["add_cli", "run_cli", "run_tour", "find_demo_dir", "load_scenario", "DEMO_DIRNAME", "SCENARIO_FILE"]
 
@@ -349,24 +350,11 @@ def run_tour(out_dir=DEFAULT_OUT, *, replace=False, demo_dir=None, quiet=False, 
     }
     files["summary"] = str(out / "summary.json")
     summary["files"]["summary"] = files["summary"]
-    Path(files["summary"]).write_text(json.dumps(_plain(summary), indent=1, ensure_ascii=False) + "\n",
+    Path(files["summary"]).write_text(json.dumps(json_ready(summary), indent=1, ensure_ascii=False) + "\n",
                                       encoding="utf-8")
     if not quiet:
         print_summary(summary, stream or sys.stdout)
     return summary
-
-
-def _plain(value):
-    """JSON-ready copy: numpy scalars to Python, NaN/inf to None."""
-    if isinstance(value, dict):
-        return {k: _plain(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [_plain(v) for v in value]
-    if isinstance(value, np.generic):
-        value = value.item()
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    return value
 
 
 _FILE_NOTES = {
@@ -437,5 +425,5 @@ def run_cli(args) -> int:
     """Run the tour from parsed arguments; 0 on success (errors raise StelltempError)."""
     summary = run_tour(args.out, replace=args.replace, quiet=args.quiet or args.json)
     if args.json:
-        print(json.dumps(_plain(summary), indent=2, ensure_ascii=False))
+        print(json.dumps(json_ready(summary), indent=2, ensure_ascii=False))
     return 0

@@ -11,7 +11,6 @@ from scipy.optimize import brentq
 from stelltemp import bandgrid as bg
 from stelltemp.engine import estimate, flags as fl
 from stelltemp.engine.colour import colour_interval, invert_colour, rayleigh_jeans_colour
-from stelltemp.engine.fit import fit_blackbody
 from stelltemp.errors import StelltempError
 from stelltemp.photometry import synthetic_mag
 from stelltemp.reference import sun_spectrum, vega_spectrum

@@ -18,6 +18,7 @@ import sys
 import numpy as np
 
 from ..errors import StelltempError
+from ..jsonable import json_ready
 
 __all__ = ["add_cli", "run_cli", "table_to_jsonable"]
 
@@ -76,26 +77,11 @@ def add_cli(subparsers):
     return subparsers
 
 
-def _jsonable(v):
-    if isinstance(v, (np.floating, float)):
-        f = float(v)
-        return f if math.isfinite(f) else None
-    if isinstance(v, np.integer):
-        return int(v)
-    if isinstance(v, np.str_):
-        return str(v)
-    if isinstance(v, dict):
-        return {k: _jsonable(x) for k, x in v.items()}
-    if isinstance(v, (list, tuple)):
-        return [_jsonable(x) for x in v]
-    return v
-
-
 def table_to_jsonable(table):
     """A planning table as {"meta", "units", "rows"} with NaN → null."""
     units = {c: (str(table[c].unit) if table[c].unit is not None else None) for c in table.colnames}
-    rows = [{c: _jsonable(row[c]) for c in table.colnames} for row in table]
-    return {"meta": _jsonable(dict(table.meta)), "units": units, "rows": rows}
+    rows = [{c: json_ready(row[c]) for c in table.colnames} for row in table]
+    return {"meta": json_ready(dict(table.meta)), "units": units, "rows": rows}
 
 
 def _print_text(table, which, out):
@@ -188,7 +174,7 @@ def _save_table(table, path):
     if fmt == "ascii.csv":
         out.meta = {}
     else:
-        out.meta = _jsonable(dict(out.meta))
+        out.meta = json_ready(dict(out.meta))
     try:
         out.write(path, format=fmt, overwrite=True)
     except OSError as exc:
