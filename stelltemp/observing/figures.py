@@ -48,13 +48,13 @@ def plot_snr_curves(table, path, t_min=0.01, t_max=None):
     limits = [float(r["nonlinear_after"]) for r in table if np.isfinite(r["nonlinear_after"])]
     t_hi = t_max or max([600.0] + [3 * v for v in limits if v < 1e5])
     t = np.logspace(np.log10(t_min), np.log10(t_hi), 200)
-    for row in table:
+    for i, row in enumerate(table):
         if not np.isfinite(row["aperture_rate"]) or row["aperture_rate"] <= 0:
             continue
         s_n = ccd.snr(t, row["aperture_rate"], row["sky_rate"], row["dark_rate"], table.meta["read_noise_e"],
                       row["n_pix"], row["n_background"], table.meta["gain_e_per_adu"], ccd.SIGMA_F_ADU,
                       row["scintillation_1s"])
-        line, = ax.loglog(t, s_n, label=str(row["filter"]))
+        line, = ax.loglog(t, s_n, label=str(row["filter"]), color=TRACK_COLOURS[i % len(TRACK_COLOURS)])
         lim = float(row["nonlinear_after"])
         if np.isfinite(lim) and t[0] < lim < t[-1]:
             ax.axvline(lim, color=line.get_color(), ls="--", lw=1)
