@@ -199,9 +199,8 @@ def band_table(passband, law=DEFAULT_LAW, rv=DEFAULT_RV):
     """The Hermite table of blackbody magnitudes through one passband (cached)."""
     check_law(law, rv)
     band = get_passband(passband)
-    if band.system == "user":
-        return _band_table.__wrapped__(band, law, float(rv))
-    return _band_table(band.key, law, float(rv))
+    # user curves are cached by object (a file read again is a new curve), built-ins by key
+    return _band_table(band if band.system == "user" else band.key, law, float(rv))
 
 
 def colour_table(blue, red, law=DEFAULT_LAW, rv=DEFAULT_RV):

@@ -243,7 +243,8 @@ def _fmt(q, digits=4):
 def _cmd_star(args):
     typed = [parse_magnitude(x) for x in args.mag]
     row, meta, table = star_result(
-        typed, ebv=args.ebv, ebv_err=args.ebv_err, rv=args.rv, law=args.law, fit_ebv=args.fit_ebv,
+        typed, ebv=args.ebv, ebv_err=args.ebv_err, av=args.av, av_err=args.av_err, rv=args.rv, law=args.law,
+        fit_ebv=args.fit_ebv,
         parallax=args.parallax, parallax_err=args.parallax_err, feh=args.feh, logg=args.logg,
         method=args.method, monte_carlo=args.monte_carlo, seed=args.seed)
     if args.plot:
@@ -320,6 +321,8 @@ def build_parser():
                    help="a magnitude, e.g. --mag jc.B=10.65,0.01 (repeat for each band)")
     _add_reddening_options(p)
     p.add_argument("--ebv-err", type=float, default=0.0, help="1-sigma error of E(B-V), mag")
+    p.add_argument("--av", type=float, help="A_V, mag, instead of --ebv (E(B-V) = A_V / R_V)")
+    p.add_argument("--av-err", type=float, help="1-sigma error of A_V, mag")
     p.add_argument("--fit-ebv", action="store_true", help="fit E(B-V) too (3+ bands; --ebv/--ebv-err as prior)")
     p.add_argument("--parallax", type=float, help="parallax, mas (for radius and luminosity)")
     p.add_argument("--parallax-err", type=float, help="parallax error, mas")

@@ -257,6 +257,8 @@ def get_passband(key_or_path, **file_options):
     text = str(key_or_path)
     if text in set(builtin_keys()):
         return _builtin(text)
+    if text in _USER_BANDS:
+        return _USER_BANDS[text]
     if Path(text).suffix.lower() in (".ecsv", ".csv", ".txt", ".dat") or Path(text).exists():
         return load_passband_file(text, **file_options)
     return _builtin(text)  # raises with a helpful message
@@ -274,6 +276,12 @@ def _parse_wave_unit(text, origin):
     except (ValueError, u.UnitConversionError, TypeError):
         raise StelltempError(f"{origin}: unknown wavelength unit {text!r} (use Angstrom, nm or micron)") from None
     return unit
+
+
+#: user passbands read in this session: key -> Passband, so that the key
+#: ("file:<stem>") can stand for the curve afterwards, as built-in keys do;
+#: a later file with the same name takes the key over
+_USER_BANDS = {}
 
 
 def load_passband_file(path, wave_unit=None, detector="photon", magsys="AB", key=None, vega_mag=0.0):
@@ -350,7 +358,7 @@ def load_passband_file(path, wave_unit=None, detector="photon", magsys="AB", key
         raise StelltempError(f"{origin}: wavelength unit unknown; give it in the file or as wave_unit")
     wave = (wave * unit).to_value(u.AA)
     wave, resp = _checked_curve(wave, resp, origin)
-    return Passband(
+    band = Passband(
         key=key or f"file:{path.stem}",
         system="user",
         band=path.stem,
@@ -361,6 +369,8 @@ def load_passband_file(path, wave_unit=None, detector="photon", magsys="AB", key
         vega_mag=float(vega_mag) if magsys == "Vega" else float("nan"),
         citation=f"user file {path.name}",
     )
+    _USER_BANDS[band.key] = band
+    return band
 
 
 def _pick_columns(tab, origin):

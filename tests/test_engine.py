@@ -295,3 +295,29 @@ def test_astropy_tables_go_through_the_catalogue_layer():
     out = estimate_table(table)
     assert np.allclose(out["t_bb"], [4500.0, 9000.0], rtol=1e-6)
     assert "jc.B" in out.colnames  # input columns kept
+
+
+def test_av_is_converted_with_rv():
+    mags = synth(["jc.B", "jc.V"], [7000.0], [0.4])
+    by_ebv = estimate(mags, ebv=0.4, ebv_err=0.02, rv=3.1)
+    by_av = estimate(mags, av=1.24, av_err=0.062, rv=3.1)
+    assert by_av["t_bb"][0].value == pytest.approx(by_ebv["t_bb"][0].value, rel=1e-10)
+    assert by_av["ebv_used_err"][0].value == pytest.approx(0.02)
+    with pytest.raises(StelltempError, match="not both"):
+        estimate(mags, ebv=0.4, av=1.24)
+
+
+def test_a_user_passband_file_works_like_a_built_in(tmp_path):
+    # an invented Gaussian filter, AB system, photon-counting
+    w = np.arange(4000.0, 7001.0, 50.0)
+    np.savetxt(tmp_path / "demo_filter.txt", np.c_[w, np.exp(-0.5 * ((w - 5500) / 400) ** 2)],
+               header="unit: Angstrom")
+    user = str(tmp_path / "demo_filter.txt")
+    lam = np.linspace(900.0, 40000.0, 40000)
+    from stelltemp.planck import planck_lambda_cgs
+
+    flam = planck_lambda_cgs(6500.0, lam) * 1e-20
+    mags = {k: [float(synthetic_mag(lam, flam, k))] for k in ("jc.B", user, "2mass.Ks")}
+    res = estimate(mags, {k: [0.01] for k in mags})
+    assert res["t_bb"][0].value == pytest.approx(6500.0, rel=1e-4)
+    assert "file:demo_filter" in res.meta["passbands"]

@@ -75,8 +75,8 @@ def _clean_photometry(mags, errs, keys, n):
     return m, e, flags
 
 
-def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, rv=DEFAULT_RV, law=DEFAULT_LAW,
-             fit_ebv=False, parallax=None, parallax_err=None, feh=None, logg=None,
+def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=DEFAULT_RV,
+             law=DEFAULT_LAW, fit_ebv=False, parallax=None, parallax_err=None, feh=None, logg=None,
              method="auto", monte_carlo=0, seed=None):
     """Temperatures, errors, flags and derived quantities for many stars.
 
@@ -91,6 +91,8 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, rv=DEFAULT_RV, law=DEFAUL
         Same keys → 1σ magnitude errors (missing or NaN: 0.03 mag).
     ebv, ebv_err : float or array
         E(B−V) (nominal, of the law) and its 1σ error, mag.
+    av, av_err : float or array, optional
+        A_V and its error instead of E(B−V): E(B−V) = A_V / R_V.
     rv : float
         R_V (default 3.1).
     law : str
@@ -124,6 +126,8 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, rv=DEFAULT_RV, law=DEFAUL
     check_law(law, rv)
     rv = float(rv)
     keys = [get_passband(k).key for k in mags]
+    if len(set(keys)) < len(keys):
+        raise StelltempError(f"two of the passbands share a key: {', '.join(keys)}")
     if method == "colour" and len(keys) != 2:
         raise StelltempError(f"method 'colour' takes exactly two bands, got {len(keys)}")
     if fit_ebv and len(keys) < 3:
@@ -138,6 +142,11 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, rv=DEFAULT_RV, law=DEFAUL
     errs = {} if errs is None else {get_passband(k).key: v for k, v in errs.items()}
     n = max((np.size(v) for v in mags.values()), default=0)
     m, e, flags = _clean_photometry(mags, errs, keys, n)
+    if av is not None:
+        if np.any(np.asarray(ebv if not isinstance(ebv, u.Quantity) else ebv.value) != 0):
+            raise StelltempError("give the reddening as E(B-V) or as A_V, not both")
+        ebv = _column(av, n, "A_V") / rv
+        ebv_err = _column(av_err, n, "A_V error", 0.0) / rv
     ebv = _column(ebv, n, "E(B-V)")
     ebv_err = _column(ebv_err, n, "E(B-V) error")
     with np.errstate(invalid="ignore"):
