@@ -155,31 +155,6 @@ def truth_comparison(results, truth):
             "worst": {"name": names[worst], "z": float(z[worst])}}
 
 
-def planning_temperatures(table, bands, law, rv):
-    """Temperature of the blackbody matching each star's *observed* (reddened) colours.
-
-    The exposure calculator scales an unreddened blackbody to the V
-    magnitude; giving it the temperature fitted with E(B−V) = 0 to the
-    instrument's own bands reproduces the reddened colours across them,
-    which is what sets the count rates.  NaN where fewer than two bands.
-    """
-    from .engine import estimate
-
-    present = [b for b in bands if b in table.colnames]
-    if len(present) < 2:
-        return np.full(len(table), np.nan)
-    mags = {b: _floats(table[b]) for b in present}
-    errs = {b: _floats(table[b + "_err"]) for b in present if b + "_err" in table.colnames}
-    with np.errstate(invalid="ignore"):
-        for b in present:  # sentinels such as 99.999 are no measurement
-            bad = ~(np.abs(mags[b]) < 40)
-            mags[b] = np.where(bad, np.nan, mags[b])
-            if b in errs:
-                errs[b] = np.where(bad | ~(errs[b] <= 5), np.nan, errs[b])
-    res = estimate(mags, errs, ebv=0.0, law=law, rv=rv)
-    return _floats(res["t_bb"])
-
-
 def _showcase_fit(row, bands, law, rv):
     """Engine result (one-row QTable) and typed magnitudes of one star, as in the catalogue run."""
     from .engine import estimate
@@ -299,18 +274,20 @@ def run_tour(out_dir=DEFAULT_OUT, *, replace=False, demo_dir=None, quiet=False, 
 
     # 4. the night plan
     instrument = load_instrument(sc["instrument"])
-    filter_bands = [instrument.filters[f].passband.key for f in instrument.filters]
-    plan_t = planning_temperatures(targets, filter_bands, law, rv)
+    # counts from each star's own spectrum: the engine's blackbody temperature,
+    # reddened by the E(B−V) it used, scaled to the observed magnitude
+    ebv_used = _floats(results["ebv_used"])
     plan_in = Table({"name": targets["name"], "ra": targets["ra"], "dec": targets["dec"],
                      "mag": targets["mag"], "band": targets["band"],
-                     "teff": np.where(np.isfinite(plan_t), np.round(plan_t, 0), np.nan)})
+                     "teff": np.where(np.isfinite(t_bb), np.round(t_bb, 0), np.nan),
+                     "ebv": np.where(np.isfinite(t_bb) & np.isfinite(ebv_used), ebv_used, 0.0)})
     plan_targets = parse_targets(plan_in)
     plan = plan_night(instrument, plan_targets, sc["date"], snr=snr)
     by_name = {t["name"]: t for t in plan_targets}
     saved = plan.copy(copy_data=True)
     saved.meta = table_to_jsonable(plan)["meta"]
-    saved.meta["note"] = ("exposures for blackbodies of each star's observed (reddened) colour temperature, "
-                          "scaled to its V magnitude; invented demo data")
+    saved.meta["note"] = ("exposures for each star's blackbody (T_bb from the temperature run), reddened by "
+                          "its E(B-V) and scaled to its V magnitude; invented demo data")
     files["plan"] = str(out / "plan.ecsv")
     try:
         saved.write(files["plan"], format="ascii.ecsv", overwrite=True)
@@ -325,7 +302,7 @@ def run_tour(out_dir=DEFAULT_OUT, *, replace=False, demo_dir=None, quiet=False, 
     star_plan = plan[plan["target"] == star]
     airmass = float(np.nanmin(np.asarray(star_plan["min_airmass"], float))) if len(star_plan) else 1.0
     p = by_name[star]
-    one = plan_target(instrument, p["mag"], p["band"], p["teff"], snr=snr,
+    one = plan_target(instrument, p["mag"], p["band"], p["teff"], ebv=p["ebv"], snr=snr,
                       airmass=airmass if math.isfinite(airmass) else 1.0, name=star)
     files["snr_figure"] = plot_snr_curves(one, str(out / f"snr_{star}.png"))
 

@@ -153,8 +153,8 @@ def electron_rate_spectrum(wave, flam, instrument: Instrument, filter_name: str,
                  * extinction_factor(spec.extinction_mag_per_airmass, airmass))
 
 
-def scaled_blackbody(teff, mag, band):
-    """Scale factor and evaluator for a blackbody of ``teff`` with magnitude ``mag`` in ``band``.
+def scaled_blackbody(teff, mag, band, ebv=0.0, law="G23", rv=3.1):
+    """Evaluator of a (reddened) blackbody of ``teff`` with magnitude ``mag`` in ``band``.
 
     Parameters
     ----------
@@ -163,31 +163,42 @@ def scaled_blackbody(teff, mag, band):
     mag : float or array
         Magnitude in ``band`` (its own system), broadcast with ``teff``.
     band : Passband or str
+    ebv : float or array
+        E(B−V) applied to the blackbody before it is scaled (mag; law and R_V
+        as in :mod:`stelltemp.extinction`), so ``mag`` is the observed,
+        reddened magnitude and the colours across filters are the reddened ones.
 
     Returns
     -------
     callable
         ``flam(wave)`` → F_λ (erg s⁻¹ cm⁻² Å⁻¹) with shape (..., len(wave)).
     """
+    from ..extinction import transmission
     from ..passbands import get_passband
 
     pb = get_passband(band)
     t = np.asarray(teff, float)
     m = np.asarray(mag, float)
+    e = np.asarray(ebv, float)
     if np.any(~np.isfinite(t) | (t <= 0)):
         raise StelltempError("temperature must be positive and finite (K)")
     if np.any(~np.isfinite(m)):
         raise StelltempError("magnitude must be finite")
-    t, m = np.broadcast_arrays(t, m)
-    grid = band_grid(pb)
+    if np.any(~np.isfinite(e)):
+        raise StelltempError("E(B-V) must be finite")
+    t, m, e = np.broadcast_arrays(t, m, e)
     shape = t.shape
-    bl = planck_lambda_cgs(t.reshape(-1, 1), grid[None, :])
-    m0 = -2.5 * np.log10(band_integral(grid, bl, pb)) + mag_offset(pb)
+
+    def reddened(wave):
+        w = np.asarray(wave, float)
+        return planck_lambda_cgs(t[..., None], w) * transmission(w, e, law, rv)
+
+    grid = band_grid(pb)
+    m0 = -2.5 * np.log10(band_integral(grid, reddened(grid).reshape(-1, len(grid)), pb)) + mag_offset(pb)
     scale = (10.0 ** (-0.4 * (m.reshape(-1) - m0))).reshape(shape)
 
     def flam(wave):
-        w = np.asarray(wave, float)
-        return scale[..., None] * planck_lambda_cgs(t[..., None], w)
+        return scale[..., None] * reddened(wave)
 
     return flam
 
@@ -202,7 +213,7 @@ def _vega_shaped(mag, band):
     return w, f, scale
 
 
-def star_electron_rate(instrument: Instrument, filter_name: str, mag, band=None, teff=None, airmass=1.0):
+def star_electron_rate(instrument: Instrument, filter_name: str, mag, band=None, teff=None, airmass=1.0, ebv=0.0):
     """Electrons per second from a star in one filter.
 
     Parameters
@@ -218,6 +229,9 @@ def star_electron_rate(instrument: Instrument, filter_name: str, mag, band=None,
         Blackbody temperature, K; None uses the Vega (A0 V) spectral shape.
     airmass : float or array
         X (0 = above the atmosphere); broadcast with ``mag``/``teff``.
+    ebv : float or array
+        E(B−V) of the star (with ``teff``): the blackbody is reddened (G23,
+        R_V = 3.1) and ``mag`` is its observed magnitude.
 
     Returns
     -------
@@ -235,7 +249,7 @@ def star_electron_rate(instrument: Instrument, filter_name: str, mag, band=None,
         w, f, scale = _vega_shaped(mag, band)
         rate = photon_integral(grid, np.interp(grid, w, f), eff) * scale
     else:
-        flam = scaled_blackbody(teff, mag, band)(grid)
+        flam = scaled_blackbody(teff, mag, band, ebv)(grid)
         rate = photon_integral(grid, flam, eff)
     out = rate * area * ext
     return float(out) if np.ndim(out) == 0 else out

@@ -52,6 +52,7 @@ _FILTER_COLUMNS = [
     ("mag", u.mag, "given magnitude (outside the atmosphere)"),
     ("mag_band", None, "passband of the given magnitude"),
     ("teff", u.K, "blackbody temperature (NaN: Vega-shaped spectrum)"),
+    ("ebv", u.mag, "E(B-V) applied to the blackbody (the magnitude is the reddened one)"),
     ("airmass", u.dimensionless_unscaled, "airmass X used for extinction, sky and seeing"),
     ("seeing_fwhm", u.arcsec, "seeing FWHM at this airmass"),
     ("aperture_radius", u.arcsec, "measuring aperture radius"),
@@ -101,7 +102,7 @@ def _resolve_band(instrument: Instrument, band):
 
 
 def _filter_row(instrument, fname, mag, band, teff, airmass, snr, exposure_s, seeing_arcsec, aperture_fwhm,
-                annulus_fwhm, profile, beta, headroom, c_y, sky_delta_mag, min_exposure_s=1.0):
+                annulus_fwhm, profile, beta, headroom, c_y, sky_delta_mag, min_exposure_s=1.0, ebv=0.0):
     spec = instrument.filter(fname)
     cam, tel, site = instrument.camera, instrument.telescope, instrument.site
     x = float(airmass)
@@ -115,7 +116,7 @@ def _filter_row(instrument, fname, mag, band, teff, airmass, snr, exposure_s, se
     if not (0 < r1 < r2):
         raise StelltempError(f"sky annulus must have 0 < inner < outer, got {annulus_fwhm!r}")
     n_b = math.pi * ((r2 * fwhm) ** 2 - (r1 * fwhm) ** 2) / pix**2
-    rate = counts.star_electron_rate(instrument, fname, mag, band, teff, airmass=x)
+    rate = counts.star_electron_rate(instrument, fname, mag, band, teff, airmass=x, ebv=ebv)
     ap_rate = rate * float(psf.enclosed_fraction(r_ap, fwhm, profile, beta))
     sky_mag = spec.sky_mag_arcsec2 + float(counts.sky_airmass_brightening(x, spec.extinction_mag_per_airmass)) \
         + sky_delta_mag
@@ -171,7 +172,7 @@ def _check_goal(snr, exposure_s):
         raise StelltempError(f"exposure time must be positive, got {exposure_s!r}")
 
 
-def plan_target(instrument: Instrument, mag, band=None, teff=None, *, snr=None, exposure_s=None, airmass=1.0,
+def plan_target(instrument: Instrument, mag, band=None, teff=None, *, ebv=0.0, snr=None, exposure_s=None, airmass=1.0,
                 filters=None, name="target", seeing_arcsec=None, aperture_fwhm=1.0, annulus_fwhm=(3.0, 5.0),
                 profile="moffat", beta=psf.MOFFAT_BETA_TURBULENCE, headroom=psf.DEFAULT_HEADROOM,
                 c_y=ccd.C_Y_TYPICAL, sky_delta_mag=0.0) -> Table:
@@ -187,6 +188,9 @@ def plan_target(instrument: Instrument, mag, band=None, teff=None, *, snr=None, 
         filter's own passband, i.e. ``mag`` is taken in every filter).
     teff : float, optional
         Blackbody temperature, K (None: Vega-shaped spectrum).
+    ebv : float
+        E(B−V) of the star, applied to the blackbody (``mag`` is then the
+        observed, reddened magnitude).
     snr : float, optional
         Target S/N; gives ``exposure_for_snr``.
     exposure_s : float, optional
@@ -221,9 +225,9 @@ def plan_target(instrument: Instrument, mag, band=None, teff=None, *, snr=None, 
         r = _blank_row()
         r.update(target=name, filter=f, mag=float(mag), mag_band=(pb_band.key if pb_band is not None else
                                                                    instrument.filter(f).passband.key),
-                 teff=math.nan if teff is None else float(teff))
+                 teff=math.nan if teff is None else float(teff), ebv=float(ebv))
         r.update(_filter_row(instrument, f, mag, pb_band, teff, airmass, snr, exposure_s, seeing_arcsec,
-                             aperture_fwhm, annulus_fwhm, profile, beta, headroom, c_y, sky_delta_mag))
+                             aperture_fwhm, annulus_fwhm, profile, beta, headroom, c_y, sky_delta_mag, ebv=ebv))
         rows.append(r)
     meta = {"instrument": instrument.title or instrument.source, "target_snr": snr, "planned_exposure_s": exposure_s,
             "read_noise_e": instrument.camera.read_noise_e, "gain_e_per_adu": instrument.camera.gain_e_per_adu,
@@ -253,13 +257,13 @@ def parse_targets(table: Table):
     """Check a target table row by row.
 
     Required columns (case-insensitive): ``name, ra, dec, mag, band``;
-    optional ``teff`` (K, blank = none).  ``ra`` is degrees or sexagesimal
+    optional ``teff`` (K, blank = none) and ``ebv`` (mag, blank = 0).  ``ra`` is degrees or sexagesimal
     hours ("12:30:00" or "12h30m"); ``dec`` degrees or sexagesimal degrees.
 
     Returns
     -------
     list of dict
-        One per row: name, ra_deg, dec_deg, mag, band, teff (None or K), and
+        One per row: name, ra_deg, dec_deg, mag, band, teff (None or K), ebv (mag), and
         ``error`` ('' or the one-line problem).
     """
     cols = {c.lower(): c for c in table.colnames}
@@ -269,7 +273,7 @@ def parse_targets(table: Table):
     out = []
     for i, row in enumerate(table):
         rec = {"name": str(row[cols["name"]]).strip() or f"row {i + 1}", "ra_deg": math.nan, "dec_deg": math.nan,
-               "mag": math.nan, "band": str(row[cols["band"]]).strip(), "teff": None, "error": ""}
+               "mag": math.nan, "band": str(row[cols["band"]]).strip(), "teff": None, "ebv": 0.0, "error": ""}
         try:
             rec["ra_deg"] = _parse_angle(row[cols["ra"]], u.hourangle) % 360.0
         except (ValueError, TypeError, u.UnitsError):
@@ -298,6 +302,16 @@ def parse_targets(table: Table):
                     rec["teff"] = t
                 except (ValueError, TypeError):
                     rec["error"] = rec["error"] or f"bad teff '{v}' (K, 500-1e6)"
+        if "ebv" in cols:
+            v = row[cols["ebv"]]
+            if not (np.ma.is_masked(v) or str(v).strip() in ("", "nan", "--")):
+                try:
+                    e = float(v)
+                    if not (math.isfinite(e) and -0.5 <= e <= 6.0):
+                        raise ValueError
+                    rec["ebv"] = e
+                except (ValueError, TypeError):
+                    rec["error"] = rec["error"] or f"bad ebv '{v}' (mag, -0.5 to 6)"
         out.append(rec)
     return out
 
@@ -360,7 +374,7 @@ def night_tracks(instrument: Instrument, targets, date, step_min=10.0, sun_limit
         for i, t in enumerate(good):
             try:
                 top = counts.star_electron_rate(instrument, f, t["mag"], _resolve_band(instrument, t["band"]),
-                                                t["teff"], airmass=0.0)
+                                                t["teff"], airmass=0.0, ebv=t.get("ebv", 0.0))
             except StelltempError:
                 continue
             r[i] = top * np.where(np.isfinite(x[i]), counts.extinction_factor(k, np.nan_to_num(x[i])), np.nan)
@@ -383,7 +397,7 @@ def plan_night(instrument: Instrument, targets, date, *, snr=None, exposure_s=No
     ----------
     targets : list of dict or Table
         `parse_targets` output, or a table with columns name, ra, dec, mag,
-        band[, teff].
+        band[, teff, ebv].
     date : str
         Local date of the evening, YYYY-MM-DD.
 
@@ -427,7 +441,7 @@ def plan_night(instrument: Instrument, targets, date, *, snr=None, exposure_s=No
     for i, t in enumerate(targets):
         base = _blank_row()
         base.update(target=t["name"], mag=t["mag"], mag_band=t["band"],
-                    teff=math.nan if t["teff"] is None else t["teff"])
+                    teff=math.nan if t["teff"] is None else t["teff"], ebv=t.get("ebv", 0.0))
         flags = [t["error"]] if t["error"] else []
         w = windows.get(i)
         if w is not None:
@@ -451,7 +465,8 @@ def plan_night(instrument: Instrument, targets, date, *, snr=None, exposure_s=No
                                          options.get("annulus_fwhm", (3.0, 5.0)), options.get("profile", "moffat"),
                                          options.get("beta", psf.MOFFAT_BETA_TURBULENCE),
                                          options.get("headroom", psf.DEFAULT_HEADROOM),
-                                         options.get("c_y", ccd.C_Y_TYPICAL), options.get("sky_delta_mag", 0.0)))
+                                         options.get("c_y", ccd.C_Y_TYPICAL), options.get("sky_delta_mag", 0.0),
+                                         ebv=t.get("ebv", 0.0)))
                 except StelltempError as exc:
                     r["flags"] = "; ".join(flags + [str(exc)])
                     rows.append(r)
