@@ -52,6 +52,8 @@ def add_cli(subparsers):
     p.add_argument("--mag", type=float, required=True, help="magnitude outside the atmosphere")
     p.add_argument("--band", help="passband key or instrument filter of --mag (default: each filter's own)")
     p.add_argument("--teff", type=float, metavar="K", help="blackbody temperature (default: Vega-shaped spectrum)")
+    p.add_argument("--ebv", type=float, default=0.0,
+                   help="E(B-V) of the star, reddening the blackbody of --teff (default 0)")
     p.add_argument("--airmass", type=float, default=1.0, help="airmass (default 1.0)")
     p.add_argument("--at", metavar="UTC", help="ISO time: take the airmass from --ra/--dec at the site")
     p.add_argument("--ra", help="right ascension (degrees or h:m:s), with --at")
@@ -62,7 +64,7 @@ def add_cli(subparsers):
 
     q = subparsers.add_parser(
         "nightplan", help="best windows, airmass and exposures for a target list in one night",
-        description="For a target list (CSV/ECSV with columns name, ra, dec, mag, band and optional teff), find "
+        description="For a target list (CSV/ECSV with columns name, ra, dec, mag, band and optional teff, ebv), find "
                     "each target's best dark-time window at the instrument's site and plan its exposures.")
     q.add_argument("targets", help="target list file (.csv or .ecsv)")
     q.add_argument("--date", required=True, help="local date of the evening, YYYY-MM-DD")
@@ -142,7 +144,10 @@ def _run_exposure(args, instrument):
     filters = [f.strip() for f in args.filters.split(",")] if args.filters else None
     for f in filters or []:
         instrument.filter(f)
-    table = plan_target(instrument, args.mag, args.band, args.teff, snr=args.snr, exposure_s=args.exposure,
+    if args.ebv and args.teff is None:
+        raise StelltempError("--ebv reddens the blackbody of --teff: give --teff too")
+    table = plan_target(instrument, args.mag, args.band, args.teff, ebv=args.ebv, snr=args.snr,
+                        exposure_s=args.exposure,
                         airmass=airmass, filters=filters, seeing_arcsec=args.seeing, profile=args.profile)
     table.meta["sun_warnings"] = warnings_
     if args.plot:
