@@ -142,13 +142,13 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
     errs = {} if errs is None else {get_passband(k).key: v for k, v in errs.items()}
     n = max((np.size(v) for v in mags.values()), default=0)
     m, e, flags = _clean_photometry(mags, errs, keys, n)
+    ebv = _column(ebv, n, "E(B-V)")
+    ebv_err = _column(ebv_err, n, "E(B-V) error")
     if av is not None:
-        if np.any(np.asarray(ebv if not isinstance(ebv, u.Quantity) else ebv.value) != 0):
+        if np.any(ebv != 0) or np.any(ebv_err != 0):
             raise StelltempError("give the reddening as E(B-V) or as A_V, not both")
         ebv = _column(av, n, "A_V") / rv
         ebv_err = _column(av_err, n, "A_V error", 0.0) / rv
-    ebv = _column(ebv, n, "E(B-V)")
-    ebv_err = _column(ebv_err, n, "E(B-V) error")
     with np.errstate(invalid="ignore"):
         bad_red = ~np.isfinite(ebv) | (ebv < bg.E_MIN) | (ebv > bg.E_MAX) | ~(ebv_err >= 0)
     flags |= np.where(bad_red, fl.BAD_INPUT, 0)
