@@ -116,7 +116,7 @@ def _cmd_blackbody(args):
     if args.plot:
         from .plots import plot_spectrum_with_passbands
 
-        plot_spectrum_with_passbands(t, args.bands, args.plot)
+        plot_spectrum_with_passbands(t, args.bands, args.plot, replace=args.replace)
         rep["plot"] = args.plot
     if args.json:
         emit_json(rep)
@@ -172,7 +172,7 @@ def _cmd_colourgrid(args):
     if args.plot:
         from .plots import plot_colour_temperature
 
-        plot_colour_temperature(bands, args.plot, ebv=args.ebv, law=args.law, rv=args.rv)
+        plot_colour_temperature(bands, args.plot, ebv=args.ebv, law=args.law, rv=args.rv, replace=args.replace)
     if args.json:
         emit_json({"scale": "blackbody of radius 1 R_sun at 10 pc", "ebv": args.ebv, "law": args.law,
                    "R_V": args.rv, "temperature_K": temps,
@@ -250,7 +250,7 @@ def _cmd_star(args):
     if args.plot:
         from .plots import plot_star_fit
 
-        plot_star_fit(table, typed, args.plot, law=args.law, rv=args.rv)
+        plot_star_fit(table, typed, args.plot, law=args.law, rv=args.rv, replace=args.replace)
     if args.json:
         emit_json({"result": row, "meta": meta, **({"plot": args.plot} if args.plot else {})})
         return 0
@@ -283,6 +283,10 @@ def _add_reddening_options(p):
     p.add_argument("--rv", type=float, default=3.1, help="R_V (default 3.1)")
 
 
+def _add_replace_option(p):
+    p.add_argument("--replace", action="store_true", help="allow replacing an existing --plot file")
+
+
 def build_parser():
     parser = _Parser(prog="stelltemp", description=(
         "Temperatures of stars from their colours, with reddening applied through the passbands; "
@@ -302,6 +306,7 @@ def build_parser():
     p.add_argument("--bands", nargs="*", default=["jc.B", "jc.V", "jc.Ic", "2mass.Ks"],
                    help="passbands drawn on the --plot figure")
     p.add_argument("--plot", metavar="FILE", help="write the spectrum with passbands and Wien peak (PNG)")
+    _add_replace_option(p)
     p.add_argument("--json", action="store_true", help="machine-readable output")
     p.set_defaults(func=_cmd_blackbody)
 
@@ -313,6 +318,7 @@ def build_parser():
     p.add_argument("--steps", type=int, default=10, help="number of temperatures, log-spaced (default 10)")
     _add_reddening_options(p)
     p.add_argument("--plot", metavar="FILE", help="write colour against temperature (PNG)")
+    _add_replace_option(p)
     p.add_argument("--json", action="store_true", help="machine-readable output")
     p.set_defaults(func=_cmd_colourgrid)
 
@@ -334,6 +340,7 @@ def build_parser():
                    help="N noisy realisations for percentile intervals (default: analytic)")
     p.add_argument("--seed", type=int, help="random seed for --monte-carlo")
     p.add_argument("--plot", metavar="FILE", help="write the fit with residuals (PNG)")
+    _add_replace_option(p)
     p.add_argument("--json", action="store_true", help="machine-readable output")
     p.set_defaults(func=_cmd_star)
 

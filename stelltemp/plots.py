@@ -114,14 +114,12 @@ def _styled():
     return matplotlib.rc_context(_STYLE)
 
 
-def _save(fig, path):
-    """Write a figure; one-line StelltempError if the file cannot be written."""
-    try:
-        with _styled():
-            fig.savefig(path, dpi=130)
-    except (OSError, ValueError) as exc:
-        raise StelltempError(f"cannot write figure {path}: {exc}") from None
-    return str(path)
+def _save(fig, path, replace):
+    """Write a figure atomically (see :mod:`stelltemp.safeio`); returns the path."""
+    from .safeio import save_figure
+
+    with _styled():
+        return save_figure(fig, path, replace, dpi=130)
 
 
 def _keys(bands, at_least):
@@ -242,9 +240,9 @@ def spectrum_figure(temperature_k, bands):
     return fig
 
 
-def plot_spectrum_with_passbands(temperature_k, bands, path):
+def plot_spectrum_with_passbands(temperature_k, bands, path, replace=False):
     """Write `spectrum_figure` to ``path``; return the path."""
-    return _save(spectrum_figure(temperature_k, bands), path)
+    return _save(spectrum_figure(temperature_k, bands), path, replace)
 
 
 # -------------------------------------------------------- colour–temperature
@@ -341,9 +339,10 @@ def colour_temperature_figure(bands, ebv=0.0, law="G23", rv=3.1, calibrations=Tr
     return fig
 
 
-def plot_colour_temperature(bands, path, ebv=0.0, law="G23", rv=3.1, calibrations=True):
+def plot_colour_temperature(bands, path, ebv=0.0, law="G23", rv=3.1, calibrations=True, replace=False):
     """Write `colour_temperature_figure` to ``path``; return the path."""
-    return _save(colour_temperature_figure(bands, ebv=ebv, law=law, rv=rv, calibrations=calibrations), path)
+    return _save(colour_temperature_figure(bands, ebv=ebv, law=law, rv=rv, calibrations=calibrations), path,
+                 replace)
 
 
 # ------------------------------------------------------------------ star fit
@@ -463,9 +462,9 @@ def star_fit_figure(table, typed_mags, law="G23", rv=3.1):
     return fig
 
 
-def plot_star_fit(table, typed_mags, path, law="G23", rv=3.1):
+def plot_star_fit(table, typed_mags, path, law="G23", rv=3.1, replace=False):
     """Write `star_fit_figure` to ``path``; return the path."""
-    return _save(star_fit_figure(table, typed_mags, law=law, rv=rv), path)
+    return _save(star_fit_figure(table, typed_mags, law=law, rv=rv), path, replace)
 
 
 # ------------------------------------------------------------ catalogue run
@@ -623,6 +622,6 @@ def catalogue_figure(results, colour=None, law="G23", rv=3.1):
     return fig
 
 
-def plot_catalogue_results(results_table, path, colour=None, law="G23", rv=3.1):
+def plot_catalogue_results(results_table, path, colour=None, law="G23", rv=3.1, replace=False):
     """Write `catalogue_figure` to ``path``; return the path."""
-    return _save(catalogue_figure(results_table, colour=colour, law=law, rv=rv), path)
+    return _save(catalogue_figure(results_table, colour=colour, law=law, rv=rv), path, replace)

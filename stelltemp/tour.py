@@ -36,6 +36,7 @@ import numpy as np
 
 from .errors import StelltempError
 from .jsonable import json_ready
+from .safeio import atomic_path, save_table
 
 __all__ = ["add_cli", "run_cli", "run_tour", "find_demo_dir", "load_scenario", "DEMO_DIRNAME", "SCENARIO_FILE"]
 
@@ -261,16 +262,18 @@ def run_tour(out_dir=DEFAULT_OUT, *, replace=False, demo_dir=None, quiet=False, 
     if not rows:
         raise StelltempError(f"showcase star {star} is not in {sc['targets']}")
     star_row = targets[rows[0]]
-    files["catalogue_figure"] = plots.plot_catalogue_results(results, out / "catalogue_diagram.png", law=law, rv=rv)
+    files["catalogue_figure"] = plots.plot_catalogue_results(results, out / "catalogue_diagram.png", law=law, rv=rv,
+                                                                replace=True)
     files["colour_figure"] = plots.plot_colour_temperature(list(COLOUR_BANDS), out / "blackbody_colours.png",
-                                                           law=law, rv=rv)
+                                                           law=law, rv=rv, replace=True)
     bands = [b for b in results.meta.get("passbands", "").split(",") if b] or \
         [c for c in targets.colnames if c in SPECTRUM_BANDS]
     fit_table, typed = _showcase_fit(star_row, bands, law, rv)
-    files["fit_figure"] = plots.plot_star_fit(fit_table, typed, out / f"fit_{star}.png", law=law, rv=rv)
+    files["fit_figure"] = plots.plot_star_fit(fit_table, typed, out / f"fit_{star}.png", law=law, rv=rv,
+                                              replace=True)
     star_t = float(fit_table["t_bb"][0].value)
     files["spectrum_figure"] = plots.plot_spectrum_with_passbands(star_t, list(SPECTRUM_BANDS),
-                                                                  out / f"spectrum_{star}.png")
+                                                                  out / f"spectrum_{star}.png", replace=True)
 
     # 4. the night plan
     instrument = load_instrument(sc["instrument"])
@@ -289,22 +292,20 @@ def run_tour(out_dir=DEFAULT_OUT, *, replace=False, demo_dir=None, quiet=False, 
     saved.meta["note"] = ("exposures for each star's blackbody (T_bb from the temperature run), reddened by "
                           "its E(B-V) and scaled to its V magnitude; invented demo data")
     files["plan"] = str(out / "plan.ecsv")
-    try:
-        saved.write(files["plan"], format="ascii.ecsv", overwrite=True)
-    except OSError as exc:
-        raise StelltempError(f"cannot write {files['plan']}: {exc.strerror or exc}") from None
+    save_table(saved, files["plan"], "ascii.ecsv", replace=True)
     centre = by_name[star]
     companions = {t["name"] for t in plan_targets if not t["error"] and  # they share the showcase's track
                   _separation_deg(centre["ra_deg"], centre["dec_deg"], t["ra_deg"], t["dec_deg"]) < 1.0}
     chart_names = _chart_subset(plan, star, skip=companions)
     tracks = night_tracks(instrument, [by_name[n] for n in chart_names if n in by_name], sc["date"])
-    files["night_figure"] = plot_night(tracks, str(out / "night_altitude.png"), plan.meta["min_altitude_deg"])
+    files["night_figure"] = plot_night(tracks, str(out / "night_altitude.png"), plan.meta["min_altitude_deg"],
+                                       replace=True)
     star_plan = plan[plan["target"] == star]
     airmass = float(np.nanmin(np.asarray(star_plan["min_airmass"], float))) if len(star_plan) else 1.0
     p = by_name[star]
     one = plan_target(instrument, p["mag"], p["band"], p["teff"], ebv=p["ebv"], snr=snr,
                       airmass=airmass if math.isfinite(airmass) else 1.0, name=star)
-    files["snr_figure"] = plot_snr_curves(one, str(out / f"snr_{star}.png"))
+    files["snr_figure"] = plot_snr_curves(one, str(out / f"snr_{star}.png"), replace=True)
 
     exposure = np.asarray(plan["exposure"], float)
     summary = {
@@ -327,8 +328,8 @@ def run_tour(out_dir=DEFAULT_OUT, *, replace=False, demo_dir=None, quiet=False, 
     }
     files["summary"] = str(out / "summary.json")
     summary["files"]["summary"] = files["summary"]
-    Path(files["summary"]).write_text(json.dumps(json_ready(summary), indent=1, ensure_ascii=False) + "\n",
-                                      encoding="utf-8")
+    with atomic_path(files["summary"], overwrite=True) as tmp:
+        tmp.write_text(json.dumps(json_ready(summary), indent=1, ensure_ascii=False) + "\n", encoding="utf-8")
     if not quiet:
         print_summary(summary, stream or sys.stdout)
     return summary

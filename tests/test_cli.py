@@ -88,3 +88,15 @@ def test_console_script_help_and_error_in_a_subprocess():
     bad = subprocess.run([sys.executable, "-m", "stelltemp.cli", "blackbody", "nan"], capture_output=True, text=True)
     assert bad.returncode == 2
     assert bad.stderr.count("\n") == 1 and bad.stderr.startswith("stelltemp: error:")
+
+
+def test_an_existing_figure_is_not_replaced_without_permission(tmp_path, capsys):
+    target = tmp_path / "spectrum.png"
+    target.write_bytes(b"keep me")
+    assert main(["blackbody", "5772", "--plot", str(target)]) == 2
+    err = capsys.readouterr().err
+    assert "already exists" in err and len(err.strip().splitlines()) == 1
+    assert target.read_bytes() == b"keep me"
+    assert main(["blackbody", "5772", "--plot", str(target), "--replace"]) == 0
+    assert target.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    assert [p.name for p in tmp_path.iterdir()] == ["spectrum.png"]  # no temporary file left behind

@@ -39,8 +39,6 @@ from __future__ import annotations
 import contextlib
 import csv
 import json
-import os
-import tempfile
 from pathlib import Path
 
 import numpy as np
@@ -48,6 +46,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from stelltemp.errors import StelltempError
+from stelltemp.safeio import atomic_path
 
 #: extension (lower case) -> format name
 EXTENSIONS = {
@@ -462,36 +461,6 @@ def check_output(path, overwrite=False, input_path=None):
                 raise StelltempError(f"{p}: already exists (allow replacing it explicitly)")
     if not path.parent.exists():
         raise StelltempError(f"{path.parent}: no such folder")
-
-
-@contextlib.contextmanager
-def atomic_path(path, overwrite=False):
-    """Yield a temporary path beside `path`; rename it to `path` on success.
-
-    On any exception (including KeyboardInterrupt) the temporary file is
-    removed and the target is left untouched.
-    """
-    path = Path(path)
-    if path.exists() and not overwrite:
-        raise StelltempError(f"{path}: already exists (allow replacing it explicitly)")
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent or ".")
-    os.close(fd)
-    try:
-        yield Path(tmp)
-        if path.exists() and not overwrite:  # appeared while we worked
-            raise StelltempError(f"{path}: already exists (allow replacing it explicitly)")
-        os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600; give the usual mode
-        os.replace(tmp, path)
-    except BaseException:
-        with contextlib.suppress(FileNotFoundError):
-            os.unlink(tmp)
-        raise
-
-
-def _umask():
-    mask = os.umask(0)
-    os.umask(mask)
-    return mask
 
 
 # --------------------------------------------------------------------- sinks

@@ -41,6 +41,7 @@ def _goal_options(p):
     p.add_argument("--profile", choices=("moffat", "gaussian"), default="moffat", help="seeing profile")
     p.add_argument("--json", action="store_true", help="print JSON instead of a text table")
     p.add_argument("--plot", metavar="FILE", help="write a figure (PNG, PDF or SVG by extension)")
+    p.add_argument("--replace", action="store_true", help="allow replacing existing output files")
 
 
 def add_cli(subparsers):
@@ -153,7 +154,7 @@ def _run_exposure(args, instrument):
     if args.plot:
         from .figures import plot_snr_curves
 
-        plot_snr_curves(table, args.plot)
+        plot_snr_curves(table, args.plot, replace=args.replace)
     return table
 
 
@@ -167,23 +168,20 @@ def _run_nightplan(args, instrument):
     if args.plot:
         from .figures import plot_night
 
-        plot_night(night_tracks(instrument, targets, args.date, args.step, args.dark), args.plot, args.min_alt)
+        plot_night(night_tracks(instrument, targets, args.date, args.step, args.dark), args.plot, args.min_alt,
+                   replace=args.replace)
     if args.save:
-        _save_table(table, args.save)
+        _save_table(table, args.save, args.replace)
     return table
 
 
-def _save_table(table, path):
+def _save_table(table, path, replace):
+    from ..safeio import save_table
+
     fmt = "ascii.ecsv" if str(path).lower().endswith(".ecsv") else "ascii.csv"
     out = table.copy(copy_data=True)
-    if fmt == "ascii.csv":
-        out.meta = {}
-    else:
-        out.meta = json_ready(dict(out.meta))
-    try:
-        out.write(path, format=fmt, overwrite=True)
-    except OSError as exc:
-        raise StelltempError(f"cannot write {path}: {exc.strerror or exc}") from None
+    out.meta = {} if fmt == "ascii.csv" else json_ready(dict(out.meta))
+    return save_table(out, path, fmt, replace)
 
 
 def run_cli(args, out=None, err=None) -> int:

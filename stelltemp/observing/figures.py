@@ -8,7 +8,6 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..errors import StelltempError
 from . import ccd
 
 __all__ = ["plot_snr_curves", "plot_night"]
@@ -20,18 +19,16 @@ TRACK_COLOURS = ("#1b6ca8", "#c8553d", "#2a9d8f", "#8d5a97", "#e09f3e", "#3d405b
                  "#7a9e3c", "#b5838d", "#264653", "#9c6644")
 
 
-def _save(fig, path):
+def _save(fig, path, replace):
     from matplotlib.backends.backend_agg import FigureCanvasAgg
 
+    from ..safeio import save_figure
+
     FigureCanvasAgg(fig)
-    try:
-        fig.savefig(path, dpi=120, bbox_inches="tight")
-    except (OSError, ValueError) as exc:
-        raise StelltempError(f"cannot write figure {path}: {exc}") from None
-    return str(path)
+    return save_figure(fig, path, replace, dpi=120, bbox_inches="tight")
 
 
-def plot_snr_curves(table, path, t_min=0.01, t_max=None):
+def plot_snr_curves(table, path, t_min=0.01, t_max=None, replace=False):
     """S/N against exposure time per filter, with the linear-limit exposure marked.
 
     Parameters
@@ -67,10 +64,10 @@ def plot_snr_curves(table, path, t_min=0.01, t_max=None):
     ax.set_title(f"{table['target'][0]}: S/N per filter (dashed: saturation/non-linear limit)")
     ax.grid(True, which="both", alpha=0.3)
     ax.legend(fontsize="small")
-    return _save(fig, path)
+    return _save(fig, path, replace)
 
 
-def plot_night(tracks, path, min_alt_deg=30.0):
+def plot_night(tracks, path, min_alt_deg=30.0, replace=False):
     """Altitude (left axis) and airmass (right axis) through the night per target.
 
     Parameters
@@ -121,4 +118,4 @@ def plot_night(tracks, path, min_alt_deg=30.0):
     ax.set_title("Altitude through the night (grey: twilights; darkest band: Sun below -18 deg)")
     if names and not many:
         ax.legend(fontsize="small", loc="upper left", bbox_to_anchor=(1.08, 1.0))
-    return _save(fig, path)
+    return _save(fig, path, replace)
