@@ -43,7 +43,7 @@ def test_existing_output_is_one_line_exit_2(tmp_path, capsys):
     capsys.readouterr()
     assert run_cli(_parse(["catalogue", str(inp), str(out), "--quiet"]), engine=fake_estimate) == 2
     err = capsys.readouterr().err
-    assert err.startswith("stelltemp catalogue: ") and "already exists (add --replace" in err
+    assert err.startswith("stelltemp: error: ") and "already exists (add --replace" in err
     assert err.count("\n") == 1
     assert run_cli(_parse(["catalogue", str(inp), str(out), "--replace"]), engine=fake_estimate) == 0
     assert "2 rows in" in capsys.readouterr().out

@@ -86,7 +86,7 @@ def run_cli(args, engine=None):
             summary = run_catalogue(args.input, args.output, chunk_rows=args.chunk_rows, **common)
     except StelltempError as exc:
         text = str(exc).replace("(allow replacing it explicitly)", "(add --replace to replace it)")
-        print(f"stelltemp {COMMAND}: {text}", file=sys.stderr)
+        print(f"stelltemp: error: {text}", file=sys.stderr)
         return 2
     if args.json:
         print(summary.to_json())
