@@ -162,3 +162,11 @@ def test_night_tracks_extinction_through_the_night(rig):
         assert r[i] / r[j] == pytest.approx(10 ** (-0.4 * spec.extinction_mag_per_airmass * (x[i] - x[j])))
         assert np.all(np.isnan(r[~np.isfinite(x)]))
     assert tr["dark"].any() and tr["names"] == ["Invented-T"]
+
+
+def test_exposure_refuses_the_sun_with_the_caution():
+    # common practice: V(Sun) ≈ −26.7; the tool gives the usual caution instead of a plan
+    args = _parser().parse_args(["exposure", "--instrument", str(CCD_FILE), "--mag", "-26.7", "--band", "jc.V",
+                                 "--snr", "50"])
+    with pytest.raises(StelltempError, match="certified solar filter"):
+        run_cli(args, io.StringIO(), io.StringIO())

@@ -135,8 +135,19 @@ def _airmass_at(instrument, when, ra, dec):
     return float(airmass_kasten_young(alt)), warnings_
 
 
+#: brighter than this only the Moon (full Moon V ≈ −12.7) and the Sun qualify
+MOON_BRIGHT_MAG = -10.0
+#: brighter than this it is the Sun (V ≈ −26.7): no plan, only the caution
+SUN_BRIGHT_MAG = -20.0
+
+
 def _run_exposure(args, instrument):
     from .plan import plan_target
+    from .safety import SUN_CAUTION
+
+    if args.mag < SUN_BRIGHT_MAG:
+        raise StelltempError(f"magnitude {args.mag:g} is the Sun; stelltemp does not plan solar exposures. "
+                             + SUN_CAUTION)
 
     warnings_ = []
     airmass = args.airmass
@@ -150,6 +161,9 @@ def _run_exposure(args, instrument):
     table = plan_target(instrument, args.mag, args.band, args.teff, ebv=args.ebv, snr=args.snr,
                         exposure_s=args.exposure,
                         airmass=airmass, filters=filters, seeing_arcsec=args.seeing, profile=args.profile)
+    if args.mag < MOON_BRIGHT_MAG:
+        warnings_ = warnings_ + [f"magnitude {args.mag:g} is as bright as the Moon: "
+                                 "use a filter of the right density and check for saturation"]
     table.meta["sun_warnings"] = warnings_
     if args.plot:
         from .figures import plot_snr_curves
