@@ -11,6 +11,7 @@ Prints one JSON object.  The engine's one-time set-up is timed first on a
 per 1e6 rows.
 
     python tests/benchmarks/bench_catalog.py [--rows N] [--naive-sample K]
+    python tests/benchmarks/bench_catalog.py --memory-rows 10000000   # the 1.5 GB goal
 """
 
 import argparse
@@ -48,8 +49,8 @@ def _band_tables():
     return temps, grid, coeff
 
 
-def make_catalogue(folder, rows, chunk=100_000, seed=1):
-    """Write in.parquet and in.csv (invented stars) chunk by chunk; return their paths."""
+def make_catalogue(folder, rows, chunk=100_000, seed=1, csv=True):
+    """Write in.parquet and (if ``csv``) in.csv (invented stars) chunk by chunk; return their paths."""
     import pyarrow as pa
     import pyarrow.csv as pcsv
     import pyarrow.parquet as pq
@@ -72,12 +73,32 @@ def make_catalogue(folder, rows, chunk=100_000, seed=1):
         table = pa.table(cols)
         if pq_writer is None:
             pq_writer = pq.ParquetWriter(pq_path, table.schema)
-            csv_writer = pcsv.CSVWriter(str(csv_path), table.schema)
+            csv_writer = pcsv.CSVWriter(str(csv_path), table.schema) if csv else None
         pq_writer.write_table(table)
-        csv_writer.write_table(table)
+        if csv_writer is not None:
+            csv_writer.write_table(table)
     pq_writer.close()
-    csv_writer.close()
-    return pq_path, csv_path
+    if csv_writer is not None:
+        csv_writer.close()
+    return pq_path, (csv_path if csv else None)
+
+
+def memory_run(rows, chunk_rows):
+    """Peak resident memory of a Parquet catalogue run of ``rows`` rows in a fresh child process."""
+    import subprocess
+
+    with tempfile.TemporaryDirectory() as tmp:
+        src, _ = make_catalogue(tmp, rows, chunk=500_000, csv=False)
+        code = ("import sys; from stelltemp.catalog import run_catalogue; "
+                "s = run_catalogue(sys.argv[1], sys.argv[2], quiet=True, chunk_rows=int(sys.argv[3])); "
+                "print(s.rows, s.successes, s.wall_time_s)")
+        env = dict(os.environ, PYTHONPATH=str(Path(__file__).resolve().parents[2]))
+        done = subprocess.run([sys.executable, "-c", code, str(src), str(Path(tmp) / "out.parquet"),
+                               str(chunk_rows)], capture_output=True, text=True, env=env, check=True)
+    n, ok, wall = done.stdout.split()
+    peak = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024.0  # KiB on Linux
+    return {"memory_rows": int(n), "memory_successes": int(ok), "memory_run_s": round(float(wall), 2),
+            "memory_peak_rss_mb": round(peak, 1), "memory_goal_mb": 1500}
 
 
 def naive_seconds_per_star(sample=5, seed=2):
@@ -116,7 +137,12 @@ def main(argv=None):
     parser.add_argument("--rows", type=int, default=1_000_000)
     parser.add_argument("--naive-sample", type=int, default=5)
     parser.add_argument("--chunk-rows", type=int, default=50_000)
+    parser.add_argument("--memory-rows", type=int, default=0,
+                        help="instead: peak memory of a Parquet run this long (e.g. 10000000) in a child process")
     args = parser.parse_args(argv)
+    if args.memory_rows:
+        print(json.dumps(memory_run(args.memory_rows, args.chunk_rows)))
+        return
 
     from stelltemp.catalog import run_catalogue
 
