@@ -28,6 +28,7 @@ from ..extinction import DEFAULT_LAW, DEFAULT_RV, relative_extinction
 from ..passbands import get_passband
 from . import flags as fl
 
+_BLOCK = 1 << 15  # stars per block of the inversion
 _NEWTON_STEPS = 4  # from the linear guess: ~1e-4 → 1e-8 → 1e-16 in t
 
 
@@ -89,11 +90,23 @@ def invert_colour(colour, blue, red, ebv=0.0, law=DEFAULT_LAW, rv=DEFAULT_RV):
         NO_SOLUTION (bluer than the Rayleigh–Jeans colour),
         AT_GRID_EDGE (cooler than 1,000 K or hotter than 100,000 K).
     """
-    table, e_fine, rj = _pair(blue, red, law, float(rv))
+    pair = _pair(blue, red, law, float(rv))
     colour, ebv = np.broadcast_arrays(np.asarray(colour, float), np.asarray(ebv, float))
     shape = colour.shape
     c = colour.ravel()
     e = ebv.ravel()
+    # blocks that fit in the processor's cache: the many short passes over the
+    # arrays below then cost far less than on one huge array
+    parts = [_invert_block(c[k:k + _BLOCK], e[k:k + _BLOCK], *pair) for k in range(0, c.size, _BLOCK)]
+    if not parts:
+        empty = np.empty(shape)
+        return empty, empty.copy(), np.zeros(shape, np.int64)
+    temperature, slope, flags = (np.concatenate(x) for x in zip(*parts))
+    return temperature.reshape(shape), slope.reshape(shape), flags.reshape(shape)
+
+
+def _invert_block(c, e, table, e_fine, rj):
+    """`invert_colour` on one block of stars (flat arrays)."""
     n = c.size
     nt, ne = table.shape
     flags = np.zeros(n, np.int64)
@@ -172,7 +185,7 @@ def invert_colour(colour, blue, red, ebv=0.0, law=DEFAULT_LAW, rv=DEFAULT_RV):
     lnt = table.lnt0 + (i + t) * table.h_t
     temperature = np.where(solve, np.exp(lnt), np.nan)
     slope = np.where(solve, dp / table.h_t, np.nan)
-    return temperature.reshape(shape), slope.reshape(shape), flags.reshape(shape)
+    return temperature, slope, flags
 
 
 def colour_interval(colour, colour_err, blue, red, ebv=0.0, ebv_err=0.0, law=DEFAULT_LAW, rv=DEFAULT_RV):
