@@ -79,3 +79,18 @@ def test_cli_default_chunk_matches_the_library():
     from stelltemp.catalog import batch, cli_hooks
 
     assert cli_hooks.DEFAULT_CHUNK_ROWS == batch.DEFAULT_CHUNK_ROWS
+
+
+def test_plot_of_the_results(tmp_path, capsys):
+    # real engine: two invented blackbody stars; the diagram draws both
+    from stelltemp.bandgrid import blackbody_mag
+
+    inp = tmp_path / "in.csv"
+    rows = [(name, t) for name, t in (("s1", 4500.0), ("s2", 9000.0))]
+    inp.write_text("star,jc.B,jc.V\n" + "".join(
+        f"{n},{float(blackbody_mag('jc.B', t)):.4f},{float(blackbody_mag('jc.V', t)):.4f}\n" for n, t in rows))
+    out, fig = tmp_path / "out.ecsv", tmp_path / "diagram.png"
+    assert run_cli(_parse(["catalogue", str(inp), str(out), "--plot", str(fig), "--quiet"])) == 0
+    assert fig.read_bytes()[:4] == b"\x89PNG"
+    assert run_cli(_parse(["catalogue", str(inp), str(tmp_path / "o2.ecsv"), "--plot", str(fig), "--quiet"])) == 2
+    assert "already exists" in capsys.readouterr().err

@@ -48,6 +48,8 @@ def add_cli(subparsers):
                    help=f"rows per chunk (default {DEFAULT_CHUNK_ROWS}); memory grows with it")
     p.add_argument("--quiet", action="store_true", help="no progress bar and no closing summary text")
     p.add_argument("--json", action="store_true", help="print the closing summary as JSON on stdout")
+    p.add_argument("--plot", metavar="FILE",
+                   help=f"write a colour-temperature diagram of the results (first {PLOT_ROWS} rows; PNG)")
     p.add_argument("--dask", action="store_true", help="run on Dask (Parquet input; needs stelltemp[scale])")
     p.add_argument("--scheduler", metavar="ADDRESS",
                    help="address of a running dask.distributed scheduler (implies --dask)")
@@ -88,8 +90,31 @@ def run_cli(args, engine=None):
         text = str(exc).replace("(allow replacing it explicitly)", "(add --replace to replace it)")
         print(f"stelltemp: error: {text}", file=sys.stderr)
         return 2
+    if args.plot:
+        try:
+            plot_results(args.output, args.plot, args.law, args.rv, replace=args.replace)
+        except StelltempError as exc:
+            print(f"stelltemp: error: {exc}", file=sys.stderr)
+            return 2
     if args.json:
         print(summary.to_json())
     elif not args.quiet:
         print(summary)
     return 0
+
+
+#: rows of a results file drawn by --plot (a diagram of millions of points reads no better)
+PLOT_ROWS = 20_000
+
+
+def plot_results(results_path, figure_path, law="G23", rv=3.1, replace=False):
+    """Colour–temperature diagram of the first `PLOT_ROWS` rows of a results file."""
+    from stelltemp.catalog.tableio import STREAMING, ChunkReader, arrow_to_astropy
+    from stelltemp.plots import plot_catalogue_results
+
+    reader = ChunkReader(results_path, chunk_rows=PLOT_ROWS)
+    first = next(iter(reader), None)
+    if first is None:
+        raise StelltempError(f"{results_path}: no rows to plot")
+    table = arrow_to_astropy(first) if reader.fmt in STREAMING else first[:PLOT_ROWS]
+    return plot_catalogue_results(table, figure_path, law=law, rv=rv, replace=replace)
