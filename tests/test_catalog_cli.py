@@ -94,3 +94,4 @@ def test_plot_of_the_results(tmp_path, capsys):
     assert fig.read_bytes()[:4] == b"\x89PNG"
     assert run_cli(_parse(["catalogue", str(inp), str(tmp_path / "o2.ecsv"), "--plot", str(fig), "--quiet"])) == 2
     assert "already exists" in capsys.readouterr().err
+    assert not (tmp_path / "o2.ecsv").exists()  # refused before any work

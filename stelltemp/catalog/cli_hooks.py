@@ -14,6 +14,7 @@ Exit codes: 0 done, 2 bad input (one line on stderr).
 from __future__ import annotations
 
 import sys
+from pathlib import Path
 
 from stelltemp.errors import StelltempError
 
@@ -72,6 +73,8 @@ def run_cli(args, engine=None):
     try:
         if args.chunk_rows < 1:
             raise StelltempError("--chunk-rows must be at least 1")
+        if args.plot and Path(args.plot).exists() and not args.replace:  # refuse before the long run
+            raise StelltempError(f"{args.plot}: already exists (add --replace to replace it)")
         common = dict(
             mapping=args.columns, ebv=args.ebv, ebv_err=args.ebv_err, rv=args.rv, law=args.law,
             method=args.method, fit_ebv=args.fit_ebv, overwrite=args.replace, quiet=args.quiet,
