@@ -174,14 +174,19 @@ def as_kelvin(temperature):
     return t
 
 
-def _as_angstrom(wavelength):
-    if isinstance(wavelength, u.Quantity):
-        w = wavelength.to_value(u.AA, equivalencies=u.spectral())
+def _spectral_values(value, unit, what):
+    """Wavelengths or frequencies as floats in ``unit`` (Quantities converted), checked positive."""
+    if isinstance(value, u.Quantity):
+        out = value.to_value(unit, equivalencies=u.spectral())
     else:
-        w = np.asarray(wavelength, float)
-    if np.any(~np.isfinite(w) | (w <= 0)):
-        raise StelltempError("wavelengths must be finite and positive")
-    return w
+        out = np.asarray(value, float)
+    if np.any(~np.isfinite(out) | (out <= 0)):
+        raise StelltempError(f"{what} must be finite and positive")
+    return out
+
+
+def _as_angstrom(wavelength):
+    return _spectral_values(wavelength, u.AA, "wavelengths")
 
 
 def radiance_lambda(temperature, wavelength):
@@ -192,12 +197,7 @@ def radiance_lambda(temperature, wavelength):
 
 def radiance_nu(temperature, frequency):
     """B_ν(T) as a Quantity in W m⁻² Hz⁻¹ sr⁻¹ (frequency: Quantity or Hz)."""
-    if isinstance(frequency, u.Quantity):
-        nu = frequency.to_value(u.Hz, equivalencies=u.spectral())
-    else:
-        nu = np.asarray(frequency, float)
-    if np.any(~np.isfinite(nu) | (nu <= 0)):
-        raise StelltempError("frequencies must be finite and positive")
+    nu = _spectral_values(frequency, u.Hz, "frequencies")
     b = planck_nu_cgs(as_kelvin(temperature), nu)
     return (b * u.erg / u.s / u.cm**2 / u.Hz / u.sr).to(u.W / u.m**2 / u.Hz / u.sr)
 
