@@ -155,15 +155,21 @@ def inside(temperature_k, ebv):
     return (t >= T_MIN) & (t <= T_MAX) & (e >= E_MIN - 1e-12) & (e <= E_MAX + 1e-12)
 
 
+def band_weights(passband):
+    """(λ, w): integration wavelengths (Å) and weights with Σ w F_λ = ∫ F_λ λ S dλ."""
+    band = get_passband(passband)
+    lam = band.integration_grid
+    return lam, trapezoid_weights(lam) * lam * band.photon_response_at(lam)
+
+
 def blackbody_band_terms(band, temperature_k, ebv, law=DEFAULT_LAW, rv=DEFAULT_RV):
     """Direct integration: M, ∂M/∂lnT, ∂M/∂E, ∂²M/∂lnT∂E for a grid of T × E.
 
     Returns four arrays of shape (len(T), len(E)).  This is the brute-force
     computation the tables are built from, also used to check them.
     """
+    lam, weight = band_weights(band)
     band = get_passband(band)
-    lam = band.integration_grid
-    weight = trapezoid_weights(lam) * lam * band.photon_response_at(lam)
     t = np.atleast_1d(np.asarray(temperature_k, float))
     e = np.atleast_1d(np.asarray(ebv, float))
     b = planck_lambda_cgs(t[:, None], lam[None, :]) * weight  # (nT, nλ)

@@ -25,7 +25,7 @@ import numpy as np
 from .. import bandgrid as bg
 from ..errors import StelltempError
 from ..extinction import DEFAULT_LAW, DEFAULT_RV, relative_extinction
-from ..passbands import get_passband
+from ..photometry import mag_offset
 from . import flags as fl
 
 _BLOCK = 1 << 15  # stars per block of the inversion
@@ -48,13 +48,11 @@ def _pair(blue, red, law, rv):
 
 def _rayleigh_jeans_mag(key, ebv, law, rv):
     """Magnitude of the T-independent shape 1/λ⁴ (times λ S dλ), reddened, plus the band offset."""
-    band = get_passband(key)
-    lam = band.integration_grid
-    weight = bg.trapezoid_weights(lam) * lam * band.photon_response_at(lam)
+    lam, weight = bg.band_weights(key)
     k = relative_extinction(lam, law, rv)
     tau = 10 ** (-0.4 * rv * np.outer(ebv, k))
     integral = tau @ (weight / lam**4)
-    return -2.5 * np.log10(integral) + bg.mag_offset(band)
+    return -2.5 * np.log10(integral) + mag_offset(key)
 
 
 def rayleigh_jeans_colour(blue, red, ebv=0.0, law=DEFAULT_LAW, rv=DEFAULT_RV):
