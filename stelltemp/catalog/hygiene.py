@@ -27,6 +27,7 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
+from stelltemp.engine import ABSURD_MAG, MAX_MAG_ERR
 from stelltemp.engine import flags as F
 
 #: plausible range of each kind of input; anything outside is ABSURD_VALUE.
@@ -35,10 +36,10 @@ from stelltemp.engine import flags as F
 LIMITS = {
     # |mag| <= 40 : common practice (the brightest and faintest catalogued
     # objects lie well within it)
-    "mag": (-40.0, 40.0),
+    "mag": (-ABSURD_MAG, ABSURD_MAG),
     # a 1-sigma error is non-negative; above 5 mag it carries no information
-    # (the same limit as the engine's own check): common practice
-    "err": (0.0, 5.0),
+    # (the engine's own limit): common practice
+    "err": (0.0, MAX_MAG_ERR),
     # E(B-V): slightly negative values occur in noisy reddening maps; the most
     # reddened sight lines stay far below 30 mag (from memory)
     "ebv": (-1.0, 30.0),

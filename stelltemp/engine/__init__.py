@@ -37,6 +37,8 @@ BLACKBODY_NOTE = ("t_bb is a blackbody colour temperature, not an effective temp
 METHODS = ("auto", "colour", "fit")
 #: magnitudes beyond this are taken as absurd (flagged, band dropped)
 ABSURD_MAG = 40.0
+#: a 1-sigma magnitude error above this carries no information (flagged, band dropped)
+MAX_MAG_ERR = 5.0
 DEFAULT_MAG_ERR = 0.03
 
 
@@ -67,7 +69,7 @@ def _clean_photometry(mags, errs, keys, n):
         m[:, b] = _column(mags[k], n, f"magnitudes in {k}")
         e[:, b] = _column(errs.get(k), n, f"errors in {k}", DEFAULT_MAG_ERR)
     with np.errstate(invalid="ignore"):
-        absurd = (np.abs(m) > ABSURD_MAG) | (e < 0) | (e > 5)
+        absurd = (np.abs(m) > ABSURD_MAG) | (e < 0) | (e > MAX_MAG_ERR)
         flags[np.any(absurd & np.isfinite(m), axis=1)] |= fl.ABSURD_VALUE
         m[absurd | ~np.isfinite(m)] = np.nan
         e[~np.isfinite(e)] = DEFAULT_MAG_ERR
