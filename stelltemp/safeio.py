@@ -68,3 +68,33 @@ def save_table(table, path, fmt, replace=False):
     except OSError as exc:
         raise StelltempError(f"cannot write {path}: {exc.strerror or exc}") from None
     return str(path)
+
+
+def read_text_file(path, what):
+    """The text of a UTF-8 file the user named, or one plain `StelltempError` line.
+
+    Parameters
+    ----------
+    path : path-like
+    what : str
+        What the file is, for the message (e.g. ``"column map"``).
+
+    Examples
+    --------
+    >>> read_text_file("/no/such/file.toml", "column map")
+    Traceback (most recent call last):
+    ...
+    stelltemp.errors.StelltempError: cannot read column map /no/such/file.toml: no such file or directory
+    """
+    from .errors import decode_position, shorten
+
+    name = shorten(path)
+    try:
+        data = Path(path).expanduser().read_bytes()
+    except OSError as exc:
+        raise StelltempError(f"cannot read {what} {name}: {(exc.strerror or 'read error').lower()}") from None
+    try:
+        return data.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        where, byte = decode_position(exc)
+        raise StelltempError(f"{what} {name}: {where}: not UTF-8 text (byte {byte})") from None
