@@ -819,6 +819,8 @@ class AstropySink(Sink):
             warnings.simplefilter("ignore")  # HIERARCH / unit-string chatter
             if self.fmt == "fits":
                 for key, val in self.run_meta.items():
+                    if isinstance(val, str):  # FITS header text is ASCII
+                        val = val.encode("ascii", "backslashreplace").decode("ascii")
                     table.meta[FITS_KEYS.get(key, key[:8].upper())] = val
                 table.write(self.tmp, format="fits", overwrite=True)
             elif self.fmt == "votable":
