@@ -73,8 +73,10 @@ def run_cli(args, engine=None):
     try:
         if args.chunk_rows < 1:
             raise StelltempError("--chunk-rows must be at least 1")
-        if args.plot and Path(args.plot).exists() and not args.replace:  # refuse before the long run
-            raise StelltempError(f"{args.plot}: already exists (add --replace to replace it)")
+        if args.plot:  # refuse before the long run: folder, format, existing file
+            from stelltemp.safeio import check_figure_path
+
+            check_figure_path(args.plot, args.replace)
         common = dict(
             mapping=args.columns, ebv=args.ebv, ebv_err=args.ebv_err, rv=args.rv, law=args.law,
             method=args.method, fit_ebv=args.fit_ebv, overwrite=args.replace, quiet=args.quiet,
@@ -90,7 +92,7 @@ def run_cli(args, engine=None):
 
             summary = run_catalogue(args.input, args.output, chunk_rows=args.chunk_rows, **common)
     except StelltempError as exc:
-        text = str(exc).replace("(allow replacing it explicitly)", "(add --replace to replace it)")
+        text = str(exc).replace("(allow replacing it explicitly, e.g. with --replace)", "(add --replace to replace it)")
         print(f"stelltemp: error: {text}", file=sys.stderr)
         return 2
     if args.plot:

@@ -47,7 +47,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from stelltemp.errors import StelltempError
-from stelltemp.safeio import atomic_path
+from stelltemp.safeio import atomic_path, check_output_path
 
 #: extension (lower case) -> format name
 EXTENSIONS = {
@@ -656,17 +656,16 @@ def apply_types(chunk, types):
 def check_output(path, overwrite=False, input_path=None):
     """Refuse to replace an existing output (or the input) before any work starts."""
     path = Path(path)
-    table_format(path)
-    if input_path is not None and Path(input_path).resolve() == path.resolve():
-        raise StelltempError(f"{path}: the output would replace the input")
-    if path.is_dir():
-        raise StelltempError(f"{path}: is a folder")
-    if not overwrite:
-        for p in (path, Path(str(path) + SIDECAR_SUFFIX)) if table_format(path) == "csv" else (path,):
-            if p.exists():
-                raise StelltempError(f"{p}: already exists (allow replacing it explicitly)")
-    if not path.parent.exists():
-        raise StelltempError(f"{path.parent}: no such folder")
+    fmt = table_format(path)
+    if input_path is not None:
+        try:
+            same = Path(input_path).resolve() == path.resolve()
+        except OSError:
+            same = False
+        if same:
+            raise StelltempError(f"{path}: the output would replace the input")
+    for p in (path, Path(str(path) + SIDECAR_SUFFIX)) if fmt == "csv" else (path,):
+        check_output_path(p, overwrite)
 
 
 # --------------------------------------------------------------------- sinks
