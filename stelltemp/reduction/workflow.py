@@ -64,7 +64,7 @@ def _setups(instrument, filters_seen, second_order):
 
 def standardise_night(observations, standards, instrument, fit_out, *, targets_out=None, temperatures_out=None,
                       plot_out=None, replace=False, second_order=(), clip=None, predicted="check",
-                      extinction_prior=False, progress=None):
+                      extinction_prior=False, ebv=None, ebv_err=None, law=None, rv=None, progress=None):
     """Fit the night's transformation and apply it to the targets, writing files.
 
     Parameters
@@ -87,6 +87,9 @@ def standardise_night(observations, standards, instrument, fit_out, *, targets_o
         ("check"), also use them as priors ("prior"), or skip.
     extinction_prior : bool
         Use the instrument file's extinction coefficients as priors (±0.05 mag per airmass).
+    ebv, ebv_err, law, rv : optional
+        Reddening for the temperature run (as in :func:`stelltemp.catalog.estimate_table`;
+        default E(B−V) = 0, G23, R_V = 3.1).
     progress : callable, optional
         Called with a short text at each step.
 
@@ -183,7 +186,8 @@ def standardise_night(observations, standards, instrument, fit_out, *, targets_o
             from ..catalog import estimate_table
 
             eng_in = table[["star", "visit"] + [c for b in sp.bands for c in (b, f"{b}_err")]]
-            res = estimate_table(eng_in)
+            red = {k: v for k, v in (("ebv", ebv), ("ebv_err", ebv_err), ("law", law), ("rv", rv)) if v is not None}
+            res = estimate_table(eng_in, **red)
             res.meta["note_reduction"] = table.meta["errors"]
             written["temperatures"] = write_table(res, temperatures_out, overwrite=replace) or str(temperatures_out)
             summary_targets["t_bb_median_K"] = float(np.nanmedian(np.asarray(res["t_bb"], float)))
