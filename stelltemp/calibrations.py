@@ -566,58 +566,15 @@ def combine_teff(colours, errors=None, feh=None, logg=None):
 
 
 # -------------------------------------------------------------- CLI hook
-def add_cli(subparsers):
-    """Register the ``relations`` subcommand (for the lead to wire into cli.py)."""
-    p = subparsers.add_parser(
-        "relations", help="list empirical colour-Teff relations, or apply one to a colour")
-    p.add_argument("--bands", nargs="+", metavar="BAND",
-                   help="only relations whose two passbands are among these keys")
-    p.add_argument("--use", metavar="KEY", help="relation key to apply, e.g. c10_vk")
-    p.add_argument("--colour", type=float, help="dereddened colour (mag) for --use")
-    p.add_argument("--colour-error", type=float, default=0.0, help="1-sigma colour error (mag)")
-    p.add_argument("--feh", type=float, default=None, help="[Fe/H] (dex); default solar, 0.0")
-    p.add_argument("--json", action="store_true", help="machine-readable output")
-    p.set_defaults(func=run_cli)
-    return p
+def relation_summary(relation):
+    """A relation's key, colour, stage, validity ranges, scatter and citation as a plain dict.
 
-
-def _relation_summary(r):
+    Examples
+    --------
+    >>> relation_summary(get_relation("c10_vk"))["colour"]
+    'V-Ks'
+    """
+    r = relation
     return {"key": r.key, "colour": r.colour_name, "blue": r.blue, "red": r.red, "stage": r.stage,
             "colour_range_mag": list(r.colour_range), "feh_range_dex": list(r.feh_range),
             "scatter_K": r.scatter, "citation": str(r.citation)}
-
-
-def run_cli(args):
-    """Run the ``relations`` subcommand; returns the exit code."""
-    from stelltemp.cli import emit_json
-
-    if args.use is None:
-        rels = relations_for(args.bands) if args.bands else relations()
-        if args.json:
-            emit_json({"relations": [_relation_summary(r) for r in rels]})
-            return 0
-        for r in rels:
-            print(f"{r.key:18s} {r.colour_name:7s} {r.stage:5s} "
-                  f"X in [{r.colour_range[0]:.2f}, {r.colour_range[1]:.2f}]  "
-                  f"[Fe/H] in [{r.feh_range[0]:.1f}, {r.feh_range[1]:.1f}]  "
-                  f"scatter {r.scatter:.0f} K  ({r.citation})")
-        return 0
-    if args.colour is None:
-        raise StelltempError("--use needs --colour")
-    res = combine_teff({args.use: [args.colour]}, {args.use: [args.colour_error]},
-                       feh=None if args.feh is None else [args.feh])
-    rel = get_relation(args.use)
-    applied = not res.none_applicable[0]
-    if args.json:
-        emit_json({"relation": _relation_summary(rel), "colour_mag": args.colour,
-                   "teff_K": float(res.teff[0]) if applied else None,
-                   "teff_err_K": float(res.teff_err[0]) if applied else None,
-                   "feh_assumed": bool(res.feh_assumed[0]), "inside_range": bool(applied)})
-        return 0 if applied else 1
-    if not applied:
-        print(f"{rel.label}: colour {args.colour:.3f} or [Fe/H] outside the published range; "
-              "no temperature")
-        return 1
-    note = " ([Fe/H] = 0 assumed)" if res.feh_assumed[0] else ""
-    print(f"{rel.label}: Teff = {res.teff[0]:.0f} +/- {res.teff_err[0]:.0f} K{note}  ({rel.citation})")
-    return 0

@@ -1,6 +1,5 @@
 """Tests of the empirical colour–T_eff relations (stelltemp.calibrations)."""
 
-import argparse
 import shutil
 
 import numpy as np
@@ -332,15 +331,12 @@ def test_load_relations_checks_tables(tmp_path):
 
 
 # -------------------------------------------------------------- CLI hook
-def test_cli_hook(capsys):
-    parser = argparse.ArgumentParser()
-    cal.add_cli(parser.add_subparsers())
-    args = parser.parse_args(["relations", "--bands", "jc.V", "2mass.Ks"])
-    assert args.func(args) == 0
+def test_cli_relations(capsys):
+    from stelltemp.cli import main
+
+    assert main(["relations", "--bands", "jc.V", "2mass.Ks"]) == 0
     out = capsys.readouterr().out
     assert "c10_vk" in out and "c10_bv" not in out
-    args = parser.parse_args(["relations", "--use", "c10_vk", "--colour", "1.56"])
-    assert args.func(args) == 0
+    assert main(["relations", "--use", "c10_vk", "--colour", "1.56"]) == 0
     assert "Teff = 5755" in capsys.readouterr().out
-    args = parser.parse_args(["relations", "--use", "c10_vk", "--colour", "5.0"])
-    assert args.func(args) == 1
+    assert main(["relations", "--use", "c10_vk", "--colour", "5.0"]) == 1
