@@ -72,7 +72,7 @@ def test_non_utf8_cell_through_the_cli_in_a_child_process_exits_cleanly(tmp_path
     inp = tmp_path / "in.csv"
     inp.write_bytes(("\n".join([HEADER] + _lines()) + "\n").encode().replace(b"9.60", b"9.\xe90"))
     proc = subprocess.run([sys.executable, "-m", "stelltemp.cli", "catalogue", str(inp),
-                           str(tmp_path / "o.parquet"), "--quiet"], capture_output=True, text=True)
+                           "-o", str(tmp_path / "o.parquet"), "--quiet"], capture_output=True, text=True)
     assert proc.returncode == 0, proc.stderr
     assert "terminate" not in proc.stderr and proc.stderr == ""
     back = read_table(tmp_path / "o.parquet")
@@ -145,7 +145,7 @@ def test_bad_ebv_cells_give_nan_results_with_a_reason_real_engine(tmp_path):
 def test_ebv_option_outside_the_kernel_grid_says_why(tmp_path, capsys):
     inp = tmp_path / "in.csv"
     inp.write_text("\n".join([HEADER] + _lines(3)) + "\n")
-    assert main(["catalogue", str(inp), str(tmp_path / "o.csv"), "--ebv", "10"]) == 2
+    assert main(["catalogue", str(inp), "-o", str(tmp_path / "o.csv"), "--ebv", "10"]) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert err == ["stelltemp: error: ebv (E(B-V)) must be a finite number in [-0.5, 6] mag, got 10"]
 
@@ -160,7 +160,7 @@ def test_engine_api_bad_reddening_per_star_gives_nan_not_zero_reddening():
 def test_fits_vector_column_mapped_as_a_band_is_refused_in_one_line(tmp_path, capsys):
     t = Table({"name": ["a", "b"], "jc.B": [10.0, 11.0], "jc.V": [[9.5, 9.6], [10.5, 10.6]]})
     t.write(tmp_path / "in.fits")
-    assert main(["catalogue", str(tmp_path / "in.fits"), str(tmp_path / "o.csv")]) == 2
+    assert main(["catalogue", str(tmp_path / "in.fits"), "-o", str(tmp_path / "o.csv")]) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert err == ["stelltemp: error: column 'jc.V' holds several values per row (a vector column): "
                    "map a column with one value per row"]
