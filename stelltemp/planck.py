@@ -295,7 +295,13 @@ def blackbody_report(temperature, radius=None, wavelength=None):
     >>> round(rep["peak_wavelength_B_lambda_nm"], 1), round(rep["luminosity_Lsun"], 3)
     (502.0, 1.0)
     """
-    t = float(as_kelvin(temperature)) * u.K
+    from .validation import check_number
+
+    t = check_number("temperature", float(as_kelvin(temperature))) * u.K
+    if radius is not None and not isinstance(radius, u.Quantity):
+        check_number("radius", radius)
+    if wavelength is not None and not isinstance(wavelength, u.Quantity):
+        check_number("wavelength", wavelength)
     nu_peak = peak_frequency(t)
     out = {
         "temperature_K": float(t.value),

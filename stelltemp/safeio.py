@@ -26,7 +26,7 @@ from pathlib import Path
 
 from .errors import StelltempError, shorten
 
-EXISTS_HINT = "already exists (allow replacing it explicitly, e.g. with --replace)"
+EXISTS_HINT = "already exists (add --replace to replace it; replace=True in Python)"
 #: ending of every temporary file of ours
 PART_SUFFIX = ".stelltemp-part"
 _PART_RE = re.compile(r"^\..*\.(\d+)-[0-9a-f]{8}" + re.escape(PART_SUFFIX) + "$")

@@ -140,15 +140,10 @@ SIZE_LIMITS = {
 
 #: night-plan time step, minutes: below 0.5 min the grid of a long night has
 #: thousands of points per target with nothing gained (airmass changes slowly)
-STEP_MINUTES = Range(0.5, 120.0, "min", "time step")
+STEP_MINUTES = Range(0.5, 60.0, "min", "time step")
 
 #: the most memory one command may plan to use for its work arrays
 MEMORY_LIMIT_BYTES = 2 << 30
-
-
-def _label(name, option):
-    what = RANGES[name].what if name in RANGES else SIZE_LIMITS[name][2]
-    return f"{option or name} ({what})"
 
 
 def parse_number(value, name, option=None):
@@ -190,7 +185,9 @@ def check_number(name, value, option=None, rng=None):
     rng = rng or RANGES[name]
     v = parse_number(value, name, option)
     if not bool(rng.holds(v)):
-        label = f"{option or name} ({rng.what})"
+        label = option or name
+        if rng.what.lower() != label.strip("-").replace("_", " ").lower():
+            label += f" ({rng.what})"
         raise StelltempError(f"{label} must be a finite number in {rng.text()}, got {_short(value)}")
     return v
 

@@ -96,23 +96,58 @@ def _closed_pipe():
     return EXIT_CLOSED_PIPE
 
 
+#: options naming a file the command writes: checked before any work starts
+_WRITTEN = (("plot", "figure"), ("output", "output"), ("temperatures", "output"))
+
+
+def check_written_paths(args):
+    """Refuse unusable output and figure paths (folder, name length, format, existing file) up front."""
+    from ..safeio import check_figure_path, check_output_path
+
+    replace = bool(getattr(args, "replace", False))
+    for attr, kind in _WRITTEN:
+        path = getattr(args, attr, None)
+        if not isinstance(path, str) or (attr == "output" and args.command == "tour"):  # tour: a folder
+            continue
+        if kind == "figure":
+            check_figure_path(path, replace)
+        else:
+            check_output_path(path, replace)
+
+
+def one_line(text):
+    """A message as one line (line breaks of library messages folded)."""
+    return " ".join(str(text).split())
+
+
 def run_parsed(args, **run_options):
     """Run parsed arguments; one line on stderr for bad input; return the exit code.
 
     ``run_options`` go to the subcommand's ``run`` (tests pass stand-ins, e.g.
-    ``engine=`` for ``catalogue``, ``out=``/``err=`` streams).
+    ``engine=`` for ``catalogue``, ``out=``/``err=`` streams).  SIGTERM
+    interrupts like Ctrl-C (temporary files are removed); temporary files
+    left in an output folder by killed runs are reported, or removed with
+    ``--sweep-leftovers``.
     """
+    from ..errors import plain_reason
+    from ..safeio import describe_leftovers, leftover_mode, terminate_as_interrupt
+
     try:
-        code = int(args.run(args, **run_options) or 0)
+        mode = "remove" if getattr(args, "sweep_leftovers", False) else "report"
+        with terminate_as_interrupt(), leftover_mode(mode) as leftovers:
+            check_written_paths(args)
+            code = int(args.run(args, **run_options) or 0)
+        for line in describe_leftovers(leftovers):
+            print(f"stelltemp: note: {line}", file=sys.stderr)
         sys.stdout.flush()
         return code
     except BrokenPipeError:
         return _closed_pipe()
     except StelltempError as exc:
-        print(f"stelltemp: error: {exc}", file=sys.stderr)
+        print(f"stelltemp: error: {one_line(exc)}", file=sys.stderr)
         return EXIT_BAD_INPUT
-    except (OSError, ValueError) as exc:
-        print(f"stelltemp: error: {exc.__class__.__name__}: {exc}", file=sys.stderr)
+    except (OSError, ValueError, MemoryError, OverflowError, RecursionError) as exc:
+        print(f"stelltemp: error: {one_line(plain_reason(exc))}", file=sys.stderr)
         return EXIT_BAD_INPUT
     except KeyboardInterrupt:
         print("stelltemp: interrupted", file=sys.stderr)
@@ -120,7 +155,7 @@ def run_parsed(args, **run_options):
     except Exception as exc:  # a bug of ours: one line, unless debugging
         if os.environ.get("STELLTEMP_DEBUG"):
             raise
-        print(f"stelltemp: internal error: {exc.__class__.__name__}: {exc} "
+        print(f"stelltemp: internal error: {one_line(plain_reason(exc))} "
               "(set STELLTEMP_DEBUG=1 for the traceback, and please report it)", file=sys.stderr)
         return 1
 

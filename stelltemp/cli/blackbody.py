@@ -2,7 +2,6 @@
 
 import sys
 
-from ..errors import StelltempError
 from . import options
 from .output import emit_json, number
 
@@ -35,10 +34,6 @@ def run(args, out=None, err=None):
 
     out = out or sys.stdout
     t = parse_temperature(args.temperature, args.unit)
-    if args.radius is not None and not (args.radius > 0):
-        raise StelltempError(f"radius must be positive, got {args.radius}")
-    if args.wavelength is not None and not (args.wavelength > 0):
-        raise StelltempError(f"wavelength must be positive, got {args.wavelength}")
     rep = blackbody_report(t, args.radius, args.wavelength)
     if args.plot:
         from ..plots import plot_spectrum_with_passbands

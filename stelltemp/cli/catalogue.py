@@ -80,7 +80,7 @@ def run(args, out=None, err=None, engine=None):
 
             summary = run_catalogue(args.input, target, chunk_rows=args.chunk_rows, **common)
     except StelltempError as exc:
-        text = str(exc).replace("(allow replacing it explicitly, e.g. with --replace)", "(add --replace to replace it)")
+        text = str(exc).replace("(allow replacing it explicitly)", "(add --replace to replace it)")
         raise StelltempError(text) from None
     if args.plot:
         from ..catalog.figure import plot_results

@@ -36,9 +36,14 @@ def run(args, out=None, err=None):
     if args.temps:
         temps = np.array([parse_temperature(x).value for x in args.temps])
     else:
-        if not (0 < args.tmin < args.tmax) or args.steps < 2:
-            raise StelltempError("need 0 < --tmin < --tmax and --steps >= 2")
-        temps = np.geomspace(args.tmin, args.tmax, args.steps)
+        from ..validation import check_number, check_size
+
+        steps = check_size("steps", args.steps, "--steps")
+        tmin = check_number("teff", args.tmin, "--tmin")
+        tmax = check_number("teff", args.tmax, "--tmax")
+        if not tmin < tmax:
+            raise StelltempError(f"--tmin ({tmin:g} K) must be below --tmax ({tmax:g} K)")
+        temps = np.geomspace(tmin, tmax, steps)
     mags, colours = colour_grid(args.bands, temps, args.ebv, args.law, args.rv)
     bands = list(mags)
     if args.plot:

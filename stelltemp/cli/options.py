@@ -64,7 +64,11 @@ def add_json(p):
 
 
 def add_replace(p, what="the --output or --plot file"):
+    """``--replace`` and ``--sweep-leftovers`` (every command that writes files has both)."""
     p.add_argument("--replace", action="store_true", help=f"allow replacing an existing {what}")
+    p.add_argument("--sweep-leftovers", action="store_true",
+                   help="remove temporary files that killed stelltemp runs left in the output folder "
+                        "(they are reported otherwise)")
 
 
 def add_plot(p, what):

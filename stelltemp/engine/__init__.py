@@ -25,7 +25,7 @@ from ..calibrations import ASSUMED_STAGE, combine_teff, coverage_notes, relation
 from ..errors import StelltempError
 from ..extinction import DEFAULT_LAW, DEFAULT_RV, check_law
 from ..passbands import get_passband
-from ..validation import RANGES
+from ..validation import RANGES, check_memory, check_number, check_size
 from . import flags as fl
 from .colour import colour_interval, invert_colour
 from .derived import angular_diameter_mas, derived_quantities
@@ -163,9 +163,13 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
         raise StelltempError(f"method 'colour' takes exactly two bands, got {len(keys)}")
     if fit_ebv and len(keys) < 3:
         raise StelltempError("fitting E(B−V) needs at least three bands")
-    if int(monte_carlo) < 0:
-        raise StelltempError("monte_carlo must be 0 or a positive number of samples")
+    _check_scalars(ebv=ebv, ebv_err=ebv_err, av=av, av_err=av_err, parallax=parallax,
+                   parallax_err=parallax_err, feh=feh, logg=logg)
+    monte_carlo = check_size("monte_carlo", monte_carlo)
     n_rows = max((np.size(v) for v in mags.values()), default=0)
+    # the Monte Carlo holds about (4 per band + 16) float64 arrays of n_rows × samples
+    check_memory(f"monte_carlo = {monte_carlo} for {n_rows} star(s)",
+                 8.0 * n_rows * monte_carlo * (4 * len(keys) + 16), "use fewer samples or fewer stars at once")
     if n_rows > BLOCK_ROWS and not monte_carlo and isinstance(mags, dict):
         per_star = dict(mags=mags, errs=errs, ebv=ebv, ebv_err=ebv_err, av=av, av_err=av_err,
                         parallax=parallax, parallax_err=parallax_err, feh=feh, logg=logg)
@@ -258,6 +262,17 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
                              f"log g not given: {ASSUMED_STAGE} relations assumed for every star"),
     })
     return table
+
+
+def _check_scalars(**values):
+    """One number for every star must lie in its documented range (:mod:`stelltemp.validation`).
+
+    Arrays are checked star by star instead: a bad value flags that star.
+    """
+    for name, value in values.items():
+        if value is None or isinstance(value, u.Quantity) or np.ndim(value) != 0:
+            continue
+        check_number(name, value)
 
 
 RESULT_COLUMNS = (

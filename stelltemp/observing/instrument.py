@@ -582,8 +582,8 @@ def parse_instrument(text: str, base_dir=None, source: str = "<instrument>") -> 
     for key in ("telescope", "camera", "site"):
         if key not in data:
             raise ctx.fail("top level", f"missing [{key}] table", None)
-    if "filter" not in data:
-        raise ctx.fail("top level", "no [[filter]] entries", None)
+    if "filter" not in data or data["filter"] == []:
+        raise ctx.fail("top level", "no [[filter]] entries (an instrument needs at least one filter)", None)
     if not isinstance(data["filter"], list):
         raise ctx.fail("top level", "filters must be written as [[filter]] tables", ctx.top_line("filter"))
     filters = {}

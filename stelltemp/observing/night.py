@@ -87,8 +87,9 @@ def _local_noon(date, longitude_deg) -> Time:
 
 def night_grid(date, site, step_min=10.0) -> Time:
     """Times from local noon of ``date`` to the next local noon, every ``step_min`` minutes."""
-    if not (0 < step_min <= 60):
-        raise StelltempError(f"time step must be between 0 and 60 minutes, got {step_min!r}")
+    from ..validation import STEP_MINUTES, check_number
+
+    check_number("step", step_min, rng=STEP_MINUTES)
     start = _local_noon(date, site.longitude_deg)
     n = int(round(24 * 60 / step_min)) + 1
     with offline_iers():

@@ -33,6 +33,7 @@ from astropy.coordinates import Angle
 from astropy.table import Table
 
 from ..errors import StelltempError
+from ..validation import STEP_MINUTES
 from . import ccd, counts, psf
 from .airmass import airmass_kasten_young
 from .instrument import Instrument
@@ -163,13 +164,15 @@ def _build_table(rows, columns, meta):
     return t
 
 
-def _check_goal(snr, exposure_s):
+def _check_goal(snr, exposure_s, seeing_arcsec=None):
+    """The user's numbers of a plan, against their documented ranges (:mod:`stelltemp.validation`)."""
+    from ..validation import check_optional
+
     if snr is None and exposure_s is None:
         raise StelltempError("give a target S/N, an exposure time, or both")
-    if snr is not None and not (math.isfinite(snr) and snr > 0):
-        raise StelltempError(f"target S/N must be positive, got {snr!r}")
-    if exposure_s is not None and not (math.isfinite(exposure_s) and exposure_s > 0):
-        raise StelltempError(f"exposure time must be positive, got {exposure_s!r}")
+    check_optional("snr", snr)
+    check_optional("exposure", exposure_s)
+    check_optional("seeing", seeing_arcsec)
 
 
 def plan_target(instrument: Instrument, mag, band=None, teff=None, *, ebv=0.0, snr=None, exposure_s=None, airmass=1.0,
@@ -217,7 +220,13 @@ def plan_target(instrument: Instrument, mag, band=None, teff=None, *, ebv=0.0, s
     astropy.table.Table
         One row per filter; columns and units as listed in ``_FILTER_COLUMNS``.
     """
-    _check_goal(snr, exposure_s)
+    from ..validation import check_number, check_optional
+
+    _check_goal(snr, exposure_s, seeing_arcsec)
+    check_number("mag", mag)
+    check_number("airmass", airmass)
+    check_number("ebv", ebv)
+    check_optional("teff", teff)
     pb_band = _resolve_band(instrument, band)
     names = list(filters) if filters else list(instrument.filters)
     rows = []
@@ -413,8 +422,16 @@ def plan_night(instrument: Instrument, targets, date, *, snr=None, exposure_s=No
     from .safety import sun_warnings
 
     _check_goal(snr, exposure_s)
-    if not (0 <= min_alt_deg < 90):
-        raise StelltempError(f"minimum altitude must be 0–90 deg, got {min_alt_deg!r}")
+    from ..validation import check_memory, check_number
+
+    _check_goal(snr, exposure_s, options.get("seeing_arcsec"))
+    check_number("min_alt", min_alt_deg)
+    if min_alt_deg >= 90:
+        raise StelltempError(f"min_alt (lowest altitude) must be below 90 deg, got {min_alt_deg:g}")
+    n_times = 24 * 60 / check_number("step", step_min, rng=STEP_MINUTES) + 1
+    # altitudes, airmasses, Moon terms and masks: about 12 float64 arrays of targets × times
+    check_memory(f"a night plan of {len(targets)} targets every {step_min:g} min", 96.0 * len(targets) * n_times,
+                 "plan fewer targets at once or use a longer time step")
     if isinstance(targets, Table):
         targets = parse_targets(targets)
     night, loc, tw, dark, grid = _night_setup(instrument, date, step_min, sun_limit)
