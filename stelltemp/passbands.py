@@ -24,7 +24,7 @@ import numpy as np
 from astropy import units as u
 from astropy.table import Table
 
-from .errors import StelltempError
+from .errors import StelltempError, plain_reason
 
 __all__ = ["Passband", "get_passband", "builtin_keys", "load_passband_file", "registry_table"]
 
@@ -361,10 +361,11 @@ def load_passband_file(path, wave_unit=None, detector="photon", magsys="AB", key
     except StelltempError:
         raise
     except Exception as exc:  # astropy/numpy readers raise many types
-        raise StelltempError(f"{origin}: cannot read passband file ({exc.__class__.__name__}: {exc})") from None
+        raise StelltempError(f"{origin}: cannot read passband file ({plain_reason(exc)})") from None
     if unit is None:
         raise StelltempError(f"{origin}: wavelength unit unknown; give it in the file or as wave_unit")
     wave = (wave * unit).to_value(u.AA)
+    _check_extent(wave, origin)
     wave, resp = _checked_curve(wave, resp, origin)
     band = Passband(
         key=key or f"file:{path.stem}",
@@ -379,6 +380,18 @@ def load_passband_file(path, wave_unit=None, detector="photon", magsys="AB", key
     )
     _USER_BANDS[band.key] = band
     return band
+
+
+def _check_extent(wave_aa, origin):
+    """A user curve must lie within `validation.RANGES['curve_wavelength']` (its grid must fit in memory)."""
+    from .validation import RANGES
+
+    rng = RANGES["curve_wavelength"]
+    bad = ~rng.holds(np.asarray(wave_aa, float) / 10.0)
+    if np.any(bad):
+        first = np.asarray(wave_aa, float)[bad][0] / 10.0
+        raise StelltempError(f"{origin}: curve wavelengths must lie in {rng.text()} (got {first:g} nm); "
+                             f"beyond it no reference spectrum or extinction law is defined")
 
 
 def _pick_columns(tab, origin):

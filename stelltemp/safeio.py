@@ -266,7 +266,7 @@ def read_text_file(path, what):
     """
     from .errors import decode_position, shorten
 
-    name = shorten(path)
+    name = shorten(path, 160)
     try:
         data = Path(path).expanduser().read_bytes()
     except OSError as exc:

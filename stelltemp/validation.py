@@ -39,6 +39,10 @@ name                range                unit    why
 ``wavelength``      > 0 … 1e9            nm      1 m: beyond it a star's Planck
                                                  curve is radio, not photometry
 ``radius``          > 0 … 1e5            R_sun   larger than any star (from memory)
+``curve_wavelength``  10 … 1e5           nm      user passband curves: the reference
+                                                 spectra and extinction laws end
+                                                 within it; a 2 Å grid over it is
+                                                 at most 5e5 points (4 MB)
 ==================  ===================  ======  =====================================
 
 Sizes
@@ -124,6 +128,7 @@ RANGES = {
     "temperature": Range(0.0, 1e9, "K", "temperature", lo_open=True),
     "wavelength": Range(0.0, 1e9, "nm", "wavelength", lo_open=True),
     "radius": Range(0.0, 1e5, "R_sun", "radius", lo_open=True),
+    "curve_wavelength": Range(10.0, 1e5, "nm", "passband curve wavelength"),
 }
 
 #: name -> (smallest, largest, what): every size the user controls

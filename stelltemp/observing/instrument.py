@@ -60,7 +60,7 @@ from pathlib import Path
 import numpy as np
 from astropy import units as u
 
-from ..errors import StelltempError
+from ..errors import StelltempError, shorten
 
 __all__ = [
     "Curve",
@@ -388,10 +388,14 @@ class _Table:
             return default
         value = self.data[key]
         if isinstance(value, bool) or not isinstance(value, (int, float)):
-            raise self.error(key, f"'{key}' must be a number, got {value!r}")
-        if integer and not (isinstance(value, int) or float(value).is_integer()):
+            raise self.error(key, f"'{key}' must be a number, got {shorten(repr(value), 40)}")
+        try:
+            as_float = float(value)
+        except OverflowError:  # an integer with hundreds of digits
+            raise self.error(key, f"'{key}' is too large to be a number ({len(str(value))} digits)") from None
+        if integer and not (isinstance(value, int) or as_float.is_integer()):
             raise self.error(key, f"'{key}' must be a whole number, got {value!r}")
-        value = float(value)
+        value = as_float
         if not math.isfinite(value):
             raise self.error(key, f"'{key}' must be finite, got {value!r}")
         low_bad = lo is not None and (value <= lo if lo_open else value < lo)
@@ -448,6 +452,11 @@ def _make_curve(tab, key, wave, value, outside, what) -> Curve:
         raise tab.error(key, f"{what}: non-finite entries")
     if np.any(wave <= 0) or np.any(np.diff(wave) <= 0):
         raise tab.error(key, f"{what}: wavelengths must be positive and strictly increasing")
+    from ..validation import RANGES
+
+    extent = RANGES["curve_wavelength"]
+    if not np.all(extent.holds(wave / 10.0)):  # Å -> nm
+        raise tab.error(key, f"{what}: wavelengths must lie in {extent.text()}")
     if np.any(value < 0):
         raise tab.error(key, f"{what}: negative value {value.min():g}")
     if np.any(value > 1):
