@@ -96,13 +96,12 @@ def _in_blocks(call, n, per_star):
     blocks = [call(**{k: part(v, slice(i, i + BLOCK_ROWS)) for k, v in per_star.items()})
               for i in range(0, n, BLOCK_ROWS)]
     first = blocks[0]
-    table = QTable(meta=first.meta)
+    columns = {}
     for name in first.colnames:
-        cols = [b[name] for b in blocks]
-        joined = np.concatenate([np.asarray(getattr(c, "value", c)) for c in cols])
-        unit = getattr(first[name], "unit", None)
-        table[name] = joined * unit if isinstance(first[name], u.Quantity) else joined
-    return table
+        joined = np.concatenate([np.asarray(getattr(b[name], "value", b[name])) for b in blocks])
+        columns[name] = u.Quantity(joined, first[name].unit, copy=False) \
+            if isinstance(first[name], u.Quantity) else joined
+    return QTable(columns, meta=first.meta, copy=False)
 
 
 def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=DEFAULT_RV,
@@ -147,7 +146,10 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
     Returns
     -------
     QTable
-        One row per star; columns listed in :data:`RESULT_COLUMNS`.
+        One row per star; columns listed in :data:`RESULT_COLUMNS`.  The text
+        columns (``flag_names``, ``teff_cal_note``) hold str objects (dtype
+        object, one shared str per distinct text); ``.astype(str)`` makes
+        them fixed-width, as some writers (FITS) need.
     """
     if not isinstance(mags, dict) or len(mags) < 2:
         raise StelltempError("need magnitudes in at least two passbands")
@@ -242,7 +244,7 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
     table["teff_cal"] = cal.teff * u.K
     table["teff_cal_err"] = cal.teff_err * u.K
     table["n_cal"] = cal.n_used
-    table["teff_cal_note"] = np.asarray(cal_notes, dtype=str)
+    table["teff_cal_note"] = np.asarray(cal_notes, dtype=object)
     table["flags"] = flags
     table["flag_names"] = fl.describe_all(flags)
     table.meta.update({
