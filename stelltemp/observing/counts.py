@@ -162,6 +162,23 @@ def electron_rate_spectrum(wave, flam, instrument: Instrument, filter_name: str,
                  * extinction_factor(spec.extinction_mag_per_airmass, airmass))
 
 
+_TRANSMISSION_CACHE: dict = {}
+
+
+def _transmission(wave, ebv, law, rv):
+    """Dust transmission 10^(−0.4 R_V E(B−V) k(λ)), k(λ) cached per wavelength grid (the law is slow to evaluate)."""
+    from ..extinction import relative_extinction
+
+    w = np.asarray(wave, float)
+    key = (law, float(rv), w.shape, hash(w.tobytes()))
+    k = _TRANSMISSION_CACHE.get(key)
+    if k is None:
+        if len(_TRANSMISSION_CACHE) > 256:
+            _TRANSMISSION_CACHE.clear()
+        k = _TRANSMISSION_CACHE[key] = relative_extinction(w, law, rv)
+    return 10 ** (-0.4 * float(rv) * np.multiply.outer(np.asarray(ebv, float), k))
+
+
 def scaled_blackbody(teff, mag, band, ebv=0.0, law="G23", rv=3.1):
     """Evaluator of a (reddened) blackbody of ``teff`` with magnitude ``mag`` in ``band``.
 
@@ -182,7 +199,6 @@ def scaled_blackbody(teff, mag, band, ebv=0.0, law="G23", rv=3.1):
     callable
         ``flam(wave)`` → F_λ (erg s⁻¹ cm⁻² Å⁻¹) with shape (..., len(wave)).
     """
-    from ..extinction import transmission
     from ..passbands import get_passband
 
     pb = get_passband(band)
@@ -200,7 +216,7 @@ def scaled_blackbody(teff, mag, band, ebv=0.0, law="G23", rv=3.1):
 
     def reddened(wave):
         w = np.asarray(wave, float)
-        return planck_lambda_cgs(t[..., None], w) * transmission(w, e, law, rv)
+        return planck_lambda_cgs(t[..., None], w) * _transmission(w, e, law, rv)
 
     grid = band_grid(pb)
     m0 = -2.5 * np.log10(band_integral(grid, reddened(grid).reshape(-1, len(grid)), pb)) + mag_offset(pb)
@@ -221,7 +237,6 @@ def template_spectrum(mag, band, ebv=0.0, law="G23", rv=3.1):
         Å and erg s⁻¹ cm⁻² Å⁻¹; ``flam`` has shape (..., len(wave)) for
         array ``mag``/``ebv``.
     """
-    from ..extinction import transmission
     from ..passbands import get_passband
 
     pb = get_passband(band)
@@ -232,7 +247,7 @@ def template_spectrum(mag, band, ebv=0.0, law="G23", rv=3.1):
     if np.any(~np.isfinite(e)):
         raise StelltempError("E(B-V) must be finite")
     m, e = np.broadcast_arrays(np.asarray(mag, float), e)
-    red = f * transmission(w, e, law, rv) if np.any(e != 0) else np.broadcast_to(f, e.shape + f.shape)
+    red = f * _transmission(w, e, law, rv) if np.any(e != 0) else np.broadcast_to(f, e.shape + f.shape)
     m0 = -2.5 * np.log10(band_integral(w, red.reshape(-1, len(w)), pb)).reshape(e.shape) + mag_offset(pb)
     scale = 10.0 ** (-0.4 * (m - m0))
     return w, scale[..., None] * red
