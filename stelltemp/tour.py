@@ -19,9 +19,11 @@ README) and, in a fresh output folder:
 5. prints a short summary (with any Sun-safety warning of the observing
    module) and the paths.
 
-The demo folder sits at the top of the source tree, not inside the
-package, so it is looked for in the current directory and beside the
-package's parent directory.
+The demo folder sits at the top of the source tree (``catalogs_demo/``);
+the build copies the same files into the package (``stelltemp/demo_scenario``,
+see ``setup.py``), so an installed copy runs the tour from any directory.
+It is looked for in the current directory, then in the installed package,
+then beside the package in a source checkout.
 """
 
 from __future__ import annotations
@@ -35,12 +37,14 @@ from pathlib import Path
 import numpy as np
 
 from .errors import StelltempError
-from .jsonable import json_ready
+from .jsonable import json_ready, table_ready
 from .safeio import atomic_path, save_table
 
-__all__ = ["add_cli", "run_cli", "run_tour", "find_demo_dir", "load_scenario", "DEMO_DIRNAME", "SCENARIO_FILE"]
+__all__ = ["run_tour", "find_demo_dir", "load_scenario", "DEMO_DIRNAME", "SCENARIO_FILE"]
 
 DEMO_DIRNAME = "catalogs_demo"
+#: the demo's copy inside an installed package (made by setup.py at build time)
+PACKAGED_DEMO = "demo_scenario"
 SCENARIO_FILE = "scenario.toml"
 DEFAULT_OUT = "tour_output"
 #: passbands drawn under the showcase star's spectrum and in the blackbody-colour figure
@@ -55,7 +59,7 @@ _SCENARIO_KEYS = {"title": str, "date": str, "instrument": str, "targets": str, 
 
 # ------------------------------------------------------------------- inputs
 def find_demo_dir(explicit=None):
-    """The demo folder: ``explicit`` if given, else ./catalogs_demo, else the source tree's.
+    """The demo folder: ``explicit`` if given, else ./catalogs_demo, the installed copy or the source tree's.
 
     Raises
     ------
@@ -65,13 +69,14 @@ def find_demo_dir(explicit=None):
     if explicit is not None:
         candidates = [Path(explicit)]
     else:
-        candidates = [Path.cwd() / DEMO_DIRNAME, Path(__file__).resolve().parents[1] / DEMO_DIRNAME]
+        here = Path(__file__).resolve().parent
+        candidates = [Path.cwd() / DEMO_DIRNAME, here / PACKAGED_DEMO, here.parent / DEMO_DIRNAME]
     for c in candidates:
         if (c / SCENARIO_FILE).is_file():
             return c
     places = " and ".join(str(c) for c in dict.fromkeys(candidates))
     raise StelltempError(f"demo data not found (no {SCENARIO_FILE} in {places}); "
-                         "run the tour from a source checkout of stelltemp")
+                         "reinstall stelltemp (the package ships the demo) or give a source checkout's folder")
 
 
 def load_scenario(demo_dir):
@@ -231,7 +236,6 @@ def run_tour(out_dir=DEFAULT_OUT, *, replace=False, demo_dir=None, quiet=False, 
     from .catalog import run_catalogue
     from .engine import BLACKBODY_NOTE
     from .engine import flags as fl
-    from .observing.cli_hooks import table_to_jsonable
     from .observing.figures import plot_night, plot_snr_curves
     from .observing.instrument import load_instrument
     from .observing.plan import night_tracks, parse_targets, plan_night, plan_target, target_photometry
@@ -288,7 +292,7 @@ def run_tour(out_dir=DEFAULT_OUT, *, replace=False, demo_dir=None, quiet=False, 
     plan = plan_night(instrument, plan_targets, sc["date"], snr=snr)
     by_name = {t["name"]: t for t in plan_targets}
     saved = plan.copy(copy_data=True)
-    saved.meta = table_to_jsonable(plan)["meta"]
+    saved.meta = table_ready(plan)["meta"]
     saved.meta["note"] = ("count rates anchored to each star's measured magnitude in every filter's band, colour "
                           "terms from its blackbody (T_bb from the temperature run) reddened by its E(B-V); "
                           "invented demo data")
@@ -382,27 +386,7 @@ def print_summary(s, stream):
     for key, path in s["files"].items():
         w(f"  {path:42s} {_FILE_NOTES.get(key, '')}")
     w("next          stelltemp catalogue YOUR_TABLE.csv results.ecsv   "
-      "(columns named as in catalogs_demo/targets.csv)")
+      f"(columns named as in {Path(s['demo_dir']) / 'targets.csv'})")
 
 
 # --------------------------------------------------------------------- CLI
-def add_cli(subparsers):
-    """Register the ``tour`` subcommand on an argparse subparsers object."""
-    p = subparsers.add_parser(
-        "tour", help="run the whole job once on the invented demo data",
-        description="Temperatures for the invented demo stars, figures, and a night plan with exposures, "
-                    "written to one folder, with a short summary.")
-    p.add_argument("--out", default=DEFAULT_OUT, metavar="DIR", help=f"output folder (default {DEFAULT_OUT})")
-    p.add_argument("--replace", action="store_true", help="allow reusing a non-empty output folder")
-    p.add_argument("--json", action="store_true", help="print the summary as JSON")
-    p.add_argument("--quiet", action="store_true", help="print nothing on success")
-    p.set_defaults(func=run_cli)
-    return p
-
-
-def run_cli(args) -> int:
-    """Run the tour from parsed arguments; 0 on success (errors raise StelltempError)."""
-    summary = run_tour(args.out, replace=args.replace, quiet=args.quiet or args.json)
-    if args.json:
-        print(json.dumps(json_ready(summary), indent=2, ensure_ascii=False))
-    return 0

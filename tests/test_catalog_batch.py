@@ -229,7 +229,7 @@ def test_astropy_format_inputs_with_masked_cells(tmp_path, ext):
 
 
 def test_progress_bar_hidden_when_quiet_or_not_a_terminal():
-    from stelltemp.catalog.batch import _progress
+    from stelltemp.catalog.batch import progress_bar as _progress
 
     with _progress(10, quiet=True) as bar:
         assert bar.disable

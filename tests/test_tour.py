@@ -114,7 +114,7 @@ def test_a_non_empty_output_folder_is_refused(run, capsys):
         tour.run_tour(out, quiet=True)
     from stelltemp.cli import main
 
-    assert main(["tour", "--out", str(out)]) == 2
+    assert main(["tour", "--output", str(out)]) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and "not empty" in err[0]
 
@@ -164,3 +164,18 @@ def test_demo_truth_magnitudes_are_reddened_blackbodies():
                               _floats(truth["theta_true_mas"]) / MAS_PER_RAD)
         # 0.005 mag covers the rounding of the stored values; more means the demo needs regenerating
         assert np.max(np.abs(model - _floats(truth[band + "_true"]))) < 5e-3, band
+
+
+def test_demo_found_from_any_directory(tmp_path, monkeypatch):
+    # away from the clone the demo comes from the installed package (a wheel carries a copy made
+    # by setup.py) or, in a source checkout / editable install, from the top-level folder
+    monkeypatch.chdir(tmp_path)
+    found = tour.find_demo_dir()
+    assert (found / tour.SCENARIO_FILE).is_file()
+    package = Path(tour.__file__).resolve().parent
+    assert found in (package / tour.PACKAGED_DEMO, DEMO)
+    # the shipped copy is the same scenario: every file of catalogs_demo is there, byte for byte
+    if found != DEMO:
+        for f in DEMO.rglob("*"):
+            if f.is_file() and "__pycache__" not in f.parts:
+                assert (found / f.relative_to(DEMO)).read_bytes() == f.read_bytes(), f

@@ -323,7 +323,8 @@ def merge_astropy(chunk, results, names, types=None):
     return left
 
 
-def _progress(total, quiet):
+def progress_bar(total, quiet):
+    """A tqdm bar of rows on stderr, hidden when `quiet` or stderr is not a terminal."""
     from tqdm.auto import tqdm
 
     hidden = quiet or not sys.stderr.isatty()
@@ -398,7 +399,7 @@ def run_catalogue(
 
     summary = RunSummary(input=str(input_path), output=str(output_path))
     names = None
-    with tableio.open_sink(output_path, run_record(cmap, opts), overwrite) as sink, _progress(
+    with tableio.open_sink(output_path, run_record(cmap, opts), overwrite) as sink, progress_bar(
         reader.num_rows, quiet
     ) as bar:
         merge = merge_arrow if sink.kind == "arrow" else merge_astropy
@@ -446,9 +447,13 @@ __all__ = [
     "RunOptions",
     "RunSummary",
     "compute_chunk",
+    "default_engine",
     "estimate_table",
     "merge_arrow",
     "merge_astropy",
+    "progress_bar",
     "resolve_mapping",
+    "result_names",
     "run_catalogue",
+    "run_record",
 ]
