@@ -325,7 +325,7 @@ def _by_fit(m, e, keys, ebv, ebv_err, fit_ebv, law, rv):
     flags = res["flags"]
     if not fit_ebv:
         red_part = np.abs(res["dlnt_de"]) * ebv_err
-        flags = flags | np.where(red_part > lnt_err, fl.REDDENING_DOMINATES, 0)
+        flags = flags | np.where(fl.reddening_dominates(red_part, lnt_err), fl.REDDENING_DOMINATES, 0)
         lnt_err = np.hypot(lnt_err, red_part)
     t_lo = t * np.exp(-lnt_err)
     t_hi = t * np.exp(lnt_err)

@@ -117,6 +117,13 @@ def describe_all(masks):
     return names[inverse]
 
 
+def reddening_dominates(red_part, phot_part):
+    """True where the E(B−V) term's share of the variance exceeds `REDDENING_SHARE`."""
+    red2 = np.square(red_part)
+    with np.errstate(invalid="ignore"):
+        return red2 > REDDENING_SHARE * (red2 + np.square(phot_part))
+
+
 def mask_at_least(level):
     """OR of all flag bits whose severity is ``level`` or worse."""
     out = 0
