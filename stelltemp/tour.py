@@ -16,12 +16,19 @@ README) and, in a fresh output folder:
 4. plans the night in the scenario with the demo instrument: best window,
    airmass and the exposure per filter for the S/N goal (``plan.ecsv``),
    an altitude/airmass chart and S/N against exposure time for one star;
-5. prints a short summary (with any Sun-safety warning of the observing
+5. reduces the scenario's invented night of instrumental photometry
+   (``night_observations.csv``, ``night_standards.csv``) to the standard
+   system: transformation fitted from the standards
+   (``night_transformation.toml``, residual figure), targets' standard
+   magnitudes (``night_targets.ecsv``) checked against ``night_truth.csv``;
+6. prints a short summary (with any Sun-safety warning of the observing
    module) and the paths.
 
-The demo folder sits at the top of the source tree, not inside the
-package, so it is looked for in the current directory and beside the
-package's parent directory.
+The demo folder sits at the top of the source tree (``catalogs_demo/``);
+the build copies the same files into the package (``stelltemp/demo_scenario``,
+see ``setup.py``), so an installed copy runs the tour from any directory.
+It is looked for in the current directory, then in the installed package,
+then beside the package in a source checkout.
 """
 
 from __future__ import annotations
@@ -35,12 +42,14 @@ from pathlib import Path
 import numpy as np
 
 from .errors import StelltempError
-from .jsonable import json_ready
+from .jsonable import json_ready, table_ready
 from .safeio import atomic_path, save_table
 
-__all__ = ["add_cli", "run_cli", "run_tour", "find_demo_dir", "load_scenario", "DEMO_DIRNAME", "SCENARIO_FILE"]
+__all__ = ["run_tour", "find_demo_dir", "load_scenario", "DEMO_DIRNAME", "SCENARIO_FILE"]
 
 DEMO_DIRNAME = "catalogs_demo"
+#: the demo's copy inside an installed package (made by setup.py at build time)
+PACKAGED_DEMO = "demo_scenario"
 SCENARIO_FILE = "scenario.toml"
 DEFAULT_OUT = "tour_output"
 #: passbands drawn under the showcase star's spectrum and in the blackbody-colour figure
@@ -55,7 +64,7 @@ _SCENARIO_KEYS = {"title": str, "date": str, "instrument": str, "targets": str, 
 
 # ------------------------------------------------------------------- inputs
 def find_demo_dir(explicit=None):
-    """The demo folder: ``explicit`` if given, else ./catalogs_demo, else the source tree's.
+    """The demo folder: ``explicit`` if given, else ./catalogs_demo, the installed copy or the source tree's.
 
     Raises
     ------
@@ -65,13 +74,14 @@ def find_demo_dir(explicit=None):
     if explicit is not None:
         candidates = [Path(explicit)]
     else:
-        candidates = [Path.cwd() / DEMO_DIRNAME, Path(__file__).resolve().parents[1] / DEMO_DIRNAME]
+        here = Path(__file__).resolve().parent
+        candidates = [Path.cwd() / DEMO_DIRNAME, here / PACKAGED_DEMO, here.parent / DEMO_DIRNAME]
     for c in candidates:
         if (c / SCENARIO_FILE).is_file():
             return c
     places = " and ".join(str(c) for c in dict.fromkeys(candidates))
     raise StelltempError(f"demo data not found (no {SCENARIO_FILE} in {places}); "
-                         "run the tour from a source checkout of stelltemp")
+                         "reinstall stelltemp (the package ships the demo) or give a source checkout's folder")
 
 
 def load_scenario(demo_dir):
@@ -231,7 +241,6 @@ def run_tour(out_dir=DEFAULT_OUT, *, replace=False, demo_dir=None, quiet=False, 
     from .catalog import run_catalogue
     from .engine import BLACKBODY_NOTE
     from .engine import flags as fl
-    from .observing.cli_hooks import table_to_jsonable
     from .observing.figures import plot_night, plot_snr_curves
     from .observing.instrument import load_instrument
     from .observing.plan import night_tracks, parse_targets, plan_night, plan_target
@@ -288,7 +297,7 @@ def run_tour(out_dir=DEFAULT_OUT, *, replace=False, demo_dir=None, quiet=False, 
     plan = plan_night(instrument, plan_targets, sc["date"], snr=snr)
     by_name = {t["name"]: t for t in plan_targets}
     saved = plan.copy(copy_data=True)
-    saved.meta = table_to_jsonable(plan)["meta"]
+    saved.meta = table_ready(plan)["meta"]
     saved.meta["note"] = ("exposures for each star's blackbody (T_bb from the temperature run), reddened by "
                           "its E(B-V) and scaled to its V magnitude; invented demo data")
     files["plan"] = str(out / "plan.ecsv")
@@ -307,6 +316,9 @@ def run_tour(out_dir=DEFAULT_OUT, *, replace=False, demo_dir=None, quiet=False, 
                       airmass=airmass if math.isfinite(airmass) else 1.0, name=star)
     files["snr_figure"] = plot_snr_curves(one, str(out / f"snr_{star}.png"), replace=True)
 
+    # 5. the night's reduction to the standard system (when the demo has the night's files)
+    reduction = _reduction_step(demo, out, sc["instrument"], files)
+
     exposure = np.asarray(plan["exposure"], float)
     summary = {
         "scenario": sc["title"],
@@ -323,6 +335,7 @@ def run_tour(out_dir=DEFAULT_OUT, *, replace=False, demo_dir=None, quiet=False, 
                  "rows_not_ok_saturation": int(np.count_nonzero(np.asarray(plan["saturation"]) != "ok")),
                  "rows_with_advice": int(np.count_nonzero(np.char.str_len(np.asarray(plan["advice"], str)) > 0))},
         "sun_warnings": list(plan.meta.get("sun_warnings", [])),
+        "reduction": reduction,
         "note": BLACKBODY_NOTE,
         "files": {k: str(v) for k, v in files.items()},
     }
@@ -335,6 +348,48 @@ def run_tour(out_dir=DEFAULT_OUT, *, replace=False, demo_dir=None, quiet=False, 
     return summary
 
 
+#: the invented night of instrumental photometry (catalogs_demo/make_night.py)
+NIGHT_FILES = {"observations": "night_observations.csv", "standards": "night_standards.csv",
+               "truth": "night_truth.csv"}
+
+
+def _reduction_step(demo, out, instrument, files):
+    """Fit the demo night's transformation, transform its targets, compare with the truth (or None)."""
+    from .catalog.tableio import read_table
+    from .reduction.workflow import standardise_night
+
+    paths = {k: Path(demo) / v for k, v in NIGHT_FILES.items()}
+    if not (paths["observations"].is_file() and paths["standards"].is_file()):
+        return None
+    for key, name in (("transformation", "night_transformation.toml"), ("night_targets", "night_targets.ecsv"),
+                      ("residual_figure", "night_residuals.png")):
+        files[key] = str(out / name)
+    s = standardise_night(paths["observations"], paths["standards"], instrument, files["transformation"],
+                          targets_out=files["night_targets"], plot_out=files["residual_figure"], replace=True,
+                          second_order={"B"})
+    fits = [{"filter": f["filter"], "band": f["band"], "colour": f["colour"],
+             "colour_term": f["coefficients"]["colour_term"], "colour_term_err": f["errors"]["colour_term"],
+             "rms_mag": f["rms_mag"], "n_used": f["n_used"], "rejected": len(f["rejected"])}
+            for f in s["transformation"]["filters"]]
+    predicted = {r["filter"]: r["predicted"] for r in s["comparison_with_prediction"]
+                 if r["coefficient"] == "colour_term"}
+    for f in fits:
+        f["colour_term_predicted"] = predicted.get(f["filter"])
+    result = {"filters": fits, "targets": s["targets"]["rows"], "notes": s["notes"]}
+    if paths["truth"].is_file():
+        t = read_table(files["night_targets"])
+        truth = read_table(paths["truth"])
+        z = []
+        for band in [f["band"] for f in fits]:
+            true = {str(n): float(v) for n, v in zip(truth["star"], truth[f"{band}_true"])}
+            z += [(float(m) - true[str(n)]) / float(e) for n, m, e in zip(t["star"], t[band], t[f"{band}_err"])
+                  if str(n) in true]
+        z = np.abs(np.array(z))
+        result["truth"] = {"compared": int(z.size), "within_1sigma": float(np.mean(z < 1)),
+                           "within_3sigma": float(np.mean(z < 3))}
+    return result
+
+
 _FILE_NOTES = {
     "temperatures": "temperature, 68 % interval and flags for every star",
     "catalogue_figure": "colour temperature against observed B−V, flagged stars ringed",
@@ -344,6 +399,9 @@ _FILE_NOTES = {
     "plan": "best window, airmass and exposure per target and filter",
     "night_figure": "altitude and airmass through the night",
     "snr_figure": "S/N against exposure time for one star",
+    "transformation": "the night's fitted transformation (coefficients, covariance, provenance)",
+    "night_targets": "the night's targets in standard magnitudes, with covariance",
+    "residual_figure": "standard-star residuals against colour and airmass",
     "summary": "this summary as JSON",
 }
 
@@ -369,6 +427,17 @@ def print_summary(s, stream):
         w(f"              dark from {p['dark_start_utc'][11:16]} to {p['dark_end_utc'][11:16]} UTC; "
           f"{p['rows_not_ok_saturation']} row(s) near saturation, {p['rows_with_advice']} with advice "
           "(see plan.ecsv)")
+    red = s.get("reduction")
+    if red:
+        terms = ", ".join(f"{f['filter']} {f['colour_term']:+.3f}±{f['colour_term_err']:.3f}"
+                          + (f" (pred. {f['colour_term_predicted']:+.3f})" if f["colour_term_predicted"] is not None
+                             else "") for f in red["filters"])
+        w(f"reduction     colour terms {terms}")
+        line = f"              {red['targets']} target visits on the standard system"
+        if red.get("truth"):
+            line += (f"; against the invented truth {red['truth']['within_1sigma']:.0%} within 1 sigma, "
+                     f"{red['truth']['within_3sigma']:.0%} within 3 sigma")
+        w(line)
     if s["sun_warnings"]:
         for warning in s["sun_warnings"]:
             w(f"Sun           {warning}")
@@ -381,27 +450,7 @@ def print_summary(s, stream):
     for key, path in s["files"].items():
         w(f"  {path:42s} {_FILE_NOTES.get(key, '')}")
     w("next          stelltemp catalogue YOUR_TABLE.csv results.ecsv   "
-      "(columns named as in catalogs_demo/targets.csv)")
+      f"(columns named as in {Path(s['demo_dir']) / 'targets.csv'})")
 
 
 # --------------------------------------------------------------------- CLI
-def add_cli(subparsers):
-    """Register the ``tour`` subcommand on an argparse subparsers object."""
-    p = subparsers.add_parser(
-        "tour", help="run the whole job once on the invented demo data",
-        description="Temperatures for the invented demo stars, figures, and a night plan with exposures, "
-                    "written to one folder, with a short summary.")
-    p.add_argument("--out", default=DEFAULT_OUT, metavar="DIR", help=f"output folder (default {DEFAULT_OUT})")
-    p.add_argument("--replace", action="store_true", help="allow reusing a non-empty output folder")
-    p.add_argument("--json", action="store_true", help="print the summary as JSON")
-    p.add_argument("--quiet", action="store_true", help="print nothing on success")
-    p.set_defaults(func=run_cli)
-    return p
-
-
-def run_cli(args) -> int:
-    """Run the tour from parsed arguments; 0 on success (errors raise StelltempError)."""
-    summary = run_tour(args.out, replace=args.replace, quiet=args.quiet or args.json)
-    if args.json:
-        print(json.dumps(json_ready(summary), indent=2, ensure_ascii=False))
-    return 0

@@ -107,7 +107,7 @@ def test_a_non_empty_output_folder_is_refused(run, capsys):
         tour.run_tour(out, quiet=True)
     from stelltemp.cli import main
 
-    assert main(["tour", "--out", str(out)]) == 2
+    assert main(["tour", "--output", str(out)]) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and "not empty" in err[0]
 
@@ -157,3 +157,31 @@ def test_demo_truth_magnitudes_are_reddened_blackbodies():
                               _floats(truth["theta_true_mas"]) / MAS_PER_RAD)
         # 0.005 mag covers the rounding of the stored values; more means the demo needs regenerating
         assert np.max(np.abs(model - _floats(truth[band + "_true"]))) < 5e-3, band
+
+
+def test_demo_found_from_any_directory(tmp_path, monkeypatch):
+    # away from the clone the demo comes from the installed package (a wheel carries a copy made
+    # by setup.py) or, in a source checkout / editable install, from the top-level folder
+    monkeypatch.chdir(tmp_path)
+    found = tour.find_demo_dir()
+    assert (found / tour.SCENARIO_FILE).is_file()
+    package = Path(tour.__file__).resolve().parent
+    assert found in (package / tour.PACKAGED_DEMO, DEMO)
+    # the shipped copy is the same scenario: every file of catalogs_demo is there, byte for byte
+    if found != DEMO:
+        for f in DEMO.rglob("*"):
+            if f.is_file() and "__pycache__" not in f.parts:
+                assert (found / f.relative_to(DEMO)).read_bytes() == f.read_bytes(), f
+
+
+def test_tour_reduces_the_invented_night(run):
+    # the night's targets come out on the standard system within their errors (invented truth)
+    out, summary = run
+    red = summary["reduction"]
+    assert red is not None and red["targets"] == 20
+    assert [f["filter"] for f in red["filters"]] == ["B", "V", "R", "I"]
+    assert red["truth"]["within_3sigma"] > 0.95 and 0.5 < red["truth"]["within_1sigma"] <= 1.0
+    for f in red["filters"]:
+        assert abs(f["colour_term"] - f["colour_term_predicted"]) < 3 * f["colour_term_err"]
+    for key in ("transformation", "night_targets", "residual_figure"):
+        assert Path(summary["files"][key]).is_file()

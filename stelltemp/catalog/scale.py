@@ -21,7 +21,7 @@ from stelltemp.catalog import tableio
 from stelltemp.catalog.batch import (
     RunOptions,
     RunSummary,
-    _progress,
+    progress_bar,
     compute_chunk,
     default_engine,
     merge_arrow,
@@ -145,7 +145,7 @@ def run_catalogue_dask(
     summary = RunSummary(input=str(input_path), output=str(output_path), backend="dask")
     result_out = [names[c] for c in probe.colnames]
     try:
-        with tableio.open_sink(output_path, run_record(cmap, opts), overwrite) as sink, _progress(
+        with tableio.open_sink(output_path, run_record(cmap, opts), overwrite) as sink, progress_bar(
             reader.num_rows if reader is not None else None, quiet
         ) as bar:
             for start in range(0, len(parts), window):

@@ -21,7 +21,7 @@ from astropy import units as u
 from astropy.table import QTable
 
 from .. import bandgrid as bg
-from ..calibrations import DEFAULT_FEH
+from ..calibrations import ASSUMED_STAGE, DEFAULT_FEH
 from ..errors import StelltempError
 from ..extinction import DEFAULT_LAW, DEFAULT_RV, check_law
 from ..passbands import get_passband
@@ -88,6 +88,43 @@ def _clean_photometry(mags, errs, keys, n, notes=None):
             notes.add(missing[:, b], f"{k} error {DEFAULT_MAG_ERR:g} mag assumed")
             notes.add(exact[:, b], f"{k} error 0 taken as 0.0001 mag")
     return m, e, flags
+
+
+#: stars per internal block of `estimate`: time and memory grow linearly with rows
+BLOCK_ROWS = 1 << 16
+
+
+def _in_blocks(call, n, per_star):
+    """``call(**inputs)`` over row blocks of the per-star inputs, results joined into one QTable.
+
+    Values of ``per_star`` with n entries are sliced per block; scalars (and
+    dicts of them) pass whole.  The engine works row by row, so the joined
+    table equals one unblocked call.
+    """
+    def part(value, sl):
+        if isinstance(value, dict):
+            return {k: part(v, sl) for k, v in value.items()}
+        return value[sl] if np.ndim(value) == 1 and np.size(value) == n else value
+
+    blocks = [call(**{k: part(v, slice(i, i + BLOCK_ROWS)) for k, v in per_star.items()})
+              for i in range(0, n, BLOCK_ROWS)]
+    first = blocks[0]
+    table = QTable(meta=first.meta)
+    for name in first.colnames:
+        cols = [b[name] for b in blocks]
+        joined = np.concatenate([np.asarray(getattr(c, "value", c)) for c in cols])
+        unit = getattr(first[name], "unit", None)
+        table[name] = joined * unit if isinstance(first[name], u.Quantity) else joined
+    return table
+
+
+def _whole_table_meta(table):
+    """Metadata counts of a table joined from blocks, recounted over all its rows."""
+    uniq, inverse = np.unique(np.asarray(table["severity"], str), return_inverse=True)
+    levels = np.array([fl.LEVELS.index(x) for x in uniq], np.int64)[inverse.reshape(-1)]
+    table.meta["flag_summary"] = fl.summary(np.asarray(table["flags"]), levels)
+    table.meta["assumptions"] = RowNotes.count_texts(table["assumed"])
+    return table
 
 
 def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=DEFAULT_RV,
@@ -166,6 +203,18 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
         raise StelltempError("fitting E(B−V) needs at least three bands")
     if int(monte_carlo) < 0:
         raise StelltempError("monte_carlo must be 0 or a positive number of samples")
+    n_rows = max((np.size(v) for v in mags.values()), default=0)
+    if n_rows > BLOCK_ROWS and not monte_carlo and isinstance(mags, dict):
+        per_star = dict(mags=mags, errs=errs, ebv=ebv, ebv_err=ebv_err, av=av, av_err=av_err,
+                        parallax=parallax, parallax_err=parallax_err, feh=feh, logg=logg,
+                        feh_err=feh_err)
+        values = [x for v in per_star.values() for x in (v.values() if isinstance(v, dict) else [v])]
+        if all(np.ndim(x) <= 1 and np.size(x) in (0, 1, n_rows) for x in values if x is not None):
+            table = _in_blocks(lambda **kw: estimate(**kw, rv=rv, law=law, fit_ebv=fit_ebv, method=method,
+                                                     cal_ebv=cal_ebv, cal_detail=cal_detail),
+                               n_rows, per_star)
+            return _whole_table_meta(table)
+        # otherwise the unblocked path below names the badly shaped input
     pivots = [get_passband(k).pivot_wavelength.value for k in keys]
     order = np.argsort(pivots)
     keys = [keys[i] for i in order]
@@ -257,8 +306,9 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
         for i, key in enumerate(cal.keys):
             table[f"teff_{key}"] = cal.teff_each[:, i] * u.K
             table[f"teff_{key}_err"] = cal.err_each[:, i] * u.K
+    table["teff_cal_note"] = cal.notes
     table["flags"] = flags
-    table["flag_names"] = fl.describe_all(flags).astype(str)
+    table["flag_names"] = fl.describe_all(flags)
     table["severity"] = fl.severity_names(level)
     table["assumed"] = notes.texts()
     table.meta.update({
@@ -271,6 +321,8 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
         "calibration_ebv": "fitted from the calibrations" if (fit_ebv or cal_ebv) else "as given",
         "flag_summary": fl.summary(flags, level),
         "assumptions": notes.counts(),
+        "luminosity_class": ("log g given per star" if logg is not None else
+                             f"log g not given: {ASSUMED_STAGE} relations assumed for every star"),
     })
     return table
 
@@ -280,7 +332,7 @@ RESULT_COLUMNS = (
     "n_bands", "chi2", "dof", "p_value", "lambda_peak", "lambda_peak_err", "fbol", "fbol_err",
     "radius", "radius_err", "luminosity", "luminosity_err", "teff_cal", "teff_cal_err",
     "teff_cal_lo", "teff_cal_hi", "n_cal", "cal_used", "cal_chi2", "cal_dof", "ebv_cal",
-    "ebv_cal_err", "flags", "flag_names", "severity", "assumed",
+    "ebv_cal_err", "teff_cal_note", "flags", "flag_names", "severity", "assumed",
 )
 
 
@@ -379,7 +431,5 @@ def _calibrated(m, e, keys, t_bb, ebv, ebv_err, core, fit_ebv, feh, feh_err, log
         no_feh = np.full(n, True) if feh is None else ~np.isfinite(feh)
         notes.add(has_cal & no_feh, f"[Fe/H] = {DEFAULT_FEH:g} assumed")
         no_logg = np.full(n, True) if logg is None else ~np.isfinite(logg)
-        notes.add(has_cal & no_logg, "dwarf relations assumed (no log g)")
-    for reason in sorted(set(cal.reasons) - {""}):
-        notes.add(np.array([r == reason for r in cal.reasons]), f"no T_eff: {reason}")
+        notes.add(has_cal & no_logg, f"log g unknown: {ASSUMED_STAGE} relations assumed")
     return cal

@@ -51,7 +51,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .. import bandgrid as bg
-from ..calibrations import relations
+from ..calibrations import coverage_notes, relations
 from . import flags as fl
 
 #: Gauss–Newton iterations: each linearises the relations at the current T_eff (and, when
@@ -89,8 +89,9 @@ class CalibratedTeff:
         E(B−V) when given, [Fe/H], scatter), K; NaN where not used.
     outside : ndarray of bool
         A relation had the colour but the star is outside its range.
-    reasons : list of str
-        Per star, why no relation applied ('' when one did).
+    notes : ndarray of str
+        Per star, the luminosity class assumed and why no relation applied
+        ('' when there is nothing to say).
     """
 
     teff: np.ndarray
@@ -108,7 +109,7 @@ class CalibratedTeff:
     teff_each: np.ndarray
     err_each: np.ndarray
     outside: np.ndarray
-    reasons: list
+    notes: np.ndarray
 
     @property
     def flags(self):
@@ -159,15 +160,20 @@ class _Setup:
         self.pick = np.zeros((r, len(keys)))  # D: colour = D · m
         self.pick[np.arange(r), self.blue] += 1.0
         self.pick[np.arange(r), self.red] -= 1.0
-        scatter = np.array([rel.scatter for rel in self.rels], float)
-        same = np.array([[a.key == b.key for b in self.rels] for a in self.rels], bool).reshape(r, r)
-        self.scatter = scatter
-        self.scatter_cov = np.where(same, np.outer(scatter, scatter), 0.0)
+        # a relation entered twice keeps its full scatter: σ_i σ_j for the same key
+        self.same = np.array([[a.key == b.key for b in self.rels] for a in self.rels],
+                             bool).reshape(r, r)
         # one scatter draw per distinct relation key (Monte Carlo)
         unique = {}
         self.scatter_slot = np.array([unique.setdefault(rel.key, len(unique)) for rel in self.rels],
                                      dtype=np.intp)
         self.n_slots = len(unique)
+
+
+def _scatter(setup, t):
+    """Each relation's published scatter at the stars' temperatures, K, shape (n, r)."""
+    t = np.where(np.isfinite(t), t, 5800.0)
+    return np.column_stack([rel.scatter_at(t) for rel in setup.rels])
 
 
 def _evaluate(setup, m, ex, de, dt, feh, logg):
@@ -184,9 +190,9 @@ def _evaluate(setup, m, ex, de, dt, feh, logg):
     outside = np.zeros(n, bool)
     for i, rel in enumerate(setup.rels):
         cand = rel.applies_to(logg) & np.isfinite(x[:, i])
-        ti, inside = rel.teff(x[:, i], feh)
-        si = rel.dteff_dcolour(x[:, i], feh)
-        gi = rel.dteff_dfeh(x[:, i], feh)
+        ti, inside = rel.teff(x[:, i], feh, logg)
+        si = rel.dteff_dcolour(x[:, i], feh, logg)
+        gi = rel.dteff_dfeh(x[:, i], feh, logg)
         ok = cand & inside & np.isfinite(ti) & np.isfinite(si)
         outside |= cand & ~ok
         used[:, i] = ok
@@ -196,7 +202,7 @@ def _evaluate(setup, m, ex, de, dt, feh, logg):
     return x, kx, kt, t, s, g, used, outside
 
 
-def _linearise_at(setup, t_hat, x, y, s, g, used, feh):
+def _linearise_at(setup, t_hat, x, y, s, g, used, feh, logg):
     """Relations linearised at the colour each would give at the current T_eff.
 
     Slopes taken at the observed colour make the weights depend on the
@@ -212,16 +218,17 @@ def _linearise_at(setup, t_hat, x, y, s, g, used, feh):
             continue
         target = t_hat[rows]
         z = feh[rows]
+        lg = logg[rows]
         lo, hi = rel.colour_range
         xm = np.clip(x[rows, i], lo, hi)
         for _ in range(_INVERSE_STEPS):
-            ti, _ = rel.teff(xm, z)
-            si = rel.dteff_dcolour(xm, z)
+            ti, _ = rel.teff(xm, z, lg)
+            si = rel.dteff_dcolour(xm, z, lg)
             with np.errstate(invalid="ignore", divide="ignore"):
                 xm = np.clip(xm + (target - ti) / si, lo, hi)
-        ti, inside = rel.teff(xm, z)
-        si = rel.dteff_dcolour(xm, z)
-        gi = rel.dteff_dfeh(xm, z)
+        ti, inside = rel.teff(xm, z, lg)
+        si = rel.dteff_dcolour(xm, z, lg)
+        gi = rel.dteff_dfeh(xm, z, lg)
         good = inside & (np.abs(ti - target) < 0.5) & np.isfinite(si)
         rows, xm, si, gi = rows[good], xm[good], si[good], gi[good]
         y[rows, i] = t_hat[rows] + si * (x[rows, i] - xm)
@@ -230,11 +237,12 @@ def _linearise_at(setup, t_hat, x, y, s, g, used, feh):
     return y, s, g
 
 
-def _covariance(setup, s, g, used, sig_m, feh_err):
+def _covariance(setup, s, g, used, sig_m, feh_err, scatter):
     """C without the reddening term; unused rows and columns replaced by the identity."""
     var_m = np.where(np.isfinite(sig_m), sig_m, 0.0) ** 2
     phot = np.einsum("ib,nb,jb->nij", setup.pick, var_m, setup.pick)
-    c = s[:, :, None] * s[:, None, :] * phot + setup.scatter_cov[None]
+    c = s[:, :, None] * s[:, None, :] * phot
+    c += np.where(setup.same[None], scatter[:, :, None] * scatter[:, None, :], 0.0)
     c += g[:, :, None] * g[:, None, :] * (feh_err**2)[:, None, None]
     both = used[:, :, None] & used[:, None, :]
     eye = np.eye(len(setup.rels))[None]
@@ -322,14 +330,15 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
     ebv = np.where(np.isfinite(ebv), ebv, 0.0)
     ebv_err = np.where(np.isfinite(ebv_err) & (ebv_err > 0), ebv_err, 0.0)
     feh_err = np.zeros(n) if feh_err is None else np.where(np.isfinite(feh_err), feh_err, 0.0)
+    feh_given = feh
     feh = np.zeros(n) if feh is None else np.where(np.isfinite(feh), feh, 0.0)
     logg = np.full(n, np.nan) if logg is None else np.broadcast_to(np.asarray(logg, float), (n,))
     nan = np.full(n, np.nan)
     if r == 0:
-        reason = "no calibrated colour among the passbands " + ", ".join(keys)
+        note = "no calibration: no calibrated colour among these passbands"
         return CalibratedTeff(nan, nan, nan, nan, nan, nan, nan, np.zeros(n, int), nan,
                               np.zeros(n, int), np.zeros((n, 0), bool), (), np.zeros((n, 0)),
-                              np.zeros((n, 0)), np.zeros(n, bool), [reason] * n)
+                              np.zeros((n, 0)), np.zeros(n, bool), np.full(n, note))
 
     prior_prec = np.where(ebv_err > 0, 1.0 / np.where(ebv_err > 0, ebv_err, 1.0) ** 2, 0.0)
     e_lin = ebv.copy()
@@ -347,12 +356,13 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
         ex, de, dt = colour_excess(keys, t_ref, e_lin, law, rv)
         x, kx, kt, y, s, g, used, outside = _evaluate(setup, m, ex, de, dt, feh, logg)
         if t_hat is not None:
-            y, s, g = _linearise_at(setup, t_hat, x, y, s, g, used, feh)
+            y, s, g = _linearise_at(setup, t_hat, x, y, s, g, used, feh, logg)
+        sc = _scatter(setup, t_ref)
         v = s * kx
         # the excess itself depends on T: ∂T_i/∂T = 1 + s_i ∂ΔC_i/∂T (about t_ref)
         a = np.where(used, 1.0 + s * kt / t_ref[:, None], 1.0)
         y = y - (1.0 - a) * t_ref[:, None]
-        c = _covariance(setup, s, g, used, sig_m, feh_err)
+        c = _covariance(setup, s, g, used, sig_m, feh_err, sc)
         n_used = used.sum(axis=1)
         if fit_ebv:
             design = np.stack([a, v], axis=-1)
@@ -395,14 +405,14 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
     lo, hi = teff - teff_err, teff + teff_err
     if monte_carlo and np.any(~bad):
         lo, hi = _monte_carlo(setup, int(monte_carlo), seed, teff, x, kx, s, used, sig_m, feh,
-                              feh_err, ebv_err, fit_ebv, ly, lp)
+                              feh_err, logg, sc, ebv_err, fit_ebv, ly, lp)
         lo = np.where(bad, np.nan, lo)
         hi = np.where(bad, np.nan, hi)
 
-    reasons = _reasons(setup, x, used, outside, logg, fit_ebv, prior_prec, n_used, keys)
+    notes = _notes(setup, x, logg, feh_given, fit_ebv, prior_prec, n_used)
     return CalibratedTeff(teff, teff_err, lo, hi, ebv_fit, ebv_fit_err, chi2, dof, p_value, n_used,
                           used, tuple(rel.key for rel in setup.rels), teff_each, err_each,
-                          outside, reasons)
+                          outside, notes)
 
 
 #: E(B−V) grid, mag, scanned for the start of a fit without a prior
@@ -417,7 +427,7 @@ def _start_ebv(setup, m, sig_m, keys, t_ref, feh, feh_err, logg, law, rv):
     for e in _START_GRID:
         ex, de, dt = colour_excess(keys, t_ref, np.full(n, e), law, rv)
         _, _, _, y, s, g, used, _ = _evaluate(setup, m, ex, de, dt, feh, logg)
-        c = _covariance(setup, s, g, used, sig_m, feh_err)
+        c = _covariance(setup, s, g, used, sig_m, feh_err, _scatter(setup, t_ref))
         _, _, chi2, _, _ = _gls(c, np.ones(y.shape + (1,)), y, used, np.zeros(n), np.zeros(n))
         score = used.sum(axis=1) * 1e6 - np.where(np.isfinite(chi2), chi2, 1e5)
         better = score > best
@@ -426,8 +436,8 @@ def _start_ebv(setup, m, sig_m, keys, t_ref, feh, feh_err, logg, law, rv):
     return start
 
 
-def _monte_carlo(setup, samples, seed, teff, x, kx, s, used, sig_m, feh, feh_err, ebv_err,
-                 fit_ebv, ly, lp):
+def _monte_carlo(setup, samples, seed, teff, x, kx, s, used, sig_m, feh, feh_err, logg, scatter,
+                 ebv_err, fit_ebv, ly, lp):
     """16th and 84th percentiles of the linear estimator over drawn inputs."""
     rng = np.random.default_rng(seed)
     n, r = x.shape
@@ -452,13 +462,14 @@ def _monte_carlo(setup, samples, seed, teff, x, kx, s, used, sig_m, feh, feh_err
             if not u.any():
                 continue
             x0 = x[sl, i, None]
-            t0, _ = rel.teff(x0, feh[sl, None])
+            lg = logg[sl, None]
+            t0, _ = rel.teff(x0, feh[sl, None], lg)
             xi = x0 + dx[:, :, i]
-            ti, inside = rel.teff(xi, z)
+            ti, inside = rel.teff(xi, z, lg)
             # a draw past the end of the validity range: the tangent at the nominal colour
             lin = t0 + s[sl, i, None] * (xi - x0)
             ti = np.where(inside & np.isfinite(ti), ti, lin) - t0
-            ti = ti + rel.scatter * eps[:, :, setup.scatter_slot[i]]
+            ti = ti + scatter[sl, i, None] * eps[:, :, setup.scatter_slot[i]]
             est += np.where(u[:, None], ly[sl, 0, i, None] * np.nan_to_num(ti), 0.0)
         if fit_ebv:
             est += lp[sl, 0, None] * de
@@ -467,22 +478,15 @@ def _monte_carlo(setup, samples, seed, teff, x, kx, s, used, sig_m, feh, feh_err
     return lo, hi
 
 
-def _reasons(setup, x, used, outside, logg, fit_ebv, prior_prec, n_used, keys):
-    """Why a star got no calibrated temperature, in words ('' where it got one)."""
-    out = [""] * x.shape[0]
+def _notes(setup, x, logg, feh, fit_ebv, prior_prec, n_used):
+    """Per star: the class assumed and why no relation applied (`calibrations.coverage_notes`)."""
+    colours = {}
+    for i, rel in enumerate(setup.rels):
+        colours.setdefault(rel.bands, x[:, i])
+    notes = coverage_notes(colours, feh=feh, logg=logg, applied=n_used > 0).astype(object)
     short = fit_ebv & (prior_prec == 0) & (n_used > 0) & (n_used < MIN_RELATIONS_FREE_EBV)
     for j in np.nonzero(short)[0]:
-        out[j] = (f"E(B-V) from the calibrations needs {MIN_RELATIONS_FREE_EBV} colours or an "
-                  f"E(B-V) prior; {n_used[j]} usable")
-    for j in np.nonzero(n_used == 0)[0]:
-        parts = [f"{rel.colour_name} = {x[j, i]:.2f} outside {rel.colour_range[0]:.2f}.."
-                 f"{rel.colour_range[1]:.2f} ({rel.key})"
-                 for i, rel in enumerate(setup.rels)
-                 if np.isfinite(x[j, i]) and rel.applies_to(logg[j:j + 1])[0]]
-        if parts:
-            out[j] = "; ".join(parts)
-        elif np.isfinite(x[j]).any():
-            out[j] = "no relation for this luminosity class"
-        else:
-            out[j] = "no calibrated colour measured"
-    return out
+        text = (f"no calibration: E(B-V) from the calibrations needs {MIN_RELATIONS_FREE_EBV} "
+                f"colours or an E(B-V) prior; {n_used[j]} usable")
+        notes[j] = f"{notes[j]}; {text}" if notes[j] else text
+    return notes.astype(str)
