@@ -6,11 +6,10 @@ text raises :class:`~stelltemp.errors.StelltempError` with one line naming
 the problem.
 """
 
-import math
 
 from astropy import units as u
 
-from .errors import StelltempError
+from .errors import StelltempError, shorten
 
 __all__ = ["TEMPERATURE_UNITS", "parse_temperature", "parse_magnitude"]
 
@@ -75,16 +74,19 @@ def parse_magnitude(text):
     ('Ks', 8.2, None)
     """
     if "=" not in text:
-        raise StelltempError(f"magnitude must look like BAND=MAG or BAND=MAG,ERR, got {text!r}")
+        raise StelltempError(f"magnitude must look like BAND=MAG or BAND=MAG,ERR, got {shorten(text, 60)!r}")
     key, value = text.split("=", 1)
     parts = value.split(",")
     if len(parts) > 2:
-        raise StelltempError(f"too many values in {text!r}")
+        raise StelltempError(f"too many values in {shorten(text, 60)!r}")
     try:
         mag = float(parts[0])
         err = float(parts[1]) if len(parts) > 1 else None
     except ValueError:
-        raise StelltempError(f"not a number in {text!r}") from None
-    if not math.isfinite(mag) or (err is not None and not (err >= 0 and math.isfinite(err))):
-        raise StelltempError(f"magnitude and error must be finite (error >= 0) in {text!r}")
+        raise StelltempError(f"not a number in {shorten(text, 60)!r}") from None
+    from .validation import check_number
+
+    check_number("mag", mag, f"magnitude in {shorten(text, 40)!r}")
+    if err is not None:
+        check_number("mag_err", err, f"error in {shorten(text, 40)!r}")
     return key.strip(), mag, err

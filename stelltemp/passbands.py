@@ -365,8 +365,8 @@ def load_passband_file(path, wave_unit=None, detector="photon", magsys="AB", key
     if unit is None:
         raise StelltempError(f"{origin}: wavelength unit unknown; give it in the file or as wave_unit")
     wave = (wave * unit).to_value(u.AA)
-    _check_extent(wave, origin)
     wave, resp = _checked_curve(wave, resp, origin)
+    _check_extent(wave, origin)
     band = Passband(
         key=key or f"file:{path.stem}",
         system="user",

@@ -69,12 +69,12 @@ def test_per_star_arrays_are_flagged_not_refused():
 
 
 @pytest.mark.parametrize("argv, message", [
-    (["exposure", "--mag", "inf", "--snr", "50"], "mag (magnitude) must be a finite number in [-40, 40] mag, got inf"),
-    (["exposure", "--mag", "12", "--snr", "50", "--seeing", "0"],
+    (["exposure", "--mag", "jc.V=inf", "--snr", "50"], "magnitude in 'jc.V=inf' (magnitude) must be a finite number in [-40, 40] mag, got inf"),
+    (["exposure", "--mag", "jc.V=12", "--snr", "50", "--seeing", "0"],
      "seeing (seeing FWHM) must be a finite number in (0, 30] arcsec, got 0"),
-    (["exposure", "--mag", "12", "--snr", "nan"],
+    (["exposure", "--mag", "jc.V=12", "--snr", "nan"],
      "snr (signal-to-noise ratio) must be a finite number in (0, 1e+06], got nan"),
-    (["exposure", "--mag", "12", "--snr", "50", "--airmass", "0.5"],
+    (["exposure", "--mag", "jc.V=12", "--snr", "50", "--airmass", "0.5"],
      "airmass must be a finite number in [1, 40], got 0.5"),
 ])
 def test_exposure_options(capsys, argv, message):
@@ -85,7 +85,7 @@ def test_exposure_options(capsys, argv, message):
 def test_exposure_api_same_message():
     inst = load_instrument(INSTRUMENT)
     with pytest.raises(StelltempError, match=r"^seeing \(seeing FWHM\) must be a finite number in \(0, 30\]"):
-        plan_target(inst, 12.0, snr=50, seeing_arcsec=0.0)
+        plan_target(inst, 12.0, "jc.V", snr=50, seeing_arcsec=0.0)
 
 
 @pytest.mark.parametrize("extra, message", [
@@ -168,7 +168,7 @@ def test_instrument_number_with_400_digits(tmp_path, capsys):
     path.write_text(_instrument_text().replace("read_noise_e = 9.0", "read_noise_e = " + "9" * 400))
     with pytest.raises(StelltempError, match=r"'read_noise_e' is too large to be a number \(400 digits\)"):
         parse_instrument(path.read_text(), base_dir=INSTRUMENT.parent)
-    assert main(["exposure", "--instrument", str(path), "--mag", "12", "--snr", "50"]) == 2
+    assert main(["exposure", "--instrument", str(path), "--mag", "jc.V=12", "--snr", "50"]) == 2
     assert len(_err_line(capsys)) < 200
 
 
@@ -183,7 +183,7 @@ def test_instrument_without_filters_is_refused():
 def test_non_utf8_instrument_target_and_mapping_files_are_plain_lines(tmp_path, capsys):
     bad_inst = tmp_path / "inst.toml"
     bad_inst.write_bytes(_instrument_text().encode().replace(b"# e- rms", b"# e- \xff rms"))
-    assert main(["exposure", "--instrument", str(bad_inst), "--mag", "12", "--snr", "50"]) == 2
+    assert main(["exposure", "--instrument", str(bad_inst), "--mag", "jc.V=12", "--snr", "50"]) == 2
     line = _err_line(capsys)
     assert line.startswith(f"instrument file {bad_inst}: line ") and line.endswith("not UTF-8 text (byte 0xff)")
 
