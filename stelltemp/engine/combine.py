@@ -264,29 +264,50 @@ def _covariance(setup, s, g, used, sig_m, feh_err, scatter):
 def _gls(c, design, y, used, prior_prec, prior_d):
     """Generalised least squares per star, with an optional Gaussian prior on parameter 1.
 
+    Stars are solved in groups that use the same relations, each with only
+    those rows and columns, so a star's numbers do not depend on the other
+    stars of the call (a file run in chunks equals one call).
+
     Returns estimate (n, p), covariance (n, p, p), χ², and the linear
     estimator: estimate = Ly @ y + Lp · prior_d.
     """
     n, r, p = design.shape
-    ci = np.linalg.inv(c)
-    a = np.where(used[:, :, None], design, 0.0)
-    yy = np.where(used, y, 0.0)
-    cia = ci @ a
-    info = np.einsum("nri,nrj->nij", a, cia)
-    if p > 1:
-        info[:, 1, 1] += prior_prec
-    ok = np.linalg.det(info) > 0
-    info[~ok] = np.eye(p)
-    cov = np.linalg.inv(info)
-    ly = cov @ np.swapaxes(cia, 1, 2)  # (n, p, r)
-    lp = cov[:, :, 1] * prior_prec[:, None] if p > 1 else np.zeros((n, p))
-    est = np.einsum("npr,nr->np", ly, yy) + lp * prior_d[:, None]
-    resid = np.where(used, yy - np.einsum("nrp,np->nr", a, est), 0.0)
-    chi2 = np.einsum("nr,nrs,ns->n", resid, ci, resid)
-    if p > 1:
-        chi2 = chi2 + prior_prec * (est[:, 1] - prior_d) ** 2
-    est[~ok] = np.nan
-    cov[~ok] = np.nan
+    est = np.full((n, p), np.nan)
+    cov = np.full((n, p, p), np.nan)
+    chi2 = np.full(n, np.nan)
+    ly = np.zeros((n, p, r))
+    lp = np.zeros((n, p))
+    if n == 0:
+        return est, cov, chi2, ly, lp
+    patterns, inverse = np.unique(used, axis=0, return_inverse=True)
+    inverse = np.asarray(inverse).reshape(-1)
+    for k, pattern in enumerate(patterns):
+        cols = np.flatnonzero(pattern)
+        rows = np.flatnonzero(inverse == k)
+        if cols.size == 0:
+            continue
+        ci = np.linalg.inv(c[np.ix_(rows, cols, cols)])
+        a = design[np.ix_(rows, cols, np.arange(p))]
+        yy = y[np.ix_(rows, cols)]
+        cia = ci @ a
+        info = np.einsum("nri,nrj->nij", a, cia)
+        prec = prior_prec[rows]
+        if p > 1:
+            info[:, 1, 1] += prec
+        ok = np.linalg.det(info) > 0
+        info[~ok] = np.eye(p)
+        cv = np.linalg.inv(info)
+        l_y = cv @ np.swapaxes(cia, 1, 2)  # (rows, p, cols)
+        l_p = cv[:, :, 1] * prec[:, None] if p > 1 else np.zeros((rows.size, p))
+        e = np.einsum("npr,nr->np", l_y, yy) + l_p * prior_d[rows, None]
+        resid = yy - np.einsum("nrp,np->nr", a, e)
+        x2 = np.einsum("nr,nrs,ns->n", resid, ci, resid)
+        if p > 1:
+            x2 = x2 + prec * (e[:, 1] - prior_d[rows]) ** 2
+        e[~ok] = np.nan
+        cv[~ok] = np.nan
+        est[rows], cov[rows], chi2[rows], lp[rows] = e, cv, x2, l_p
+        ly[np.ix_(rows, np.arange(p), cols)] = l_y
     return est, cov, chi2, ly, lp
 
 
@@ -403,13 +424,18 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
             bad = n_used == 0
             step_e = np.zeros(n)
         new_t = np.where(bad, np.nan, est[:, 0])
-        step_t = np.zeros(n) if t_hat is None else np.where(np.isfinite(new_t - t_hat), new_t - t_hat, 0.0)
-        done = (t_hat is not None and np.all(np.abs(step_t) < _TOL_T)
-                and np.all(np.abs(step_e) < _TOL_E))
-        if done or it == _ITERATIONS - 1:
+        if t_hat is None:
+            t_hat = new_t
+            moving = np.ones(n, bool)
+        else:
+            step_t = np.where(np.isfinite(new_t - t_hat), new_t - t_hat, 0.0)
+            # a star that has converged keeps its linearisation point from then on, so its
+            # result does not depend on how long the other stars of the call need
+            moving &= (np.abs(step_t) >= _TOL_T) | (np.abs(step_e) >= _TOL_E)
+            t_hat = np.where(moving, new_t, t_hat)
+        if not moving.any() or it == _ITERATIONS - 1:
             break
-        t_hat = new_t
-        e_lin = np.clip(e_lin + step_e, bg.E_MIN, bg.E_MAX)
+        e_lin = np.where(moving, np.clip(e_lin + step_e, bg.E_MIN, bg.E_MAX), e_lin)
 
     teff = np.where(bad, np.nan, est[:, 0])
     teff_err = np.where(bad, np.nan, np.sqrt(cov[:, 0, 0]))
