@@ -205,6 +205,7 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
     table["teff_cal"] = cal.teff * u.K
     table["teff_cal_err"] = cal.teff_err * u.K
     table["n_cal"] = cal.n_used
+    table["cal_relations"] = _relations_used(cal, n)
     table["flags"] = flags
     table["flag_names"] = fl.describe_all(flags).astype(str)
     table.meta.update({
@@ -222,8 +223,20 @@ RESULT_COLUMNS = (
     "t_bb", "t_bb_lo", "t_bb_hi", "t_bb_err", "theta", "theta_err", "ebv_used", "ebv_used_err",
     "n_bands", "chi2", "dof", "p_value", "lambda_peak", "lambda_peak_err", "fbol", "fbol_err",
     "radius", "radius_err", "luminosity", "luminosity_err", "teff_cal", "teff_cal_err", "n_cal",
-    "flags", "flag_names",
+    "cal_relations", "flags", "flag_names",
 )
+
+
+def _relations_used(cal, n):
+    """Per star, the keys of the calibrated relations that entered ``teff_cal``, comma-separated."""
+    keys = tuple(getattr(cal, "keys", ()))
+    if not keys:
+        return np.full(n, "", dtype="U1")
+    used = np.isfinite(np.asarray(cal.teff_each)).reshape(len(keys), -1)
+    code = (used * (1 << np.arange(len(keys)))[:, None]).sum(axis=0)  # one integer per combination
+    uniq, inverse = np.unique(code, return_inverse=True)
+    text = np.array([",".join(k for i, k in enumerate(keys) if c >> i & 1) for c in uniq], dtype=str)
+    return text[inverse.reshape(-1)] if n else np.array([], dtype="U1")
 
 
 def _offset_from_bands(m, e, keys, t, ebv, law, rv):
