@@ -264,3 +264,60 @@ def temperature_from_flux(flux):
 def sigma_sb():
     """Stefan–Boltzmann constant as a Quantity (W m⁻² K⁻⁴)."""
     return (SIGMA_CGS * u.erg / u.s / u.cm**2 / u.K**4).to(u.W / u.m**2 / u.K**4)
+
+
+#: nominal solar luminosity, IAU 2015 Resolution B3 (Mamajek et al. 2015, arXiv:1510.07674)
+L_SUN_NOMINAL = 3.828e26 * u.W
+
+
+def blackbody_report(temperature, radius=None, wavelength=None):
+    """Planck, Wien and Stefan–Boltzmann quantities of one temperature, as plain numbers.
+
+    Parameters
+    ----------
+    temperature : float or Quantity
+        Plain numbers in K; Quantities in K, °C or °F.
+    radius : float or Quantity, optional
+        Radius of the sphere (plain numbers in R☉), to give its luminosity.
+    wavelength : float or Quantity, optional
+        Plain numbers in nm: also give B_λ, B_ν and the photon radiance there.
+
+    Returns
+    -------
+    dict
+        Scalars with their unit in the key (``peak_wavelength_B_lambda_nm``,
+        ``surface_flux_W_m2``, ``luminosity_Lsun`` …) and a ``note``: the
+        three peaks are maxima of different distributions.
+
+    Examples
+    --------
+    >>> rep = blackbody_report(5772, radius=1.0)
+    >>> round(rep["peak_wavelength_B_lambda_nm"], 1), round(rep["luminosity_Lsun"], 3)
+    (502.0, 1.0)
+    """
+    t = float(as_kelvin(temperature)) * u.K
+    nu_peak = peak_frequency(t)
+    out = {
+        "temperature_K": float(t.value),
+        "peak_wavelength_B_lambda_nm": float(peak_wavelength(t).value),
+        "peak_wavelength_photons_nm": float(peak_wavelength_photons(t).value),
+        "peak_frequency_B_nu_THz": float(nu_peak.value),
+        "wavelength_of_B_nu_peak_nm": float(nu_peak.to(u.nm, equivalencies=u.spectral()).value),
+        "surface_flux_W_m2": float(surface_flux(t).value),
+        "note": "the three peaks differ: B_lambda, photon rate per wavelength and B_nu peak at different wavelengths",
+    }
+    if radius is not None:
+        r = _quantity(radius, u.R_sun, "radius")
+        lum = luminosity(r, t)
+        out["radius_Rsun"] = float(r.to_value(u.R_sun))
+        out["luminosity_W"] = float(lum.value)
+        out["luminosity_Lsun"] = float((lum / L_SUN_NOMINAL).decompose().value)
+    if wavelength is not None:
+        w = _quantity(wavelength, u.nm, "wavelength")
+        if not (np.isfinite(w.value) and w.value > 0):
+            raise StelltempError(f"wavelength must be finite and positive, got {w}")
+        out["at_wavelength_nm"] = float(w.to_value(u.nm))
+        out["B_lambda_W_m2_nm_sr"] = float(radiance_lambda(t, w).value)
+        out["B_nu_W_m2_Hz_sr"] = float(radiance_nu(t, w.to(u.Hz, equivalencies=u.spectral())).value)
+        out["photon_radiance_per_s_m2_nm_sr"] = float(photon_radiance_lambda(t, w).value)
+    return out

@@ -37,10 +37,10 @@ from pathlib import Path
 import numpy as np
 
 from .errors import StelltempError
-from .jsonable import json_ready
+from .jsonable import json_ready, table_ready
 from .safeio import atomic_path, save_table
 
-__all__ = ["add_cli", "run_cli", "run_tour", "find_demo_dir", "load_scenario", "DEMO_DIRNAME", "SCENARIO_FILE"]
+__all__ = ["run_tour", "find_demo_dir", "load_scenario", "DEMO_DIRNAME", "SCENARIO_FILE"]
 
 DEMO_DIRNAME = "catalogs_demo"
 #: the demo's copy inside an installed package (made by setup.py at build time)
@@ -236,7 +236,6 @@ def run_tour(out_dir=DEFAULT_OUT, *, replace=False, demo_dir=None, quiet=False, 
     from .catalog import run_catalogue
     from .engine import BLACKBODY_NOTE
     from .engine import flags as fl
-    from .observing.cli_hooks import table_to_jsonable
     from .observing.figures import plot_night, plot_snr_curves
     from .observing.instrument import load_instrument
     from .observing.plan import night_tracks, parse_targets, plan_night, plan_target
@@ -293,7 +292,7 @@ def run_tour(out_dir=DEFAULT_OUT, *, replace=False, demo_dir=None, quiet=False, 
     plan = plan_night(instrument, plan_targets, sc["date"], snr=snr)
     by_name = {t["name"]: t for t in plan_targets}
     saved = plan.copy(copy_data=True)
-    saved.meta = table_to_jsonable(plan)["meta"]
+    saved.meta = table_ready(plan)["meta"]
     saved.meta["note"] = ("exposures for each star's blackbody (T_bb from the temperature run), reddened by "
                           "its E(B-V) and scaled to its V magnitude; invented demo data")
     files["plan"] = str(out / "plan.ecsv")
@@ -390,23 +389,3 @@ def print_summary(s, stream):
 
 
 # --------------------------------------------------------------------- CLI
-def add_cli(subparsers):
-    """Register the ``tour`` subcommand on an argparse subparsers object."""
-    p = subparsers.add_parser(
-        "tour", help="run the whole job once on the invented demo data",
-        description="Temperatures for the invented demo stars, figures, and a night plan with exposures, "
-                    "written to one folder, with a short summary.")
-    p.add_argument("--out", default=DEFAULT_OUT, metavar="DIR", help=f"output folder (default {DEFAULT_OUT})")
-    p.add_argument("--replace", action="store_true", help="allow reusing a non-empty output folder")
-    p.add_argument("--json", action="store_true", help="print the summary as JSON")
-    p.add_argument("--quiet", action="store_true", help="print nothing on success")
-    p.set_defaults(func=run_cli)
-    return p
-
-
-def run_cli(args) -> int:
-    """Run the tour from parsed arguments; 0 on success (errors raise StelltempError)."""
-    summary = run_tour(args.out, replace=args.replace, quiet=args.quiet or args.json)
-    if args.json:
-        print(json.dumps(json_ready(summary), indent=2, ensure_ascii=False))
-    return 0

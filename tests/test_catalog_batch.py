@@ -11,7 +11,7 @@ import pytest
 from astropy.table import Table
 
 from stelltemp.catalog import estimate_table, run_catalogue
-from stelltemp.catalog.batch import RESULT_SUFFIX, compute_chunk, fast_flag_names
+from stelltemp.catalog.batch import RESULT_SUFFIX, compute_chunk
 from stelltemp.catalog.tableio import read_table
 from stelltemp.engine import flags as F
 from stelltemp.errors import StelltempError
@@ -204,9 +204,9 @@ def test_compute_chunk_rejects_an_engine_that_loses_rows():
         compute_chunk(t, resolve_mapping(t.colnames), RunOptions(), short)
 
 
-def test_fast_flag_names_matches_describe():
+def test_flag_names_match_describe():
     masks = np.array([0, 3, F.ABSURD_VALUE, 3, 0], dtype=np.int64)
-    assert list(fast_flag_names(masks)) == [F.describe(m) for m in masks]
+    assert list(F.describe_all(masks)) == [F.describe(m) for m in masks]
 
 
 @pytest.mark.parametrize("ext", ["fits", "vot", "ecsv"])
@@ -230,7 +230,7 @@ def test_astropy_format_inputs_with_masked_cells(tmp_path, ext):
 
 
 def test_progress_bar_hidden_when_quiet_or_not_a_terminal():
-    from stelltemp.catalog.batch import _progress
+    from stelltemp.catalog.batch import progress_bar as _progress
 
     with _progress(10, quiet=True) as bar:
         assert bar.disable

@@ -1,11 +1,10 @@
 """The ``catalogue`` subcommand hooks."""
 
-import argparse
 import json
 
 import pyarrow.parquet as pq
 
-from stelltemp.catalog.cli_hooks import add_cli, run_cli
+from stelltemp.cli import build_parser, run_parsed
 
 try:
     from test_catalog_helpers import fake_estimate
@@ -14,9 +13,11 @@ except ImportError:  # tests run as a package
 
 
 def _parse(argv):
-    parser = argparse.ArgumentParser(prog="stelltemp")
-    add_cli(parser.add_subparsers(dest="command"))
-    return parser.parse_args(argv)
+    return build_parser().parse_args(argv)
+
+
+def run_cli(args, engine=None):
+    return run_parsed(args, engine=engine)
 
 
 def _input(tmp_path):
@@ -28,8 +29,7 @@ def _input(tmp_path):
 def test_json_summary_and_exit_code(tmp_path, capsys):
     inp = _input(tmp_path)
     out = tmp_path / "out.parquet"
-    args = _parse(["catalogue", str(inp), str(out), "--ebv", "0.05", "--json", "--quiet"])
-    assert args.func is run_cli
+    args = _parse(["catalogue", str(inp), "-o", str(out), "--ebv", "0.05", "--json", "--quiet"])
     assert run_cli(args, engine=fake_estimate) == 0
     summary = json.loads(capsys.readouterr().out)
     assert summary["rows"] == 2 and summary["successes"] == 1 and summary["flag_counts"]["bad_input"] == 1
@@ -39,22 +39,22 @@ def test_json_summary_and_exit_code(tmp_path, capsys):
 def test_existing_output_is_one_line_exit_2(tmp_path, capsys):
     inp = _input(tmp_path)
     out = tmp_path / "out.csv"
-    assert run_cli(_parse(["catalogue", str(inp), str(out), "--quiet"]), engine=fake_estimate) == 0
+    assert run_cli(_parse(["catalogue", str(inp), "-o", str(out), "--quiet"]), engine=fake_estimate) == 0
     capsys.readouterr()
-    assert run_cli(_parse(["catalogue", str(inp), str(out), "--quiet"]), engine=fake_estimate) == 2
+    assert run_cli(_parse(["catalogue", str(inp), "-o", str(out), "--quiet"]), engine=fake_estimate) == 2
     err = capsys.readouterr().err
     assert err.startswith("stelltemp: error: ") and "already exists (add --replace" in err
     assert err.count("\n") == 1
-    assert run_cli(_parse(["catalogue", str(inp), str(out), "--replace"]), engine=fake_estimate) == 0
+    assert run_cli(_parse(["catalogue", str(inp), "-o", str(out), "--replace"]), engine=fake_estimate) == 0
     assert "2 rows in" in capsys.readouterr().out
 
 
 def test_bad_map_file_and_chunk_rows(tmp_path, capsys):
     inp = _input(tmp_path)
-    args = _parse(["catalogue", str(inp), str(tmp_path / "o.csv"), "--columns", str(tmp_path / "none.toml")])
+    args = _parse(["catalogue", str(inp), "-o", str(tmp_path / "o.csv"), "--columns", str(tmp_path / "none.toml")])
     assert run_cli(args, engine=fake_estimate) == 2
     assert "cannot read column map" in capsys.readouterr().err
-    args = _parse(["catalogue", str(inp), str(tmp_path / "o.csv"), "--chunk-rows", "0"])
+    args = _parse(["catalogue", str(inp), "-o", str(tmp_path / "o.csv"), "--chunk-rows", "0"])
     assert run_cli(args, engine=fake_estimate) == 2
 
 
@@ -64,7 +64,7 @@ def test_dask_option_runs_on_dask(tmp_path, capsys):
     pytest.importorskip("dask.dataframe")
     inp = tmp_path / "in.parquet"
     pq.write_table(_table(), inp)
-    args = _parse(["catalogue", str(inp), str(tmp_path / "o.parquet"), "--dask", "--workers", "1", "--json"])
+    args = _parse(["catalogue", str(inp), "-o", str(tmp_path / "o.parquet"), "--dask", "--workers", "1", "--json"])
     assert run_cli(args, engine=fake_estimate) == 0
     assert json.loads(capsys.readouterr().out)["backend"] == "dask"
 
@@ -76,9 +76,10 @@ def _table():
 
 
 def test_cli_default_chunk_matches_the_library():
-    from stelltemp.catalog import batch, cli_hooks
+    from stelltemp.catalog import batch
+    from stelltemp.cli import catalogue
 
-    assert cli_hooks.DEFAULT_CHUNK_ROWS == batch.DEFAULT_CHUNK_ROWS
+    assert catalogue.DEFAULT_CHUNK_ROWS == batch.DEFAULT_CHUNK_ROWS
 
 
 def test_plot_of_the_results(tmp_path, capsys):
@@ -90,8 +91,16 @@ def test_plot_of_the_results(tmp_path, capsys):
     inp.write_text("star,jc.B,jc.V\n" + "".join(
         f"{n},{float(blackbody_mag('jc.B', t)):.4f},{float(blackbody_mag('jc.V', t)):.4f}\n" for n, t in rows))
     out, fig = tmp_path / "out.ecsv", tmp_path / "diagram.png"
-    assert run_cli(_parse(["catalogue", str(inp), str(out), "--plot", str(fig), "--quiet"])) == 0
+    assert run_cli(_parse(["catalogue", str(inp), "-o", str(out), "--plot", str(fig), "--quiet"])) == 0
     assert fig.read_bytes()[:4] == b"\x89PNG"
-    assert run_cli(_parse(["catalogue", str(inp), str(tmp_path / "o2.ecsv"), "--plot", str(fig), "--quiet"])) == 2
+    assert run_cli(_parse(["catalogue", str(inp), "-o", str(tmp_path / "o2.ecsv"), "--plot", str(fig), "--quiet"])) == 2
     assert "already exists" in capsys.readouterr().err
     assert not (tmp_path / "o2.ecsv").exists()  # refused before any work
+
+
+def test_old_positional_output_still_works_with_a_note(tmp_path, capsys):
+    inp = _input(tmp_path)
+    out = tmp_path / "out.csv"
+    assert run_cli(_parse(["catalogue", str(inp), str(out), "--quiet"]), engine=fake_estimate) == 0
+    err = capsys.readouterr().err
+    assert out.exists() and err.startswith("stelltemp: note:") and "-o/--output" in err

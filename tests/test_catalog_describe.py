@@ -155,3 +155,16 @@ def test_a_result_table_is_refused_or_renewed(outputs, reference, tmp_path):
     np.testing.assert_allclose(np.asarray(again["t_bb"], float), np.asarray(reference["t_bb"], float),
                                rtol=1e-12, equal_nan=True)
     assert any("replaced" in n for n in summary.notes)
+
+
+def test_cli_refuses_a_result_table_in_one_line_and_renews_on_request(outputs, tmp_path, capsys):
+    from stelltemp.cli import main
+
+    out = tmp_path / "again.ecsv"
+    assert main(["catalogue", str(outputs["csv"]), "-o", str(out)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and err[0].startswith("stelltemp: error:") and "--renew-results" in err[0]
+    fig = tmp_path / "again.png"
+    assert main(["catalogue", str(outputs["csv"]), "-o", str(out), "--renew-results", "--plot", str(fig)]) == 0
+    text = capsys.readouterr().out
+    assert f"figure: {fig}" in text and "replaced" in text and fig.is_file()

@@ -1,6 +1,5 @@
 """Planning tables and the exposure / nightplan command-line hooks."""
 
-import argparse
 import io
 import json
 from pathlib import Path
@@ -12,7 +11,7 @@ from astropy.table import Table
 
 from stelltemp.errors import StelltempError
 from stelltemp.observing import ccd, plan
-from stelltemp.observing.cli_hooks import add_cli, run_cli
+from stelltemp.cli import build_parser
 from stelltemp.observing.instrument import load_instrument
 
 DEMO = Path(__file__).resolve().parents[1] / "catalogs_demo" / "instruments"
@@ -86,15 +85,17 @@ def target_file(tmp_path_factory):
 
 
 def _parser():
-    p = argparse.ArgumentParser(prog="stelltemp")
-    add_cli(p.add_subparsers())
-    return p
+    return build_parser()
+
+
+def run_cli(args, out, err):
+    return args.run(args, out, err)
 
 
 def test_cli_nightplan(target_file, tmp_path):
     args = _parser().parse_args(["nightplan", str(target_file), "--instrument", str(CCD_FILE), "--date",
                                  "2025-03-10", "--snr", "100", "--step", "20", "--json",
-                                 "--plot", str(tmp_path / "night.png"), "--save", str(tmp_path / "plan.ecsv")])
+                                 "--plot", str(tmp_path / "night.png"), "--output", str(tmp_path / "plan.ecsv")])
     out, err = io.StringIO(), io.StringIO()
     assert run_cli(args, out, err) == 0
     doc = json.loads(out.getvalue())
@@ -115,8 +116,8 @@ def test_cli_nightplan(target_file, tmp_path):
 
 def test_cli_exposure_text_plot_and_sun(tmp_path):
     p = _parser()
-    args = p.parse_args(["exposure", "--instrument", str(DEMO / "quillmere_028m_cmos.toml"), "--mag", "6",
-                         "--band", "jc.V", "--teff", "3500", "--snr", "300", "--plot", str(tmp_path / "snr.png")])
+    args = p.parse_args(["exposure", "--instrument", str(DEMO / "quillmere_028m_cmos.toml"), "--mag", "jc.V=6",
+                         "--teff", "3500", "--snr", "300", "--plot", str(tmp_path / "snr.png")])
     out, err = io.StringIO(), io.StringIO()
     assert run_cli(args, out, err) == 0
     text = out.getvalue()
@@ -124,14 +125,14 @@ def test_cli_exposure_text_plot_and_sun(tmp_path):
     assert "saturated" in text and "take" in err.getvalue()
     assert (tmp_path / "snr.png").stat().st_size > 1000
     # pointing at the Sun's position at noon: daylight and Sun warnings with the caution
-    args = p.parse_args(["exposure", "--instrument", str(CCD_FILE), "--mag", "3", "--time", "1", "--json",
-                         "--at", "2025-06-21T12:00", "--ra", "06:00:00", "--dec", "23.4"])
+    args = p.parse_args(["exposure", "--instrument", str(CCD_FILE), "--mag", "3", "--exposure", "1", "--json",
+                         "--time", "2025-06-21T12:00", "--ra", "06:00:00", "--dec", "23.4"])
     out, err = io.StringIO(), io.StringIO()
     run_cli(args, out, err)
     doc = json.loads(out.getvalue())
     assert any("SUN NEARBY" in w for w in doc["meta"]["sun_warnings"])
     assert "certified solar filter" in err.getvalue()
-    with pytest.raises(StelltempError, match="--snr, --time"):
+    with pytest.raises(StelltempError, match="--snr, --exposure"):
         run_cli(p.parse_args(["exposure", "--instrument", str(CCD_FILE), "--mag", "3"]), out, err)
     with pytest.raises(StelltempError, match="no filter 'Q'"):
         run_cli(p.parse_args(["exposure", "--instrument", str(CCD_FILE), "--mag", "3", "--snr", "5",
@@ -166,7 +167,7 @@ def test_night_tracks_extinction_through_the_night(rig):
 
 def test_exposure_refuses_the_sun_with_the_caution():
     # common practice: V(Sun) ≈ −26.7; the tool gives the usual caution instead of a plan
-    args = _parser().parse_args(["exposure", "--instrument", str(CCD_FILE), "--mag", "-26.7", "--band", "jc.V",
+    args = _parser().parse_args(["exposure", "--instrument", str(CCD_FILE), "--mag", "jc.V=-26.7",
                                  "--snr", "50"])
     with pytest.raises(StelltempError, match="certified solar filter"):
         run_cli(args, io.StringIO(), io.StringIO())

@@ -107,7 +107,7 @@ def test_a_non_empty_output_folder_is_refused(run, capsys):
         tour.run_tour(out, quiet=True)
     from stelltemp.cli import main
 
-    assert main(["tour", "--out", str(out)]) == 2
+    assert main(["tour", "--output", str(out)]) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and "not empty" in err[0]
 

@@ -11,7 +11,8 @@ Modules, one idea each:
 - :mod:`stelltemp.catalog.batch` — chunked runs with bounded memory, progress
   and a closing summary.
 - :mod:`stelltemp.catalog.scale` — the same per-chunk work on Dask.
-- :mod:`stelltemp.catalog.cli_hooks` — the ``catalogue`` subcommand.
+- :mod:`stelltemp.catalog.figure` — the colour–temperature diagram of a results file
+  (the ``catalogue`` subcommand lives in :mod:`stelltemp.cli.catalogue`).
 """
 
 import importlib

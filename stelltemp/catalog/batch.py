@@ -140,14 +140,6 @@ def success_mask(results):
     return ok
 
 
-def fast_flag_names(masks):
-    """`stelltemp.engine.flags.describe` over many rows, once per distinct mask."""
-    masks = np.asarray(masks, dtype=np.int64)
-    uniq, inverse = np.unique(masks, return_inverse=True)
-    names = np.array([F.describe(m) for m in uniq], dtype=object)
-    return names[inverse.reshape(masks.shape)].astype(str) if masks.size else np.array([], dtype=str)
-
-
 def default_engine():
     """The temperature engine, imported only when a run needs it."""
     try:
@@ -240,7 +232,7 @@ def compute_chunk(chunk, cmap, opts, engine):
     old = np.asarray(res["flags"], dtype=np.int64) if "flags" in res.colnames else np.zeros(n, np.int64)
     masks = old | clean.flags
     res["flags"] = masks
-    res["flag_names"] = fast_flag_names(masks)
+    res["flag_names"] = F.describe_all(masks)
     res[NOTES_COLUMN] = clean.notes
     if "method" in res.meta and METHOD_COLUMN not in res.colnames:  # the method applied, row by row
         res[METHOD_COLUMN] = np.full(n, str(res.meta["method"]))
@@ -305,8 +297,18 @@ def merge_arrow(chunk, results, names, types=None, input_info=None):
     if input_info:
         fields = [tableio.with_column_info(f, *input_info.get(f.name, (None, None))) for f in left.schema]
         left = pa.Table.from_arrays(left.columns, schema=pa.schema(fields, metadata=left.schema.metadata))
-    right = tableio.results_to_arrow(results)
-    for f, col in zip(right.schema, right.columns):
+    coded = "flag_names" in results.colnames and "flags" in results.colnames
+    right = tableio.results_to_arrow(results[[c for c in results.colnames if c != "flag_names"]] if coded
+                                     else results)
+    for name in results.colnames:
+        if coded and name == "flag_names":
+            # the names from their dictionary encoding: one string per distinct mask, taken per row
+            codes, texts = F.encode(np.asarray(results["flags"], dtype=np.int64))
+            col = pa.array(list(texts), pa.string()).take(pa.array(codes))
+            f = pa.field(name, pa.string())
+        else:
+            col = right.column(name)
+            f = right.schema.field(name)
         field = tableio.with_column_info(pa.field(names[f.name], f.type, metadata=f.metadata),
                                          description=describe_result(f.name))
         left = left.append_column(field, col)
@@ -324,6 +326,7 @@ def merge_astropy(chunk, results, names, types=None, input_info=None):
         left = tableio.arrow_to_astropy(tableio.apply_types(chunk, types) if types else chunk)
     else:
         left = Table(chunk, copy=True)
+    left.meta.clear()  # the output's metadata is the run record alone
     for name, (unit, text) in (input_info or {}).items():
         if name in left.colnames:
             col = left[name]
@@ -332,7 +335,9 @@ def merge_astropy(chunk, results, names, types=None, input_info=None):
             if text and not col.info.description:
                 col.info.description = text
     for name in results.colnames:
-        left[names[name]] = results[name]
+        col = results[name]
+        # text held as shared str objects (flag names): fixed-width text for the file writers
+        left[names[name]] = col.astype(str) if getattr(col, "dtype", None) == object else col
         if not left[names[name]].info.description:
             left[names[name]].info.description = describe_result(name)
     return left
@@ -370,7 +375,8 @@ def _without(chunk, drop):
     return chunk[keep]
 
 
-def _progress(total, quiet):
+def progress_bar(total, quiet):
+    """A tqdm bar of rows on stderr, hidden when `quiet` or stderr is not a terminal."""
     from tqdm.auto import tqdm
 
     hidden = quiet or not sys.stderr.isatty()
@@ -441,7 +447,7 @@ def run_catalogue(
     opts.check()
     tableio.check_output(output_path, overwrite, input_path)
     reader = tableio.ChunkReader(input_path, chunk_rows)
-    old = _old_results(input_path, reader.colnames, renew_results)
+    old = check_old_results(input_path, reader.colnames, renew_results)
     colnames = [c for c in reader.colnames if c not in set(old)]
     cmap = resolve_mapping(colnames, mapping, ebv, ebv_err)
     input_info = input_units(colnames, cmap)
@@ -454,7 +460,7 @@ def run_catalogue(
 
     summary = RunSummary(input=str(input_path), output=str(output_path))
     names = None
-    with tableio.open_sink(output_path, run_record(cmap, opts), overwrite) as sink, _progress(
+    with tableio.open_sink(output_path, run_record(cmap, opts), overwrite) as sink, progress_bar(
         reader.num_rows, quiet
     ) as bar:
         merge = merge_arrow if sink.kind == "arrow" else merge_astropy
@@ -475,7 +481,7 @@ def run_catalogue(
     return summary
 
 
-def _old_results(source, colnames, renew):
+def check_old_results(source, colnames, renew):
     """Result columns of an earlier run in the input; refused unless ``renew``."""
     old = result_columns_in(colnames)
     if old and not renew:
@@ -509,7 +515,7 @@ def estimate_table(table, mapping=None, *, ebv=None, ebv_err=None, rv=3.1, law="
     """
     opts = RunOptions(rv=float(rv), law=law, method=method, fit_ebv=bool(fit_ebv))
     opts.check()
-    old = _old_results("the table", list(table.colnames), renew_results)
+    old = check_old_results("the table", list(table.colnames), renew_results)
     table = _without(table, old)
     cmap = resolve_mapping(list(table.colnames), mapping, ebv, ebv_err)
     res = compute_chunk(table, cmap, opts, engine or default_engine())
@@ -521,9 +527,13 @@ __all__ = [
     "RunOptions",
     "RunSummary",
     "compute_chunk",
+    "default_engine",
     "estimate_table",
     "merge_arrow",
     "merge_astropy",
+    "progress_bar",
     "resolve_mapping",
+    "result_names",
     "run_catalogue",
+    "run_record",
 ]

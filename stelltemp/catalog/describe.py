@@ -68,6 +68,7 @@ RESULT_DESCRIPTIONS = {
     "teff_cal_err": "1-sigma error of teff_cal (photometry, reddening and the relations' scatter)",
     "n_cal": "number of calibrated relations combined into teff_cal",
     "cal_relations": "keys of the calibrated relations combined into teff_cal (see `stelltemp relations`)",
+    "teff_cal_note": "what the calibration assumed for this star (class, [Fe/H]) and why a relation did not apply",
     "flags": "quality flag bits (meanings and severities in the table metadata, flag_<bit>_*)",
     "flag_names": "names of the flag bits set, comma-separated",
     "severity": "severity of the row's worst flag (info, warning, unusable)",
@@ -275,7 +276,7 @@ def record_to_text(record):
     """
     import json
 
-    return json.dumps(record, ensure_ascii=False, separators=(",", ":")).replace(" ", "\\u0020")
+    return json.dumps(record, ensure_ascii=False, separators=(",", ":"), default=str).replace(" ", "\\u0020")
 
 
 def record_from_text(text):

@@ -21,8 +21,8 @@ from stelltemp.catalog import tableio
 from stelltemp.catalog.batch import (
     RunOptions,
     RunSummary,
-    _old_results,
-    _progress,
+    check_old_results,
+    progress_bar,
     compute_chunk,
     default_engine,
     merge_arrow,
@@ -124,7 +124,7 @@ def run_catalogue_dask(
     in_schema = reader.schema if reader is not None else pa.Schema.from_pandas(ddf._meta, preserve_index=False)
     if len(set(in_schema.names)) != len(in_schema.names):
         raise StelltempError(f"{input_path}: repeated column names; run locally (it renames them)")
-    _old_results(input_path, in_schema.names, renew=False)  # a result table: renew it locally
+    check_old_results(input_path, in_schema.names, renew=False)  # a result table: renew it locally
     cmap = resolve_mapping(in_schema.names, mapping, ebv, ebv_err)
     engine = engine or default_engine()
 
@@ -149,7 +149,7 @@ def run_catalogue_dask(
     summary = RunSummary(input=str(input_path), output=str(output_path), backend="dask")
     result_out = [names[c] for c in probe.colnames]
     try:
-        with tableio.open_sink(output_path, run_record(cmap, opts), overwrite) as sink, _progress(
+        with tableio.open_sink(output_path, run_record(cmap, opts), overwrite) as sink, progress_bar(
             reader.num_rows if reader is not None else None, quiet
         ) as bar:
             for start in range(0, len(parts), window):

@@ -728,15 +728,17 @@ class AstropySink(Sink):
         for name in table.colnames:  # FITS and VOTable cannot hold Python objects
             if table[name].dtype.kind == "O":
                 table[name] = table[name].astype(str)
+        record = {**table.meta, **self.run_meta}  # the caller's table keeps its own metadata
+        table = table.copy(copy_data=False)
         table.meta.clear()
-        table.meta.update(self.run_meta)
+        table.meta.update(record)
         with warnings.catch_warnings():
             # writing long keys as HIERARCH cards is intended: they keep their case on reading
             warnings.simplefilter("ignore")
             if self.fmt == "fits":
                 table.write(self.tmp, format="fits", overwrite=True)
             elif self.fmt == "votable":
-                _write_votable(table, self.tmp, self.run_meta)
+                _write_votable(table, self.tmp, record)
             else:
                 table.write(self.tmp, format="ascii.ecsv", overwrite=True)
 

@@ -21,7 +21,7 @@ from astropy import units as u
 from astropy.table import QTable
 
 from .. import bandgrid as bg
-from ..calibrations import combine_teff, relations
+from ..calibrations import ASSUMED_STAGE, combine_teff, coverage_notes, relations
 from ..errors import StelltempError
 from ..extinction import DEFAULT_LAW, DEFAULT_RV, check_law
 from ..passbands import get_passband
@@ -75,6 +75,34 @@ def _clean_photometry(mags, errs, keys, n):
         e[~np.isfinite(e)] = DEFAULT_MAG_ERR
         e[e == 0] = 1e-4  # an exact magnitude: keep it, with a tiny error
     return m, e, flags
+
+
+#: stars per internal block of `estimate`: time and memory grow linearly with rows
+BLOCK_ROWS = 1 << 16
+
+
+def _in_blocks(call, n, per_star):
+    """``call(**inputs)`` over row blocks of the per-star inputs, results joined into one QTable.
+
+    Values of ``per_star`` with n entries are sliced per block; scalars (and
+    dicts of them) pass whole.  The engine works row by row, so the joined
+    table equals one unblocked call.
+    """
+    def part(value, sl):
+        if isinstance(value, dict):
+            return {k: part(v, sl) for k, v in value.items()}
+        return value[sl] if np.ndim(value) == 1 and np.size(value) == n else value
+
+    blocks = [call(**{k: part(v, slice(i, i + BLOCK_ROWS)) for k, v in per_star.items()})
+              for i in range(0, n, BLOCK_ROWS)]
+    first = blocks[0]
+    table = QTable(meta=first.meta)
+    for name in first.colnames:
+        cols = [b[name] for b in blocks]
+        joined = np.concatenate([np.asarray(getattr(c, "value", c)) for c in cols])
+        unit = getattr(first[name], "unit", None)
+        table[name] = joined * unit if isinstance(first[name], u.Quantity) else joined
+    return table
 
 
 def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=DEFAULT_RV,
@@ -136,6 +164,15 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
         raise StelltempError("fitting E(B−V) needs at least three bands")
     if int(monte_carlo) < 0:
         raise StelltempError("monte_carlo must be 0 or a positive number of samples")
+    n_rows = max((np.size(v) for v in mags.values()), default=0)
+    if n_rows > BLOCK_ROWS and not monte_carlo and isinstance(mags, dict):
+        per_star = dict(mags=mags, errs=errs, ebv=ebv, ebv_err=ebv_err, av=av, av_err=av_err,
+                        parallax=parallax, parallax_err=parallax_err, feh=feh, logg=logg)
+        values = [x for v in per_star.values() for x in (v.values() if isinstance(v, dict) else [v])]
+        if all(np.ndim(x) <= 1 and np.size(x) in (0, 1, n_rows) for x in values if x is not None):
+            return _in_blocks(lambda **kw: estimate(**kw, rv=rv, law=law, fit_ebv=fit_ebv, method=method),
+                              n_rows, per_star)
+        # otherwise the unblocked path below names the badly shaped input
     pivots = [get_passband(k).pivot_wavelength.value for k in keys]
     order = np.argsort(pivots)
     keys = [keys[i] for i in order]
@@ -178,7 +215,7 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
         derived = derived_quantities(t, np.where(np.isfinite(lnt_err), lnt_err, np.nan), theta,
                                      lntheta_err, cov_t_theta, plx, plx_err)
         terms = _reddening_terms(keys, t, core["ebv"], law, rv, core.get("model"), core.get("model_de"))
-        cal = _calibrated(m, e, keys, ebv_err, feh, logg, terms, n)
+        cal, cal_notes = _calibrated(m, e, keys, ebv_err, feh, logg, terms, n)
     flags |= cal.flags & ~fl.BAD_INPUT
 
     table = QTable()
@@ -206,8 +243,9 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
     table["teff_cal_err"] = cal.teff_err * u.K
     table["n_cal"] = cal.n_used
     table["cal_relations"] = _relations_used(cal, n)
+    table["teff_cal_note"] = np.asarray(cal_notes, dtype=str)
     table["flags"] = flags
-    table["flag_names"] = fl.describe_all(flags).astype(str)
+    table["flag_names"] = fl.describe_all(flags)
     table.meta.update({
         "method": "colour" if use_colour else ("fit+ebv" if fit_ebv else "fit"),
         "passbands": ",".join(keys),
@@ -215,6 +253,8 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
         "R_V": rv,
         "uncertainty": f"monte_carlo:{int(monte_carlo)}" if monte_carlo else "analytic",
         "note": BLACKBODY_NOTE,
+        "luminosity_class": ("log g given per star" if logg is not None else
+                             f"log g not given: {ASSUMED_STAGE} relations assumed for every star"),
     })
     return table
 
@@ -223,7 +263,8 @@ RESULT_COLUMNS = (
     "t_bb", "t_bb_lo", "t_bb_hi", "t_bb_err", "theta", "theta_err", "ebv_used", "ebv_used_err",
     "n_bands", "chi2", "dof", "p_value", "lambda_peak", "lambda_peak_err", "fbol", "fbol_err",
     "radius", "radius_err", "luminosity", "luminosity_err", "teff_cal", "teff_cal_err", "n_cal",
-    "cal_relations", "flags", "flag_names",
+    "cal_relations", "teff_cal_note",
+    "flags", "flag_names",
 )
 
 
@@ -356,8 +397,12 @@ def _calibrated(m, e, keys, ebv_err, feh, logg, terms, n):
         colours[(blue, red)] = m[:, b] - m[:, r] - excess
         errors[(blue, red)] = np.hypot(np.hypot(e[:, b], e[:, r]), slope_e * ebv_err)
     if not colours:
-        return SimpleNamespace(teff=np.full(n, np.nan), teff_err=np.full(n, np.nan),
-                               n_used=np.zeros(n, int), flags=np.full(n, fl.NO_CALIBRATION, np.int64))
+        return (SimpleNamespace(teff=np.full(n, np.nan), teff_err=np.full(n, np.nan), n_used=np.zeros(n, int),
+                                flags=np.full(n, fl.NO_CALIBRATION, np.int64)),
+                np.full(n, "no calibration: no calibrated colour among these passbands"))
     feh = None if feh is None else _column(feh, n, "[Fe/H]", unit=u.dex)
     logg = None if logg is None else _column(logg, n, "log g", unit=u.dex(u.cm / u.s**2))
-    return combine_teff(colours, errors, feh=feh, logg=logg)
+    res = combine_teff(colours, errors, feh=feh, logg=logg)
+    notes = coverage_notes(colours, feh=feh, logg=np.full(n, np.nan) if logg is None else logg,
+                           applied=~res.none_applicable)
+    return res, notes

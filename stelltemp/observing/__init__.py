@@ -12,5 +12,7 @@ Modules (one idea each):
 * ``night``      – twilight, altitude through the night, best windows
 * ``safety``     – Sun proximity and daylight warnings
 * ``plan``       – per-target, per-filter planning tables
-* ``cli_hooks``  – the ``exposure`` and ``nightplan`` subcommands
+* ``exposure``   – one star at an airmass or a time and place in the sky, with the Sun checks
+
+The ``exposure`` and ``nightplan`` subcommands live in :mod:`stelltemp.cli`.
 """

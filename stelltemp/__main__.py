@@ -1,0 +1,7 @@
+"""``python -m stelltemp``: the same as the ``stelltemp`` command."""
+
+import sys
+
+from .cli import main
+
+sys.exit(main())

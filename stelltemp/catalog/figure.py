@@ -1,0 +1,35 @@
+"""The colour–temperature diagram of a finished catalogue run, read back from its results file."""
+
+from ..errors import StelltempError
+
+__all__ = ["PLOT_ROWS", "plot_results"]
+
+#: rows of a results file drawn (a diagram of millions of points reads no better)
+PLOT_ROWS = 20_000
+
+
+def plot_results(results_path, figure_path, law="G23", rv=3.1, replace=False):
+    """Colour–temperature diagram of the first :data:`PLOT_ROWS` rows of a results file.
+
+    Parameters
+    ----------
+    results_path : str or Path
+        A table written by :func:`stelltemp.catalog.run_catalogue` (any format it writes).
+    figure_path : str or Path
+        PNG, PDF or SVG by extension; refused if it exists unless ``replace``.
+    law, rv
+        The extinction law and R_V of the run (for the reddening arrow).
+
+    Returns
+    -------
+    Path of the figure.
+    """
+    from ..plots import plot_catalogue_results
+    from .tableio import STREAMING, ChunkReader, arrow_to_astropy
+
+    reader = ChunkReader(results_path, chunk_rows=PLOT_ROWS)
+    first = next(iter(reader), None)
+    if first is None:
+        raise StelltempError(f"{results_path}: no rows to plot")
+    table = arrow_to_astropy(first) if reader.fmt in STREAMING else first[:PLOT_ROWS]
+    return plot_catalogue_results(table, figure_path, law=law, rv=rv, replace=replace)

@@ -1,0 +1,139 @@
+"""Command line: ``stelltemp <subcommand>``, a thin layer over the Python API.
+
+Every subcommand takes ``--json``; bad input prints one line,
+``stelltemp: error: …``, on stderr and exits with code 2 (never a
+traceback); writing into a closed pipe (``… --json | head``) ends quietly.
+
+Layout
+------
+``options``     option groups shared by the subcommands (reddening, magnitudes,
+                output files, ``--json``, ``--replace``), defined once
+``output``      JSON, numbers rounded as a scientist writes them, plain tables
+one module per subcommand, in :data:`COMMANDS` order:
+``passbands``   list the built-in passbands and their properties
+``blackbody``   Planck, Wien and Stefan–Boltzmann quantities for a temperature
+``colourgrid``  synthetic magnitudes and colours of blackbodies over temperatures
+``star``        temperature of one star from magnitudes typed on the command line
+``relations``   empirical colour–T_eff relations
+``catalogue``   temperatures for every row of a table file
+``exposure``    counts, S/N and exposure time for one star
+``nightplan``   windows and exposures for a target list in one night
+``standardise`` standard magnitudes from instrumental ones (transformation from standard stars)
+``tour``        the whole job once on the invented demo data
+
+How to add a subcommand
+-----------------------
+1. Write ``stelltemp/cli/<name>.py`` with two functions, like the others::
+
+       def add(subparsers):            # register the parser; shared groups from .options
+           p = subparsers.add_parser("<name>", help="…", description="…")
+           options.add_json(p)
+           p.set_defaults(run=run)
+           return p
+
+       def run(args, out=None, err=None):   # parse → call the public API → format; return 0
+           ...
+
+   ``run`` only turns arguments into API calls and results into text or
+   JSON (:mod:`.output`); anything a script could also want belongs in the
+   API.  Import the API inside ``run`` so ``stelltemp --help`` stays quick.
+   Raise :class:`stelltemp.errors.StelltempError` for bad input.
+2. Add the module to the import list and to :data:`COMMANDS` below.
+3. Test it through :func:`main` (``main(["<name>", …, "--json"])``).
+
+No module outside this package imports from it.
+"""
+
+import argparse
+import os
+import sys
+
+from .. import __version__
+from ..errors import StelltempError
+from . import blackbody, catalogue, colourgrid, exposure, nightplan, passbands, relations, standardise, star, tour
+from .options import HelpWithDefaults
+from .output import emit_json
+
+__all__ = ["COMMANDS", "EXIT_BAD_INPUT", "build_parser", "emit_json", "main", "run_parsed"]
+
+EXIT_BAD_INPUT = 2
+#: exit status after the reader of stdout went away (128 + SIGPIPE, as Unix tools report it)
+EXIT_CLOSED_PIPE = 141
+#: the subcommand modules, in the order ``--help`` lists them
+COMMANDS = (passbands, blackbody, colourgrid, star, relations, catalogue, exposure, nightplan, standardise, tour)
+
+
+class Parser(argparse.ArgumentParser):
+    """argparse, but a usage error is one line and exit code 2, and ``--help`` shows defaults."""
+
+    def __init__(self, *args, **kwargs):
+        kwargs.setdefault("formatter_class", HelpWithDefaults)
+        super().__init__(*args, **kwargs)
+
+    def error(self, message):
+        self.exit(EXIT_BAD_INPUT, f"stelltemp: error: {message} (see `{self.prog} --help`)\n")
+
+
+def build_parser():
+    """The ``stelltemp`` argument parser with every subcommand registered."""
+    parser = Parser(prog="stelltemp", description=(
+        "Temperatures of stars from their colours, with reddening applied through the passbands; "
+        "blackbody physics; exposure planning."))
+    parser.add_argument("--version", action="version", version=f"stelltemp {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="<subcommand>", parser_class=Parser)
+    for module in COMMANDS:
+        module.add(sub)
+    return parser
+
+
+def _closed_pipe():
+    """The reader went away: send further output nowhere and leave quietly."""
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+    except (OSError, ValueError, AttributeError):  # stdout without a file descriptor (tests)
+        pass
+    return EXIT_CLOSED_PIPE
+
+
+def run_parsed(args, **run_options):
+    """Run parsed arguments; one line on stderr for bad input; return the exit code.
+
+    ``run_options`` go to the subcommand's ``run`` (tests pass stand-ins, e.g.
+    ``engine=`` for ``catalogue``, ``out=``/``err=`` streams).
+    """
+    try:
+        code = int(args.run(args, **run_options) or 0)
+        sys.stdout.flush()
+        return code
+    except BrokenPipeError:
+        return _closed_pipe()
+    except StelltempError as exc:
+        print(f"stelltemp: error: {exc}", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except (OSError, ValueError) as exc:
+        print(f"stelltemp: error: {exc.__class__.__name__}: {exc}", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except KeyboardInterrupt:
+        print("stelltemp: interrupted", file=sys.stderr)
+        return 130
+    except Exception as exc:  # a bug of ours: one line, unless debugging
+        if os.environ.get("STELLTEMP_DEBUG"):
+            raise
+        print(f"stelltemp: internal error: {exc.__class__.__name__}: {exc} "
+              "(set STELLTEMP_DEBUG=1 for the traceback, and please report it)", file=sys.stderr)
+        return 1
+
+
+def main(argv=None):
+    """Run ``stelltemp`` with ``argv`` (default: the process arguments); return the exit code."""
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not getattr(args, "command", None):
+        parser.print_help()
+        return EXIT_BAD_INPUT
+    return run_parsed(args)
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,64 @@
+"""``stelltemp relations``: list the empirical colour–T_eff relations, or apply one to a colour."""
+
+import sys
+
+from ..errors import StelltempError
+from . import options
+from .output import emit_json, measure
+
+NAME = "relations"
+
+
+def add(subparsers):
+    p = subparsers.add_parser(NAME, help="list empirical colour-Teff relations, or apply one to a colour",
+                              description="Without --use: the loaded relations with their colour, stage, validity "
+                                          "ranges, scatter and source. With --use and --colour: the effective "
+                                          "temperature from that relation, with its error.")
+    p.add_argument("--bands", nargs="+", metavar="BAND", help="only relations whose two passbands are among these")
+    p.add_argument("--use", metavar="KEY", help="relation key to apply, e.g. c10_vk")
+    p.add_argument("--colour", type=float, metavar="MAG", help="dereddened colour, mag, for --use")
+    p.add_argument("--colour-err", type=float, default=0.0, metavar="MAG", help="1-sigma error of the colour, mag")
+    options.renamed(p, "--colour-error", "--colour-err", "colour_err", type=float, metavar="MAG")
+    p.add_argument("--feh", type=float, metavar="DEX", help="[Fe/H], dex (default: solar, 0.0, noted)")
+    p.add_argument("--logg", type=float, metavar="DEX",
+                   help="log g, cgs dex: selects dwarf or giant relations (default: dwarf)")
+    options.add_json(p)
+    p.set_defaults(run=run)
+    return p
+
+
+def run(args, out=None, err=None):
+    from ..calibrations import combine_teff, get_relation, relation_summary, relations, relations_for
+
+    out = out or sys.stdout
+    if args.use is None:
+        rels = relations_for(args.bands) if args.bands else relations()
+        if args.json:
+            emit_json({"relations": [relation_summary(r) for r in rels]}, out)
+            return 0
+        for r in rels:
+            print(f"{r.key:18s} {r.colour_name:7s} {r.stage:5s} "
+                  f"X in [{r.colour_range[0]:.2f}, {r.colour_range[1]:.2f}] mag  "
+                  f"[Fe/H] in [{r.feh_range[0]:.1f}, {r.feh_range[1]:.1f}]  "
+                  f"scatter {r.scatter:.0f} K  ({r.citation})", file=out)
+        return 0
+    if args.colour is None:
+        raise StelltempError("--use needs --colour")
+    rel = get_relation(args.use)
+    res = combine_teff({args.use: [args.colour]}, {args.use: [args.colour_err]},
+                       feh=None if args.feh is None else [args.feh],
+                       logg=None if args.logg is None else [args.logg])
+    applied = not res.none_applicable[0]
+    if args.json:
+        emit_json({"relation": relation_summary(rel), "colour_mag": args.colour,
+                   "teff_K": float(res.teff[0]) if applied else None,
+                   "teff_err_K": float(res.teff_err[0]) if applied else None,
+                   "feh_assumed": bool(res.feh_assumed[0]), "inside_range": bool(applied)}, out)
+        return 0 if applied else 1
+    if not applied:
+        print(f"{rel.label}: Teff — (colour {args.colour:.3f} mag, [Fe/H] or log g outside the published "
+              "range of this relation)", file=out)
+        return 1
+    note = " ([Fe/H] = 0 assumed)" if res.feh_assumed[0] else ""
+    print(f"{rel.label}: Teff = {measure(res.teff[0], res.teff_err[0], 'K')}{note}  ({rel.citation})", file=out)
+    return 0
