@@ -259,9 +259,17 @@ def get_passband(key_or_path, **file_options):
         return _builtin(text)
     if text in _USER_BANDS:
         return _USER_BANDS[text]
-    if Path(text).suffix.lower() in (".ecsv", ".csv", ".txt", ".dat") or Path(text).exists():
+    if Path(text).suffix.lower() in (".ecsv", ".csv", ".txt", ".dat") or _exists(text):
         return load_passband_file(text, **file_options)
     return _builtin(text)  # raises with a helpful message
+
+
+def _exists(text):
+    """True when `text` names an existing file (False for names no file system takes)."""
+    try:
+        return Path(text).exists()
+    except (OSError, ValueError):  # too long, NUL byte ...
+        return False
 
 
 _UNIT_ALIASES = {"a": "Angstrom", "aa": "Angstrom", "angstrom": "Angstrom", "angstroms": "Angstrom",

@@ -136,7 +136,7 @@ def test_record_holds_passbands_flags_and_assumptions(reference):
 def test_method_and_relations_per_row(reference):
     t = reference
     assert set(t["t_bb_method"]) == {"fit"}  # nine bands: the multi-band fit
-    rel = [str(x) for x in np.ma.filled(t["cal_relations"], "")]
+    rel = [_text(x) for x in t["cal_used"]]
     n_cal = np.asarray(t["n_cal"])
     assert [len(r.split(",")) if r else 0 for r in rel] == list(n_cal)
     teff = np.ma.filled(np.ma.asarray(t["teff_cal"], float), np.nan)

@@ -67,12 +67,18 @@ RESULT_DESCRIPTIONS = {
     "teff_cal": "effective temperature from empirical colour-T_eff calibrations (the T_eff to quote)",
     "teff_cal_err": "1-sigma error of teff_cal (photometry, reddening and the relations' scatter)",
     "n_cal": "number of calibrated relations combined into teff_cal",
-    "cal_relations": "keys of the calibrated relations combined into teff_cal (see `stelltemp relations`)",
+    "teff_cal_lo": "lower end of the 68 % interval of teff_cal",
+    "teff_cal_hi": "upper end of the 68 % interval of teff_cal",
+    "cal_used": "keys of the calibrated relations combined into teff_cal (see `stelltemp relations`)",
+    "cal_chi2": "chi-squared of the calibrated temperatures about teff_cal (their covariance included)",
+    "cal_dof": "degrees of freedom of cal_chi2",
+    "ebv_cal": "E(B-V) that makes the calibrated temperatures of the star's colours agree (when asked for)",
+    "ebv_cal_err": "1-sigma error of ebv_cal",
+    "assumed": "what was assumed for this row (defaults that change its numbers)",
     "teff_cal_note": "what the calibration assumed for this star (class, [Fe/H]) and why a relation did not apply",
     "flags": "quality flag bits (meanings and severities in the table metadata, flag_<bit>_*)",
     "flag_names": "names of the flag bits set, comma-separated",
     "severity": "severity of the row's worst flag (info, warning, unusable)",
-    "row_notes": "what was assumed or set aside for this row",
     "input_notes": "why an input value of this row was set aside",
     "t_bb_method": "how t_bb was found: colour (exact inversion of one colour) or fit (multi-band fit)",
 }
@@ -140,7 +146,13 @@ def describe_result(name):
     base = name
     while base not in RESULT_DESCRIPTIONS and base.endswith("_result"):
         base = base[: -len("_result")]
-    return RESULT_DESCRIPTIONS.get(base, f"result of the stelltemp engine ({base})")
+    if base in RESULT_DESCRIPTIONS:
+        return RESULT_DESCRIPTIONS[base]
+    each = re.match(r"^teff_(?P<key>.+?)(?P<err>_err)?$", base)  # one relation's T_eff (cal_detail)
+    if each:
+        return (f"1-sigma error of the T_eff from relation {each['key']}" if each["err"]
+                else f"effective temperature from relation {each['key']} alone")
+    return f"result of the stelltemp engine ({base})"
 
 
 def flag_record():
