@@ -307,13 +307,18 @@ def merge_arrow(chunk, results, names, types=None, input_info=None):
         fields = [tableio.with_column_info(f, *input_info.get(f.name, (None, None))) for f in left.schema]
         left = pa.Table.from_arrays(left.columns, schema=pa.schema(fields, metadata=left.schema.metadata))
     coded = "flag_names" in results.colnames and "flags" in results.colnames
-    right = tableio.results_to_arrow(results[[c for c in results.colnames if c != "flag_names"]] if coded
-                                     else results)
+    # text held as shared str objects goes to Arrow directly (pyarrow reads such arrays in C)
+    texts = [c for c in results.colnames if getattr(results[c], "dtype", None) == object
+             and getattr(results[c], "unit", None) is None]
+    right = tableio.results_to_arrow(results[[c for c in results.colnames if c not in texts]])
     for name in results.colnames:
         if coded and name == "flag_names":
             # the names from their dictionary encoding: one string per distinct mask, taken per row
-            codes, texts = F.encode(np.asarray(results["flags"], dtype=np.int64))
-            col = pa.array(list(texts), pa.string()).take(pa.array(codes))
+            codes, names_ = F.encode(np.asarray(results["flags"], dtype=np.int64))
+            col = pa.array(list(names_), pa.string()).take(pa.array(codes))
+            f = pa.field(name, pa.string())
+        elif name in texts:
+            col = pa.array(np.asarray(results[name]), pa.string(), from_pandas=True)
             f = pa.field(name, pa.string())
         else:
             col = right.column(name)
