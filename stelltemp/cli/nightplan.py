@@ -6,10 +6,11 @@ import sys
 from ..errors import StelltempError
 from . import options
 from .observing import add_goal_options, exposure_seconds, report
+from .output import sig
 
 NAME = "nightplan"
 COLUMNS = [("target", "{}"), ("filter", "{}"), ("window_start", "{}"), ("window_end", "{}"),
-           ("min_airmass", "{:.2f}"), ("star_rate", "{:.4g}"), ("exposure", "{:.3g}"), ("snr", "{:.1f}"),
+           ("min_airmass", "{:.2f}"), ("star_rate", sig(3)), ("exposure", sig(3)), ("snr", "{:.1f}"),
            ("saturation", "{}"), ("flags", "{}")]
 
 

@@ -77,10 +77,14 @@ def plan_exposure(instrument, mag, band=None, teff=None, *, ebv=0.0, snr=None, e
     Parameters
     ----------
     instrument : Instrument
-    mag : float
-        Magnitude outside the atmosphere, mag, in ``band``.
+    mag : float or dict
+        Magnitude outside the atmosphere, mag, in ``band``; or a dict
+        ``{band: mag}`` of several: each filter then takes the magnitude
+        measured in its own passband (or given under its filter name), and a
+        filter without one takes the first (scaled through the spectrum).
+        The ``mag_band`` column says which was used.
     band : str, optional
-        Passband key or instrument filter of ``mag`` (default: each filter's own).
+        Passband key or instrument filter of a single ``mag`` (default: each filter's own).
     teff : float, optional
         Blackbody temperature, K (default: a Vega-shaped spectrum).
     ebv : float
@@ -112,6 +116,12 @@ def plan_exposure(instrument, mag, band=None, teff=None, *, ebv=0.0, snr=None, e
     from .plan import plan_target
     from .safety import SUN_CAUTION
 
+    if isinstance(mag, dict):
+        if band is not None:
+            raise StelltempError("give the bands inside the magnitudes, not also as band")
+        return _plan_several(instrument, mag, teff, ebv=ebv, snr=snr, exposure_s=exposure_s, airmass=airmass,
+                             when=when, ra=ra, dec=dec, filters=filters, seeing_arcsec=seeing_arcsec,
+                             profile=profile)
     if mag < SUN_BRIGHT_MAG:
         raise StelltempError(f"magnitude {mag:g} is the Sun; stelltemp does not plan solar exposures. "
                              + SUN_CAUTION)
@@ -130,4 +140,33 @@ def plan_exposure(instrument, mag, band=None, teff=None, *, ebv=0.0, snr=None, e
         warnings_ = warnings_ + [f"magnitude {mag:g} is as bright as the Moon: "
                                  "use a filter of the right density and check for saturation"]
     table.meta["sun_warnings"] = warnings_
+    return table
+
+
+def _plan_several(instrument, mags, teff, *, filters=None, **options):
+    """:func:`plan_exposure` with several magnitudes: each filter takes its own band's, else the first."""
+    from astropy.table import vstack
+
+    from ..passbands import get_passband
+
+    if not mags:
+        raise StelltempError("give at least one magnitude")
+    by_key = {}
+    for b, m in mags.items():
+        key = instrument.filters[b].passband.key if b in instrument.filters else get_passband(b).key
+        if key in by_key:
+            raise StelltempError(f"two magnitudes for passband {key}")
+        by_key[key] = (b, float(m))
+    first = next(iter(by_key.values()))
+    names = list(filters) if filters else list(instrument.filters)
+    choice = {f: by_key.get(instrument.filter(f).passband.key, first) for f in names}
+    parts = []
+    for b, m in dict.fromkeys(choice.values()):
+        parts.append(plan_exposure(instrument, m, b, teff, filters=[f for f in names if choice[f] == (b, m)],
+                                   **options))
+    table = vstack(parts, metadata_conflicts="silent") if len(parts) > 1 else parts[0]
+    order = {f: i for i, f in enumerate(names)}
+    table = table[sorted(range(len(table)), key=lambda i: order[table["filter"][i]])]
+    table.meta = dict(parts[0].meta)
+    table.meta["sun_warnings"] = list(dict.fromkeys(w for p in parts for w in p.meta["sun_warnings"]))
     return table
