@@ -1,42 +1,48 @@
 """Empirical colour–effective-temperature relations from the literature.
 
-Every relation here has the form
+Three functional forms, one evaluation path (`Relation`):
 
-    θ = 5040 K / T_eff = c0 + c1·X + c2·X² + c3·X·[Fe/H] + c4·[Fe/H] + c5·[Fe/H]²
+* ``theta`` — θ = S / T_eff = Σ cᵢ Xᵖ [Fe/H]ᑫ (S = 5040 K): the infrared-flux-
+  method relations (Casagrande et al. 2010; Mucciarelli et al. 2021);
+* ``linear`` — T_eff = S · Σ cᵢ Xᵖ [Fe/H]ᑫ (S = 3500 K for Mann et al. 2015);
+* ``table`` — T_eff interpolated linearly in a tabulated intrinsic-colour
+  sequence (Pecaut & Mamajek 2013), used only where the colour is monotonic.
 
-with X a dereddened colour index (blue − red, in magnitudes).  The
+X is a dereddened colour index (blue − red, in magnitudes).  The
 coefficients live as ECSV package data in ``stelltemp/data/calibrations/``,
 one table per paper, with the citation, the validity ranges and the
-published scatter in the table and its metadata.  Each table names the
-term multiplied by each of its coefficient columns (``terms`` in the
-metadata), so a paper's own coefficient order is kept in the file.
+published scatter in the table and its metadata.  Each polynomial table
+names the term multiplied by each of its coefficient columns (``terms`` in
+the metadata: ``1``, ``X``, ``X^3``, ``[Fe/H]^2``, ``X*[Fe/H]`` …), so a
+paper's own coefficient order is kept in the file.
 
-Loaded relations:
+Loaded relations (see each table's metadata for what was verified):
 
 * Casagrande, Ramírez, Meléndez, Bessell & Asplund 2010, A&A 512, A54,
-  Table 4 — dwarfs and subgiants; B−V, V−Rc, (R−I)c, V−Ic, V−J, V−H, V−Ks,
-  J−Ks (Johnson–Cousins, 2MASS).
+  Table 4 — FGK dwarfs and subgiants; B−V, V−Rc, (R−I)c, V−Ic, V−J, V−H,
+  V−Ks, J−Ks.
 * Mucciarelli, Bellazzini & Massari 2021, A&A 653, A90, Table 1 — Gaia
-  EDR3/DR3 (BP−RP)₀ for dwarfs (log g ≥ 3) and giants (log g < 3).  The
-  transcription of this table is from secondary sources; see the table
-  metadata before relying on its last digit.
+  (BP−RP)₀ for dwarfs (log g ≥ 3) and giants (log g < 3).
+* Mann, Feiden, Gaidos, Boyajian & von Braun 2015, ApJ 804, 64, Table 2 as
+  corrected in their 2016 erratum (ApJ 819, 87) — K7–M7 dwarfs,
+  2,700–4,100 K; V−J, V−Ic, r−z, r−J.
+* Pecaut & Mamajek 2013, ApJS 208, 9, Table 5 (the dwarf sequence, in its
+  maintained online version) — hot dwarfs (O9V–F0V) in U−B, B−V and V−Ks,
+  and K7V–M9V dwarfs in V−Ks and V−Ic.
 
 A relation is never extrapolated: outside its published colour or [Fe/H]
-range it returns NaN and says so in a boolean array.
+range it returns NaN and says so in a boolean array.  Stars of unknown
+log g are taken as dwarfs (`ASSUMED_STAGE`), and every caller is expected
+to say so (`stage_assumed`).
 
-Several relations are combined per star by inverse-variance weighting
-(`combine_teff`).  The total error of one relation is the colour error
-propagated through the analytic dT_eff/dX, in quadrature with the
-relation's published scatter.  The weighted mean treats the relations as
-independent; colours that share a band (six of the eight C10 colours
-contain V) and the common calibration sample make them positively
-correlated, so the combined error is a lower limit when one band
-dominates the error budget.
+Several relations are combined per star by `combine_teff` (inverse-variance
+weighting; see its notes on correlated errors).
 """
 
 from __future__ import annotations
 
 import functools
+import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -47,8 +53,11 @@ from stelltemp.errors import StelltempError
 #: θ_eff · T_eff (K): the usual scaling of the reciprocal temperature.
 THETA_SCALE = 5040.0
 
-#: canonical order of the six terms; tables map their own columns onto it
+#: canonical order of the terms of the θ relations; other terms follow these
 TERMS = ("1", "X", "X^2", "X*[Fe/H]", "[Fe/H]", "[Fe/H]^2")
+
+#: functional forms a table may declare in its metadata (``form``)
+FORMS = ("theta", "linear", "table")
 
 #: the directory read by `relations()`
 CALIBRATION_DIR = Path(__file__).resolve().parent / "data" / "calibrations"
@@ -56,11 +65,15 @@ CALIBRATION_DIR = Path(__file__).resolve().parent / "data" / "calibrations"
 #: [Fe/H] adopted when none is given (solar metallicity)
 DEFAULT_FEH = 0.0
 
+#: luminosity class assumed for a star of unknown log g
+ASSUMED_STAGE = "dwarf"
+
 _JOURNAL_ABBREV = {
     "Astronomy & Astrophysics": "A&A",
     "Monthly Notices of the Royal Astronomical Society": "MNRAS",
     "The Astrophysical Journal": "ApJ",
     "Astrophysical Journal": "ApJ",
+    "The Astrophysical Journal Supplement Series": "ApJS",
 }
 
 
@@ -71,6 +84,51 @@ def _float_array(value, name):
         return np.asarray(value, dtype=np.float64)
     except (TypeError, ValueError):
         raise StelltempError(f"{name} must be numeric, got {value!r:.60}") from None
+
+
+_FACTOR = re.compile(r"^(X|\[Fe/H\])(?:\^([1-9]))?$")
+
+
+def parse_term(term):
+    """Powers ``(p, q)`` of X and [Fe/H] in a term name such as ``'X^2*[Fe/H]'``.
+
+    Examples
+    --------
+    >>> parse_term("1"), parse_term("X^3"), parse_term("X*[Fe/H]")
+    ((0, 0), (3, 0), (1, 1))
+    """
+    term = str(term).replace(" ", "")
+    if term == "1":
+        return (0, 0)
+    p = q = 0
+    for factor in term.split("*"):
+        m = _FACTOR.match(factor)
+        if not m:
+            raise StelltempError(f"cannot read the calibration term {term!r} "
+                                 "(use 1, X, X^n, [Fe/H], [Fe/H]^n and products with *)")
+        n = int(m.group(2) or 1)
+        if m.group(1) == "X":
+            p += n
+        else:
+            q += n
+    return (p, q)
+
+
+def _term_order(powers):
+    """Sort key: the six classic terms first (in `TERMS` order), then by powers."""
+    canon = [parse_term(t) for t in TERMS]
+    return (canon.index(powers), 0, 0) if powers in canon else (len(canon), *powers)
+
+
+def stage_assumed(logg):
+    """True where log g is unknown (None or NaN), so `ASSUMED_STAGE` was used.
+
+    >>> stage_assumed([4.4, float("nan")]).tolist()
+    [False, True]
+    """
+    if logg is None:
+        return np.asarray(True)
+    return ~np.isfinite(_float_array(logg, "log g"))
 
 
 # ---------------------------------------------------------------- records
@@ -96,7 +154,7 @@ class Citation:
 
 @dataclass(frozen=True)
 class Relation:
-    """One published colour–T_eff–[Fe/H] relation.
+    """One published colour–T_eff(–[Fe/H]) relation.
 
     Attributes
     ----------
@@ -109,10 +167,11 @@ class Relation:
     blue, red : str
         Passband keys (``jc.B``, ``2mass.Ks``, ``gaia3.BP`` ...); the colour
         is ``m(blue) − m(red)``.
-    coeffs : tuple of 6 float
-        c0…c5 in the canonical term order `TERMS`.
+    coeffs : tuple of float
+        Polynomial coefficients, one per entry of ``terms`` (empty for a
+        tabulated sequence).
     colour_range : (float, float)
-        Published validity range of the colour, mag, inclusive.
+        Validity range of the colour, mag, inclusive.
     feh_range : (float, float)
         Validity range in [Fe/H], dex, inclusive.
     feh_floor : float or None
@@ -124,12 +183,25 @@ class Relation:
     stage : str
         ``"dwarf"`` or ``"giant"``; stars of unknown log g count as dwarfs.
     scatter : float
-        Published 1σ scatter of the relation, K.
+        Published (or, where the table says so, adopted) constant 1σ
+        scatter of the relation, K.
     n_stars : int or None
         Number of calibrating stars, where recorded.
     citation : Citation
     source : str
         File name of the table it came from.
+    terms : tuple of str
+        Term names of ``coeffs`` (canonical order: `TERMS` first).
+    form : {"theta", "linear", "table"}
+        θ = scale/T_eff = P;  T_eff = scale·P;  or linear interpolation in
+        ``nodes``.
+    scale : float
+        S of the polynomial forms, K.
+    scatter_frac : float
+        A scatter proportional to T_eff (dimensionless), added in quadrature
+        to ``scatter`` (`scatter_at`).
+    nodes : tuple
+        ``(colours, teffs)`` of a tabulated sequence, colours increasing.
     """
 
     key: str
@@ -147,13 +219,27 @@ class Relation:
     n_stars: int | None
     citation: Citation
     source: str = field(default="", compare=False)
+    terms: tuple = TERMS
+    form: str = "theta"
+    scale: float = THETA_SCALE
+    scatter_frac: float = 0.0
+    nodes: tuple = ()
 
     @property
     def bands(self):
         """``(blue, red)`` passband keys."""
         return (self.blue, self.red)
 
-    # -- evaluation -----------------------------------------------------
+    @functools.cached_property
+    def _powers(self):
+        return tuple(parse_term(t) for t in self.terms)
+
+    def scatter_at(self, teff):
+        """Total published/adopted 1σ scatter at T_eff, K: hypot(scatter, scatter_frac·T)."""
+        t = _float_array(teff, "T_eff")
+        return np.hypot(self.scatter, self.scatter_frac * t)
+
+    # -- evaluation (the one path for every form) -------------------------
     def _prepare(self, colour, feh):
         x = _float_array(colour, "colour")
         z = _float_array(DEFAULT_FEH if feh is None else feh, "[Fe/H]")
@@ -168,9 +254,38 @@ class Relation:
         z_eval = z if self.feh_floor is None else np.maximum(z, self.feh_floor)
         return x, z, z_eval, inside
 
-    def _theta(self, x, z):
-        c0, c1, c2, c3, c4, c5 = self.coeffs
-        return c0 + x * (c1 + c2 * x + c3 * z) + z * (c4 + c5 * z)
+    def _poly(self, x, z, dx=0, dz=0):
+        """Σ cᵢ ∂(Xᵖ Zᑫ) with ``dx``/``dz`` derivatives (0 or 1) taken."""
+        out = np.zeros(np.broadcast(x, z).shape)
+        for c, (p, q) in zip(self.coeffs, self._powers):
+            k = c
+            if dx:
+                k, p = k * p, p - 1
+            if dz:
+                k, q = k * q, q - 1
+            if k == 0.0:
+                continue
+            out = out + k * x**p * z**q
+        return out
+
+    def _evaluate(self, x, z):
+        """(T_eff, ∂T/∂X, ∂T/∂Z, valid) at colour x and evaluation [Fe/H] z."""
+        with np.errstate(divide="ignore", invalid="ignore"):
+            if self.form == "table":
+                xs, ts = (np.asarray(v, float) for v in self.nodes)
+                xc = np.clip(np.where(np.isfinite(x), x, xs[0]), xs[0], xs[-1])
+                t = np.interp(xc, xs, ts)
+                seg = np.clip(np.searchsorted(xs, xc, side="right") - 1, 0, len(xs) - 2)
+                d_x = (ts[seg + 1] - ts[seg]) / (xs[seg + 1] - xs[seg])
+                return t, d_x, np.zeros_like(t), np.isfinite(x)
+            p = self._poly(x, z)
+            if self.form == "theta":
+                t = self.scale / p
+                d_x = -self.scale * self._poly(x, z, dx=1) / p**2
+                d_z = -self.scale * self._poly(x, z, dz=1) / p**2
+                return t, d_x, d_z, p > 0.0
+            t = self.scale * p
+            return t, self.scale * self._poly(x, z, dx=1), self.scale * self._poly(x, z, dz=1), t > 0.0
 
     def theta(self, colour, feh=DEFAULT_FEH):
         """θ_eff = 5040 K / T_eff, evaluated only inside the validity range.
@@ -187,8 +302,9 @@ class Relation:
         ndarray
             θ_eff (dimensionless); NaN outside the validity range.
         """
-        x, _, z_eval, inside = self._prepare(colour, feh)
-        return np.where(inside, self._theta(x, z_eval), np.nan)
+        t, inside = self.teff(colour, feh)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return np.where(inside, THETA_SCALE / t, np.nan)
 
     def teff(self, colour, feh=DEFAULT_FEH):
         """Effective temperature from a dereddened colour.
@@ -211,40 +327,38 @@ class Relation:
         Notes
         -----
         Surface gravity is not checked here; see `applies_to`.
+
+        Examples
+        --------
+        >>> t, ok = get_relation("c10_vk").teff(1.56, 0.0)
+        >>> round(float(t)), bool(ok)
+        (5755, True)
         """
         x, _, z_eval, inside = self._prepare(colour, feh)
-        theta = self._theta(x, z_eval)
-        inside = inside & (theta > 0.0)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            teff = np.where(inside, THETA_SCALE / theta, np.nan)
-        return teff, inside
+        t, _, _, valid = self._evaluate(x, z_eval)
+        inside = inside & valid
+        return np.where(inside, t, np.nan), inside
 
     def dteff_dcolour(self, colour, feh=DEFAULT_FEH):
         """Analytic ∂T_eff/∂X in K mag⁻¹ (NaN outside the validity range).
 
-        From T = 5040/θ:  ∂T/∂X = −5040 (c1 + 2 c2 X + c3 [Fe/H]) / θ².
+        θ form: ∂T/∂X = −S ∂P/∂X / P²;  linear form: S ∂P/∂X;  table: the
+        slope of the segment the colour falls in.
         """
         x, _, z_eval, inside = self._prepare(colour, feh)
-        c0, c1, c2, c3, c4, c5 = self.coeffs
-        theta = self._theta(x, z_eval)
-        inside = inside & (theta > 0.0)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            d = -THETA_SCALE * (c1 + 2.0 * c2 * x + c3 * z_eval) / theta**2
-        return np.where(inside, d, np.nan)
+        _, d_x, _, valid = self._evaluate(x, z_eval)
+        return np.where(inside & valid, d_x, np.nan)
 
     def dteff_dfeh(self, colour, feh=DEFAULT_FEH):
         """Analytic ∂T_eff/∂[Fe/H] in K dex⁻¹ (NaN outside the validity range).
 
-        Zero below `feh_floor`, where the formula is held at the floor.
+        Zero below `feh_floor`, where the formula is held at the floor, and
+        for tabulated sequences (no [Fe/H] term).
         """
         x, z, z_eval, inside = self._prepare(colour, feh)
-        c0, c1, c2, c3, c4, c5 = self.coeffs
-        theta = self._theta(x, z_eval)
-        inside = inside & (theta > 0.0)
+        _, _, d_z, valid = self._evaluate(x, z_eval)
         held = np.zeros(z.shape, bool) if self.feh_floor is None else z < self.feh_floor
-        with np.errstate(divide="ignore", invalid="ignore"):
-            d = -THETA_SCALE * (c3 * x + c4 + 2.0 * c5 * z_eval) / theta**2
-        return np.where(inside, np.where(held, 0.0, d), np.nan)
+        return np.where(inside & valid, np.where(held, 0.0, d_z), np.nan)
 
     def applies_to(self, logg=None):
         """Whether the relation's luminosity class fits each star.
@@ -253,19 +367,27 @@ class Relation:
         ----------
         logg : array_like or None
             log g (cgs, dex).  None or NaN means unknown: the star is then
-            assumed to be a dwarf, so only dwarf relations apply.
+            assumed to be a dwarf (`ASSUMED_STAGE`), so only dwarf relations
+            apply; `stage_assumed` tells where that happened.
 
         Returns
         -------
         ndarray of bool (or a bool scalar array when ``logg`` is None)
         """
         if logg is None:
-            return np.asarray(self.stage == "dwarf")
+            return np.asarray(self.stage == ASSUMED_STAGE)
         g = _float_array(logg, "log g")
         known = np.isfinite(g)
         with np.errstate(invalid="ignore"):
             in_range = (g >= self.logg_range[0]) & (g < self.logg_range[1])
-        return np.where(known, in_range, self.stage == "dwarf")
+        return np.where(known, in_range, self.stage == ASSUMED_STAGE)
+
+    def range_text(self):
+        """The validity ranges in words, e.g. ``'V-Ks 0.78–3.15 mag, [Fe/H] −5.0…0.4, dwarf'``."""
+        lo, hi = self.colour_range
+        return (f"{self.colour_name} {lo:.2f} to {hi:.2f} mag, [Fe/H] {self.feh_range[0]:+.1f} to "
+                f"{self.feh_range[1]:+.1f}, {self.stage} (log g {self.logg_range[0]:g} to "
+                f"{self.logg_range[1]:g})")
 
 
 # ---------------------------------------------------------------- loading
@@ -274,17 +396,42 @@ def _meta_str(meta, name, default=""):
     return str(value) if value is not None else default
 
 
+def _citation(meta, name):
+    cit = meta.get("citation") or {}
+    if not cit.get("authors") or not cit.get("year"):
+        raise StelltempError(f"{name}: meta 'citation' needs at least authors and year")
+    return Citation(
+        authors=str(cit["authors"]), year=int(cit["year"]),
+        journal=_meta_str(cit, "journal"), volume=_meta_str(cit, "volume"),
+        page=_meta_str(cit, "page"), table=_meta_str(cit, "table"))
+
+
+def _check(rel, name):
+    if rel.stage not in ("dwarf", "giant"):
+        raise StelltempError(f"{name}: {rel.key}: stage must be 'dwarf' or 'giant'")
+    if not (rel.scatter > 0 or rel.scatter_frac > 0):
+        raise StelltempError(f"{name}: {rel.key}: the scatter must be positive")
+    if not rel.colour_range[0] < rel.colour_range[1]:
+        raise StelltempError(f"{name}: {rel.key}: empty colour range")
+    return rel
+
+
 def load_relations(path):
     """Read one calibration table (ECSV) into `Relation` objects.
 
     Parameters
     ----------
     path : str or Path
-        ECSV file with columns ``key label colour blue red stage feh_min
-        feh_max colour_min colour_max sigma_teff logg_min logg_max``, the six
-        coefficient columns named in ``meta['coefficient_columns']`` whose
-        terms are listed (same order) in ``meta['terms']``, and optionally
-        ``feh_floor`` and ``n_stars``; the citation in ``meta['citation']``.
+        ECSV file.  Polynomial tables (``meta['form']`` ``theta``, the
+        default, or ``linear`` with ``meta['scale']`` in K) have columns
+        ``key label colour blue red stage feh_min feh_max colour_min
+        colour_max sigma_teff logg_min logg_max``, the coefficient columns
+        named in ``meta['coefficient_columns']`` whose terms are listed (same
+        order) in ``meta['terms']``, and optionally ``feh_floor`` and
+        ``n_stars``.  Tabulated sequences (``form: table``) have one row per
+        node with a ``teff`` column and one column per colour, and list their
+        relations in ``meta['relations']``.  The citation is in
+        ``meta['citation']``.
 
     Returns
     -------
@@ -298,21 +445,24 @@ def load_relations(path):
     except Exception as exc:  # noqa: BLE001 - any reader failure is bad input
         raise StelltempError(f"cannot read calibration table {path.name}: {exc}") from None
     meta = table.meta
+    form = str(meta.get("form", "theta"))
+    if form not in FORMS:
+        raise StelltempError(f"{path.name}: meta 'form' must be one of {', '.join(FORMS)}")
+    citation = _citation(meta, path.name)
+    if form == "table":
+        return _load_sequence(table, citation, path.name)
+
     cols = list(meta.get("coefficient_columns", []))
     terms = list(meta.get("terms", []))
-    if len(cols) != 6 or sorted(terms) != sorted(TERMS) or len(terms) != 6:
-        raise StelltempError(
-            f"{path.name}: meta must list six coefficient_columns and their terms {TERMS}")
-    order = [cols[terms.index(term)] for term in TERMS]
-    cit = meta.get("citation") or {}
-    if not cit.get("authors") or not cit.get("year"):
-        raise StelltempError(f"{path.name}: meta 'citation' needs at least authors and year")
-    citation = Citation(
-        authors=str(cit["authors"]), year=int(cit["year"]),
-        journal=_meta_str(cit, "journal"), volume=_meta_str(cit, "volume"),
-        page=_meta_str(cit, "page"), table=_meta_str(cit, "table"))
+    if not cols or len(cols) != len(terms):
+        raise StelltempError(f"{path.name}: meta must list coefficient_columns and as many terms")
+    powers = [parse_term(t) for t in terms]
+    if len(set(powers)) != len(powers):
+        raise StelltempError(f"{path.name}: a term is listed twice in meta 'terms'")
+    order = sorted(range(len(cols)), key=lambda i: _term_order(powers[i]))
+    scale = float(meta.get("scale", THETA_SCALE))
     needed = ("key", "label", "colour", "blue", "red", "stage", "feh_min", "feh_max",
-              "colour_min", "colour_max", "sigma_teff", "logg_min", "logg_max", *order)
+              "colour_min", "colour_max", "sigma_teff", "logg_min", "logg_max", *cols)
     missing = [c for c in needed if c not in table.colnames]
     if missing:
         raise StelltempError(f"{path.name}: missing column(s) {', '.join(missing)}")
@@ -324,18 +474,51 @@ def load_relations(path):
         rel = Relation(
             key=str(row["key"]), label=str(row["label"]), colour_name=str(row["colour"]),
             blue=str(row["blue"]), red=str(row["red"]),
-            coeffs=tuple(float(row[c]) for c in order),
+            coeffs=tuple(float(row[cols[i]]) for i in order),
             colour_range=(float(row["colour_min"]), float(row["colour_max"])),
             feh_range=(float(row["feh_min"]), float(row["feh_max"])),
             feh_floor=None if not np.isfinite(floor) else floor,
             logg_range=(float(row["logg_min"]), float(row["logg_max"])),
             stage=str(row["stage"]), scatter=float(row["sigma_teff"]), n_stars=n,
-            citation=citation, source=path.name)
-        if rel.stage not in ("dwarf", "giant"):
-            raise StelltempError(f"{path.name}: {rel.key}: stage must be 'dwarf' or 'giant'")
-        if not rel.scatter > 0:
-            raise StelltempError(f"{path.name}: {rel.key}: sigma_teff must be positive")
-        out.append(rel)
+            citation=citation, source=path.name,
+            terms=tuple(str(terms[i]).replace(" ", "") for i in order), form=form, scale=scale)
+        out.append(_check(rel, path.name))
+    return out
+
+
+def _load_sequence(table, citation, name):
+    """Relations of a tabulated colour sequence (``form: table``)."""
+    specs = table.meta.get("relations") or []
+    if "teff" not in table.colnames or not specs:
+        raise StelltempError(f"{name}: a tabulated sequence needs a 'teff' column and meta 'relations'")
+    teff = np.asarray(table["teff"], float)
+    out = []
+    for spec in specs:
+        try:
+            col = str(spec["column"])
+            t_lo, t_hi = (float(v) for v in spec["teff_range"])
+            x = np.ma.filled(np.ma.asarray(table[col], dtype=float), np.nan)
+        except (KeyError, TypeError, ValueError):
+            raise StelltempError(f"{name}: relation entry {spec!r:.80} needs column and teff_range "
+                                 "naming a numeric column") from None
+        use = (teff >= t_lo) & (teff <= t_hi) & np.isfinite(x)
+        xs, ts = x[use], teff[use]
+        order = np.argsort(xs)
+        xs, ts = xs[order], ts[order]
+        if len(xs) < 2 or np.any(np.diff(xs) <= 0) or np.any(np.diff(ts) >= 0):
+            raise StelltempError(f"{name}: {spec.get('key')}: {col} is not strictly monotonic "
+                                 f"between {t_lo:g} and {t_hi:g} K; narrow teff_range")
+        rel = Relation(
+            key=str(spec["key"]), label=str(spec.get("label", spec["key"])), colour_name=col,
+            blue=str(spec["blue"]), red=str(spec["red"]), coeffs=(),
+            colour_range=(float(xs[0]), float(xs[-1])),
+            feh_range=tuple(float(v) for v in spec["feh_range"]), feh_floor=None,
+            logg_range=tuple(float(v) for v in spec["logg_range"]), stage=str(spec["stage"]),
+            scatter=float(spec.get("sigma_teff", 0.0)), n_stars=None, citation=citation,
+            source=name, terms=(), form="table", scale=1.0,
+            scatter_frac=float(spec.get("sigma_teff_frac", 0.0)),
+            nodes=(tuple(xs.tolist()), tuple(ts.tolist())))
+        out.append(_check(rel, name))
     return out
 
 
@@ -400,6 +583,82 @@ def _resolve(colour_key):
         return found
     raise StelltempError(
         f"colour key must be a relation key or a (blue, red) pair, got {colour_key!r}")
+
+
+# ------------------------------------------------------------ coverage
+def coverage_notes(colours, feh=None, logg=None, applied=None):
+    """Per star, what was assumed about its class and why no relation applied.
+
+    Parameters
+    ----------
+    colours : dict
+        ``(blue, red)`` passband pair → dereddened colour array, mag (NaN =
+        not measured), the colours offered to the relations.
+    feh, logg : array_like or None
+        [Fe/H] and log g (dex) as given (None/NaN = unknown).
+    applied : array_like of bool, optional
+        Stars that did get a calibrated T_eff; they get only the class note.
+        Default: recomputed from the relations.
+
+    Returns
+    -------
+    ndarray of str
+        One note per star ("" when there is nothing to say), e.g.
+        ``"log g unknown: dwarf assumed"`` or ``"no calibration: V-Ks 9.80
+        mag outside every dwarf relation for it (C10 V-Ks 0.78 to 3.15; …)"``.
+
+    Examples
+    --------
+    >>> coverage_notes({("jc.V", "2mass.Ks"): [1.6, 12.0]}, feh=0.0, logg=[4.4, 4.4]).tolist()
+    ['', 'no calibration: V-Ks = 12.00 mag outside every dwarf relation for it (C10 V-Ks 0.78 to 3.15; PM13 V-Ks hot dwarfs -1.00 to 0.73; PM13 V-Ks M dwarfs 3.35 to 9.00)']
+    """
+    pairs = {k: _float_array(v, f"colour {k}") for k, v in colours.items()}
+    z = _float_array(np.nan if feh is None else feh, "[Fe/H]")
+    g = _float_array(np.nan if logg is None else logg, "log g")
+    shape = np.broadcast_shapes(*(x.shape for x in pairs.values()), z.shape, g.shape)
+    z = np.broadcast_to(np.where(np.isfinite(z), z, DEFAULT_FEH), shape)
+    g = np.broadcast_to(g, shape)
+    assumed = np.broadcast_to(~np.isfinite(g), shape)
+    rels = [(r, np.broadcast_to(pairs[r.bands], shape)) for r in _registry() if r.bands in pairs]
+    if applied is None:
+        applied = np.zeros(shape, bool)
+        for rel, x in rels:
+            applied |= rel.applies_to(g) & rel.teff(x, z)[1]
+    applied = np.broadcast_to(np.asarray(applied, bool), shape)
+    notes = np.full(shape, "", dtype=object)
+    notes[assumed] = f"log g unknown: {ASSUMED_STAGE} assumed"
+    for idx in zip(*np.nonzero(~applied)):
+        stage = ASSUMED_STAGE if assumed[idx] else None
+        why, measured = [], False
+        by_colour = {}
+        for rel, x in rels:
+            xi, zi, gi = float(x[idx]), float(z[idx]), float(g[idx])
+            if not np.isfinite(xi):
+                continue
+            measured = True
+            if not bool(rel.applies_to(gi)):
+                continue
+            stage = rel.stage
+            lo, hi = rel.colour_range
+            entry = by_colour.setdefault(rel.colour_name, [xi, []])
+            if lo <= xi <= hi:
+                entry[1].append(f"{rel.label}: [Fe/H] {zi:+.2f} outside "
+                                f"{rel.feh_range[0]:+.1f} to {rel.feh_range[1]:+.1f}")
+            else:
+                entry[1].append(f"{rel.label} {lo:.2f} to {hi:.2f}")
+        for name, (xi, parts) in by_colour.items():
+            why.append(f"{name} = {xi:.2f} mag outside every {stage} relation for it ({'; '.join(parts)})")
+        if not measured:
+            text = "no calibration: none of the calibrated colours was measured"
+        elif not why:
+            cls = "giant" if np.isfinite(g[idx]) and g[idx] < 3.0 else "dwarf"
+            text = (f"no calibration: no relation for a {cls} (log g {g[idx]:.2f}) "
+                    "in the measured colours" if np.isfinite(g[idx]) else
+                    "no calibration: no relation in the measured colours")
+        else:
+            text = "no calibration: " + "; ".join(why)
+        notes[idx] = text if not assumed[idx] else f"{text}; log g unknown: {ASSUMED_STAGE} assumed"
+    return notes.astype(str)
 
 
 # ------------------------------------------------------------ combination
@@ -545,7 +804,7 @@ def combine_teff(colours, errors=None, feh=None, logg=None):
         bad |= np.isfinite(x) & ~good_err  # bad even where the relation does not apply
         used[i] = ok
         teff_each[i] = np.where(ok, t, np.nan)
-        err_each[i] = np.where(ok, np.sqrt((slope * e) ** 2 + rel.scatter**2), np.nan)
+        err_each[i] = np.where(ok, np.sqrt((slope * e) ** 2 + rel.scatter_at(t) ** 2), np.nan)
 
     with np.errstate(divide="ignore", invalid="ignore"):
         w = np.where(used, 1.0 / err_each**2, 0.0)

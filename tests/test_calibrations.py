@@ -29,6 +29,28 @@ C10_TABLE7_SUN = {
     "c10_vj": 1.180, "c10_vh": 1.460, "c10_vk": 1.544, "c10_jk": 0.362,
 }
 
+# Mann, Feiden, Gaidos, Boyajian & von Braun 2015, ApJ 804, 64, Table 2, Eq. (4)
+# rows as corrected in their 2016 erratum (ApJ 819, 87): a..e of Teff/3500 K and
+# the scatter in K (transcribed from a public data copy; see the table metadata).
+M15_TABLE2 = {
+    "m15_vj": ((2.840, -1.3453, 0.3906, -0.0546, 0.002913), 55),
+    "m15_vi": ((2.455, -1.5701, 0.6891, -0.1500, 0.01254), 53),
+    "m15_rz": ((1.547, -0.7053, 0.3656, -0.1008, 0.01046), 58),
+    "m15_rj": ((2.445, -1.2578, 0.4340, -0.0720, 0.004502), 58),
+}
+
+# Pecaut & Mamajek 2013, ApJS 208, 9, Table 5, in its maintained online version
+# (2021.03.02): SpT, Teff (K), U-B, B-V, V-Ic, V-Ks, J-H, H-Ks of a few dwarfs.
+PM13_ROWS = {
+    "B2V": (20600, -0.790, -0.215, -0.230, -0.602, -0.113, -0.032),
+    "B8V": (12300, -0.364, -0.109, -0.108, -0.254, -0.067, 0.003),
+    "A0V": (9700, -0.005, 0.000, 0.004, 0.041, -0.032, 0.028),
+    "G2V": (5770, 0.133, 0.650, 0.713, 1.564, 0.293, 0.073),
+    "K5V": (4440, 1.081, 1.150, 1.272, 2.88, 0.568, 0.132),
+    "M3V": (3430, 1.181, 1.53, 2.420, 4.60, 0.579, 0.252),
+    "M6V": (2810, 1.3, 2.01, 4.10, 7.10, 0.605, 0.352),
+}
+
 TEFF_SUN_IAU = 5772.0  # K, IAU 2015 Resolution B3 (nominal solar effective temperature)
 
 
@@ -40,8 +62,9 @@ def c10(key):
 def test_all_expected_relations_loaded():
     keys = {r.key for r in cal.relations()}
     assert set(C10_TABLE4) | {"mbm21_bprp_dwarf", "mbm21_bprp_giant"} <= keys
+    assert set(M15_TABLE2) | {"pm13_ub_hot", "pm13_bv_hot", "pm13_vks_hot", "pm13_vks_cool"} <= keys
     for r in cal.relations():
-        assert r.scatter > 0 and r.citation.year in (2010, 2021)
+        assert (r.scatter > 0 or r.scatter_frac > 0) and r.citation.year in (2010, 2013, 2015, 2021)
         assert r.colour_range[0] < r.colour_range[1]
 
 
@@ -113,7 +136,7 @@ def test_solar_colours_literature_within_60K_of_iau_sun():
     assert ok_bv and ok_vk
     assert abs(float(t_bv) - TEFF_SUN_IAU) < 60.0
     assert abs(float(t_vk) - TEFF_SUN_IAU) < 60.0
-    res = cal.combine_teff({"c10_bv": 0.653, ("jc.V", "2mass.Ks"): 1.560}, feh=0.0)
+    res = cal.combine_teff({"c10_bv": 0.653, "c10_vk": 1.560}, feh=0.0)
     assert abs(float(res.teff) - TEFF_SUN_IAU) < 60.0
 
 
@@ -122,6 +145,104 @@ def test_mbm21_sun_within_two_sigma():
     # T_eff⊙ = 5772 K: IAU 2015 Resolution B3. Tolerance: twice the 61 K dispersion.
     t, ok = cal.get_relation("mbm21_bprp_dwarf").teff(0.82, 0.0)
     assert ok and abs(float(t) - TEFF_SUN_IAU) < 2 * 61.0
+
+
+def test_m15_transcription_form_and_ranges():
+    # Source: Mann et al. 2015, ApJ 804, 64, Table 2 / erratum ApJ 819, 87 (2016).
+    for key, (coeffs, sigma) in M15_TABLE2.items():
+        rel = cal.get_relation(key)
+        assert rel.form == "linear" and rel.scale == 3500.0
+        assert rel.terms == ("1", "X", "X^2", "X^3", "X^4") and rel.coeffs == coeffs
+        # Table 2 note a: add the 60 K spectroscopic uncertainty in quadrature
+        assert rel.scatter == round(np.hypot(sigma, 60.0))
+        x = 0.5 * (rel.colour_range[0] + rel.colour_range[1])
+        by_hand = 3500.0 * sum(c * x**i for i, c in enumerate(coeffs))
+        assert rel.teff(x, 0.0)[0] == pytest.approx(by_hand, rel=1e-12)
+        # the derived colour range runs from 4,100 K to 2,900 K (table metadata)
+        t_lo_colour, t_hi_colour = rel.teff(rel.colour_range, 0.0)[0]
+        assert t_lo_colour == pytest.approx(4100.0, abs=15.0)
+        assert t_hi_colour == pytest.approx(2900.0, abs=5.0)
+    assert cal.get_relation("m15_rz").bands == ("sdss.r", "sdss.z")
+
+
+@pytest.mark.parametrize("spt", ["M0V", "M1V", "M2V", "M3V", "M4V", "M5V"])
+def test_m15_against_the_pm13_dwarf_sequence(spt):
+    # Cross-check of the M15 transcription with an independent published sequence:
+    # Pecaut & Mamajek 2013, ApJS 208, 9, Table 5 (online version 2021.03.02) M-dwarf
+    # colours and temperatures. V-J = V-Ks - (J-H) - (H-Ks). Tolerance: both
+    # relations' scatters in quadrature (the sequence's adopted 3 %, M15's ~80 K).
+    rows = {"M0V": (3850, 1.766, 3.65, 0.627, 0.190), "M1V": (3660, 2.005, 4.00, 0.614, 0.222),
+            "M2V": (3560, 2.173, 4.23, 0.600, 0.234), "M3V": (3430, 2.420, 4.60, 0.579, 0.252),
+            "M4V": (3210, 2.831, 5.25, 0.557, 0.280), "M5V": (3060, 3.278, 5.95, 0.580, 0.312)}
+    teff, vi, vk, jh, hk = rows[spt]
+    for key, colour in (("m15_vi", vi), ("m15_vj", vk - jh - hk)):
+        rel = cal.get_relation(key)
+        t, ok = rel.teff(colour, 0.0)
+        assert ok
+        tol = float(np.hypot(rel.scatter_at(teff), 0.03 * teff))
+        assert abs(float(t) - teff) < tol, (key, float(t), teff)
+
+
+def test_pm13_sequence_nodes_reproduced():
+    # Source: Pecaut & Mamajek 2013, ApJS 208, 9, Table 5 (online version 2021.03.02).
+    # At a tabulated subtype the interpolated relation returns the tabulated Teff.
+    cols = {"pm13_ub_hot": 1, "pm13_bv_hot": 2, "pm13_vks_hot": 4, "pm13_vks_cool": 4,
+            "pm13_vic_cool": 3}
+    checked = 0
+    for key, i in cols.items():
+        rel = cal.get_relation(key)
+        assert rel.form == "table" and rel.stage == "dwarf"
+        for spt, row in PM13_ROWS.items():
+            t, ok = rel.teff(row[i], 0.0)
+            lo, hi = rel.colour_range
+            if lo <= row[i] <= hi:
+                assert ok and float(t) == pytest.approx(row[0], abs=1e-9), (key, spt)
+                checked += 1
+            else:
+                assert not ok
+    assert checked >= 10
+
+
+def test_hot_and_cool_dwarfs_now_calibrated():
+    # The colours of a B2V, a B8V and an M6V dwarf (Pecaut & Mamajek 2013, Table 5,
+    # online version 2021.03.02) give temperatures through U-B, B-V, V-Ks and V-Ic.
+    b2, b8, m6 = PM13_ROWS["B2V"], PM13_ROWS["B8V"], PM13_ROWS["M6V"]
+    res = cal.combine_teff({("jc.U", "jc.B"): [b2[1], b8[1], np.nan],
+                            ("jc.B", "jc.V"): [b2[2], b8[2], np.nan],
+                            ("jc.V", "2mass.Ks"): [b2[4], b8[4], m6[4]],
+                            ("jc.V", "jc.Ic"): [b2[3], b8[3], m6[3]]}, feh=0.0, logg=4.3)
+    assert res.teff.tolist() == pytest.approx([20600.0, 12300.0, 2810.0], rel=1e-9)
+    assert res.n_used.tolist() == [3, 3, 2]
+    # the adopted fractional scatter (4 % hot) sets the error of a single relation
+    assert cal.get_relation("pm13_ub_hot").scatter_at(20600.0) == pytest.approx(0.04 * 20600.0)
+
+
+def test_pm13_a0v_colours_are_zero_and_sun_matches_c10():
+    # An A0V dwarf has colours near zero in the Vega system (common practice), and
+    # the PM13 G2V colours through C10 give the Sun's temperature within C10's
+    # scatter (Casagrande et al. 2010, A&A 512, A54; IAU 2015 B3: 5772 K).
+    a0 = PM13_ROWS["A0V"]
+    assert abs(a0[1]) < 0.02 and abs(a0[2]) < 0.02
+    g2 = PM13_ROWS["G2V"]
+    for key, colour in (("c10_bv", g2[2]), ("c10_vk", g2[4])):
+        rel = c10(key)
+        assert abs(float(rel.teff(colour, 0.0)[0]) - TEFF_SUN_IAU) < 2 * rel.scatter
+
+
+def test_pm13_loader_refuses_non_monotonic_colour(tmp_path):
+    src = (cal.CALIBRATION_DIR / "pecaut2013_table5.ecsv").read_text()
+    bad = tmp_path / "seq.ecsv"
+    # U-B turns over among the A stars: extending its range there must be refused
+    bad.write_text(src.replace("teff_range: [9700, 33300]", "teff_range: [7000, 33300]", 1))
+    with pytest.raises(StelltempError, match="monotonic"):
+        cal.load_relations(bad)
+
+
+def test_parse_term_and_general_terms():
+    assert cal.parse_term("X^2*[Fe/H]") == (2, 1)
+    assert cal.parse_term("[Fe/H]^2") == (0, 2)
+    with pytest.raises(StelltempError):
+        cal.parse_term("log g")
 
 
 # ------------------------------------------------------- validity ranges
@@ -172,12 +293,16 @@ def test_feh_dependence_sign():
 
 
 # ------------------------------------------------------------ derivatives
-@pytest.mark.parametrize("key", sorted(C10_TABLE4) + ["mbm21_bprp_dwarf", "mbm21_bprp_giant"])
+@pytest.mark.parametrize("key", sorted(C10_TABLE4) + sorted(M15_TABLE2)
+                         + ["mbm21_bprp_dwarf", "mbm21_bprp_giant", "pm13_ub_hot", "pm13_vks_cool"])
 def test_derivatives_match_finite_differences(key):
     rel = cal.get_relation(key)
     lo, hi = rel.colour_range
     x = np.linspace(lo + 0.02, hi - 0.02, 7)
-    z = np.linspace(max(rel.feh_range[0], -3.0) + 0.1, rel.feh_range[1] - 0.1, 7)
+    if rel.form == "table":  # between nodes: the middle of each segment
+        xs = np.asarray(rel.nodes[0])
+        x = 0.5 * (xs[1:] + xs[:-1])
+    z = np.linspace(max(rel.feh_range[0], -3.0) + 0.1, rel.feh_range[1] - 0.1, len(x))
     h = 1e-5
     fd_x = (rel.teff(x + h, z)[0] - rel.teff(x - h, z)[0]) / (2 * h)
     np.testing.assert_allclose(rel.dteff_dcolour(x, z), fd_x, rtol=1e-6)
@@ -190,7 +315,7 @@ def test_derivatives_match_finite_differences(key):
 # ------------------------------------------------------------ selection
 def test_relations_for_and_applicability():
     keys = [r.key for r in cal.relations_for({"jc.B", "jc.V", "2mass.Ks"})]
-    assert sorted(keys) == ["c10_bv", "c10_vk"]
+    assert sorted(keys) == ["c10_bv", "c10_vk", "pm13_bv_hot", "pm13_vks_cool", "pm13_vks_hot"]
     assert [r.key for r in cal.relations_for(["gaia3.BP", "gaia3.RP"], stage="giant")] == [
         "mbm21_bprp_giant"]
     assert cal.relations_for(["jc.V"]) == ()
@@ -203,6 +328,24 @@ def test_relations_for_and_applicability():
     assert bool(dwarf.applies_to(None)) and not bool(giant.applies_to(None))
     with pytest.raises(StelltempError):
         cal.get_relation("c10_ub")
+
+
+# ------------------------------------------------------------ coverage notes
+def test_coverage_notes_say_why_and_what_was_assumed():
+    pairs = {("jc.V", "2mass.Ks"): [1.6, 12.0, 1.6, np.nan, 2.0],
+             ("jc.B", "jc.V"): [0.6, np.nan, 0.6, np.nan, 0.9]}
+    notes = cal.coverage_notes(pairs, feh=[0.0, 0.0, -2.0, 0.0, 0.0],
+                               logg=[4.4, 4.4, np.nan, 4.4, 2.0])
+    assert notes[0] == ""
+    assert notes[1].startswith("no calibration: V-Ks = 12.00 mag outside every dwarf relation")
+    assert "C10 V-Ks 0.78 to 3.15" in notes[1] and "PM13 V-Ks M dwarfs 3.35 to 9.00" in notes[1]
+    assert notes[2] == "log g unknown: dwarf assumed"  # calibrated by C10 at [Fe/H] = -2
+    assert notes[3] == "no calibration: none of the calibrated colours was measured"
+    # a giant (log g 2.0) with V-Ks and B-V only: no giant relation in those colours
+    assert notes[4].startswith("no calibration: no relation for a giant (log g 2.00)")
+    # the metallicity reason is named when only [Fe/H] is outside
+    notes = cal.coverage_notes({("jc.V", "2mass.J"): [4.0]}, feh=[-1.5], logg=[5.0])
+    assert "M15 V-J: [Fe/H] -1.50 outside -0.6 to +0.5" in notes[0]
 
 
 # ------------------------------------------------------------ combination
@@ -223,8 +366,8 @@ def test_inverse_variance_combination_by_hand():
     expect_err = (w1 + w2) ** -0.5
     expect_chi2 = w1 * (t1 - expect) ** 2 + w2 * (t2 - expect) ** 2
 
-    res = cal.combine_teff({"c10_bv": [bv], ("jc.V", "2mass.Ks"): [vk]},
-                           {"c10_bv": [e_bv], ("jc.V", "2mass.Ks"): [e_vk]}, feh=[feh])
+    res = cal.combine_teff({"c10_bv": [bv], "c10_vk": [vk]},
+                           {"c10_bv": [e_bv], "c10_vk": [e_vk]}, feh=[feh])
     assert res.teff[0] == pytest.approx(expect, rel=1e-12)
     assert res.teff_err[0] == pytest.approx(expect_err, rel=1e-12)
     assert res.chi2[0] == pytest.approx(expect_chi2, rel=1e-9)
@@ -302,7 +445,7 @@ def test_combine_rejects_bad_arguments():
     with pytest.raises(StelltempError):
         cal.combine_teff({})
     with pytest.raises(StelltempError):
-        cal.combine_teff({("jc.U", "jc.B"): [0.1]})
+        cal.combine_teff({("sdss.u", "sdss.g"): [0.1]})
     with pytest.raises(StelltempError):
         cal.combine_teff({"c10_vk": [1.5]}, {"c10_bv": [0.01]})
     with pytest.raises(StelltempError):

@@ -21,7 +21,7 @@ from astropy import units as u
 from astropy.table import QTable
 
 from .. import bandgrid as bg
-from ..calibrations import combine_teff, relations
+from ..calibrations import ASSUMED_STAGE, combine_teff, coverage_notes, relations
 from ..errors import StelltempError
 from ..extinction import DEFAULT_LAW, DEFAULT_RV, check_law
 from ..passbands import get_passband
@@ -178,7 +178,7 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
         derived = derived_quantities(t, np.where(np.isfinite(lnt_err), lnt_err, np.nan), theta,
                                      lntheta_err, cov_t_theta, plx, plx_err)
         terms = _reddening_terms(keys, t, core["ebv"], law, rv, core.get("model"), core.get("model_de"))
-        cal = _calibrated(m, e, keys, ebv_err, feh, logg, terms, n)
+        cal, cal_notes = _calibrated(m, e, keys, ebv_err, feh, logg, terms, n)
     flags |= cal.flags & ~fl.BAD_INPUT
 
     table = QTable()
@@ -205,6 +205,7 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
     table["teff_cal"] = cal.teff * u.K
     table["teff_cal_err"] = cal.teff_err * u.K
     table["n_cal"] = cal.n_used
+    table["teff_cal_note"] = np.asarray(cal_notes, dtype=str)
     table["flags"] = flags
     table["flag_names"] = fl.describe_all(flags).astype(str)
     table.meta.update({
@@ -214,6 +215,8 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
         "R_V": rv,
         "uncertainty": f"monte_carlo:{int(monte_carlo)}" if monte_carlo else "analytic",
         "note": BLACKBODY_NOTE,
+        "luminosity_class": ("log g given per star" if logg is not None else
+                             f"log g not given: {ASSUMED_STAGE} relations assumed for every star"),
     })
     return table
 
@@ -222,6 +225,7 @@ RESULT_COLUMNS = (
     "t_bb", "t_bb_lo", "t_bb_hi", "t_bb_err", "theta", "theta_err", "ebv_used", "ebv_used_err",
     "n_bands", "chi2", "dof", "p_value", "lambda_peak", "lambda_peak_err", "fbol", "fbol_err",
     "radius", "radius_err", "luminosity", "luminosity_err", "teff_cal", "teff_cal_err", "n_cal",
+    "teff_cal_note",
     "flags", "flag_names",
 )
 
@@ -343,8 +347,12 @@ def _calibrated(m, e, keys, ebv_err, feh, logg, terms, n):
         colours[(blue, red)] = m[:, b] - m[:, r] - excess
         errors[(blue, red)] = np.hypot(np.hypot(e[:, b], e[:, r]), slope_e * ebv_err)
     if not colours:
-        return SimpleNamespace(teff=np.full(n, np.nan), teff_err=np.full(n, np.nan),
-                               n_used=np.zeros(n, int), flags=np.full(n, fl.NO_CALIBRATION, np.int64))
+        return (SimpleNamespace(teff=np.full(n, np.nan), teff_err=np.full(n, np.nan), n_used=np.zeros(n, int),
+                                flags=np.full(n, fl.NO_CALIBRATION, np.int64)),
+                np.full(n, "no calibration: no calibrated colour among these passbands"))
     feh = None if feh is None else _column(feh, n, "[Fe/H]", unit=u.dex)
     logg = None if logg is None else _column(logg, n, "log g", unit=u.dex(u.cm / u.s**2))
-    return combine_teff(colours, errors, feh=feh, logg=logg)
+    res = combine_teff(colours, errors, feh=feh, logg=logg)
+    notes = coverage_notes(colours, feh=feh, logg=np.full(n, np.nan) if logg is None else logg,
+                           applied=~res.none_applicable)
+    return res, notes
