@@ -28,7 +28,7 @@ How the stars are made (all draws from one seeded generator):
   in astronomical darkness at the site on ``DATE``.
 
 Two rows carry deliberate defects for teaching: one star has the sentinel
-99.999 (error 9.999) in jc.B, as old reductions write for "no measurement";
+99.999 (error 9.999) in B_JC, as old reductions write for "no measurement";
 another was measured in V only.
 
 Run from the repository root::
@@ -62,9 +62,9 @@ DATE = "2026-11-08"
 INSTRUMENT = HERE / "instruments" / "quillmere_04m_ccd.toml"
 LAW, RV = "G23", 3.1
 
-OPTICAL = ["jc.B", "jc.V", "jc.Rc", "jc.Ic"]
-INFRARED = ["2mass.J", "2mass.H", "2mass.Ks"]
-GAIA = ["gaia3.BP", "gaia3.RP"]
+OPTICAL = ["B_JC", "V_JC", "Rc_JC", "Ic_JC"]
+INFRARED = ["J_2MASS", "H_2MASS", "Ks_2MASS"]
+GAIA = ["BP_GDR3", "RP_GDR3"]
 BANDS = OPTICAL + INFRARED + GAIA
 
 N_FIELD, N_CLUSTER = 40, 20
@@ -106,7 +106,7 @@ def draw_field(rng):
     radius[giant] = np.exp(rng.uniform(np.log(8.0), np.log(40.0), giant.sum()))
     v_goal = rng.uniform(7.5, 13.5, N_FIELD)
     # distance for the goal V without dust, then dust that grows with distance, then V again
-    v10 = blackbody_mag("jc.V", t, 0.0, LAW, RV, theta_rad(radius, 10.0))
+    v10 = blackbody_mag("V_JC", t, 0.0, LAW, RV, theta_rad(radius, 10.0))
     dist = np.clip(10.0 * 10 ** ((v_goal - v10) / 5), 15.0, 4000.0)
     ebv = rng.uniform(0.0, 0.3, N_FIELD) * (1 - np.exp(-dist / 500.0))
     feh = rng.normal(0.0, 0.2, N_FIELD)
@@ -209,10 +209,10 @@ def build(rng=None):
                 err = float(mag_error(true_mags[b][i]))
                 mags[b] = (round(float(true_mags[b][i] + err * noise[b][i]), 3), round(err, 3))
             if group == "field" and i == 6:  # deliberate defect: a "no measurement" sentinel in B
-                mags["jc.B"] = (99.999, 9.999)
+                mags["B_JC"] = (99.999, 9.999)
             if group == "field" and i == 22:  # deliberate defect: observed in V only so far
-                mags = {b: (mags[b] if b == "jc.V" else (None, None)) for b in BANDS}
-            row["mag"], row["band"] = mags["jc.V"][0], "jc.V"  # for the night plan
+                mags = {b: (mags[b] if b == "V_JC" else (None, None)) for b in BANDS}
+            row["mag"], row["band"] = mags["V_JC"][0], "V_JC"  # for the night plan
             for b in BANDS:
                 row[b], row[b + "_err"] = mags[b]
             row.update({"ebv": round(float(ebv_meas[i]), 3), "ebv_err": round(float(ebv_err[i]), 3),

@@ -15,14 +15,14 @@ from stelltemp.catalog.tableio import ChunkReader, open_sink, read_table, table_
 from stelltemp.errors import StelltempError
 
 FORMATS = ["parquet", "csv", "ecsv", "fits", "vot"]
-RUN = {"tool": "stelltemp", "tool_version": "9.9", "method": "auto", "passbands": "jc.B,jc.V",
+RUN = {"tool": "stelltemp", "tool_version": "9.9", "method": "auto", "passbands": "B_JC,V_JC",
        "extinction_law": "G23", "r_v": 3.1, "ebv": "0.1", "run_utc": "2026-01-01T00:00:00+00:00"}
 
 
 def _table():
     t = Table()
     t["name"] = ["invented-1", "invented-2", "invented-3"]
-    t["jc.V"] = [10.0, 11.5, np.nan]
+    t["V_JC"] = [10.0, 11.5, np.nan]
     t["t_bb"] = [5000.0, 6000.0, np.nan] * u.K
     t["flags"] = np.array([0, 1, 2], dtype=np.int64)
     return t
@@ -33,7 +33,7 @@ def test_round_trip_keeps_values_units_and_run_record(tmp_path, ext):
     path = tmp_path / f"out.{ext}"
     write_table(_table(), path, run_meta=RUN)
     back = read_table(path)
-    assert back.colnames == ["name", "jc.V", "t_bb", "flags"]
+    assert back.colnames == ["name", "V_JC", "t_bb", "flags"]
     assert list(back["name"]) == ["invented-1", "invented-2", "invented-3"]
     np.testing.assert_array_equal(np.asarray(back["t_bb"], float), [5000.0, 6000.0, np.nan])
     assert back["t_bb"].unit == u.K
@@ -49,7 +49,7 @@ def test_csv_sidecar_holds_units_and_record(tmp_path):
     write_table(_table(), path, run_meta=RUN)
     side = json.loads((tmp_path / "out.csv.meta.json").read_text())
     assert side["units"] == {"t_bb": "K"} and side["run"]["extinction_law"] == "G23"
-    assert path.read_text().splitlines()[0] == "name,jc.V,t_bb,flags"
+    assert path.read_text().splitlines()[0] == "name,V_JC,t_bb,flags"
 
 
 def test_unknown_extension_and_missing_file(tmp_path):
@@ -77,12 +77,12 @@ def test_malformed_files_give_one_clear_line(tmp_path, ext, content, words):
 
 def test_csv_duplicate_names_comments_and_bad_lines(tmp_path):
     path = tmp_path / "in.csv"
-    path.write_text("# invented survey\nid,jc.V,jc.V,x\n1,10,11,a\n2,12\n3,13,14,c,extra\n4,15,16,d\n")
+    path.write_text("# invented survey\nid,V_JC,V_JC,x\n1,10,11,a\n2,12\n3,13,14,c,extra\n4,15,16,d\n")
     reader = ChunkReader(path)
-    assert reader.colnames == ["id", "jc.V", "jc.V.dup2", "x"]
+    assert reader.colnames == ["id", "V_JC", "V_JC.dup2", "x"]
     rows = pa.concat_tables(list(reader))
     assert rows["id"].to_pylist() == ["1", "4"]
-    assert any("renamed 'jc.V.dup2'" in n for n in reader.notes)
+    assert any("renamed 'V_JC.dup2'" in n for n in reader.notes)
     assert any("2 malformed CSV line(s) skipped" in n for n in reader.notes)
 
 

@@ -71,7 +71,7 @@ def test_every_row_has_a_temperature_or_a_flag(run):
 
     lone = by_name["demo-F23"]  # measured in V only
     assert not math.isfinite(t[lone]) and flags[lone] & fl.BAD_INPUT
-    sentinel = by_name["demo-F07"]  # 99.999 in jc.B: flagged, solved from the other bands
+    sentinel = by_name["demo-F07"]  # 99.999 in B_JC: flagged, solved from the other bands
     assert math.isfinite(t[sentinel]) and flags[sentinel] & fl.ABSURD_VALUE
 
 
@@ -152,7 +152,7 @@ def test_demo_truth_magnitudes_are_reddened_blackbodies():
     from stelltemp.plots import MAS_PER_RAD
 
     truth = _read(DEMO / "truth.csv")
-    for band in ("jc.B", "jc.V", "2mass.Ks", "gaia3.BP"):
+    for band in ("B_JC", "V_JC", "Ks_2MASS", "BP_GDR3"):
         model = blackbody_mag(band, _floats(truth["t_true"]), _floats(truth["ebv_true"]), "G23", 3.1,
                               _floats(truth["theta_true_mas"]) / MAS_PER_RAD)
         # 0.005 mag covers the rounding of the stored values; more means the demo needs regenerating

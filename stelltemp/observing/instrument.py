@@ -23,7 +23,7 @@ the site.  Units are part of every key name, so a file reads on its own::
 
     [[filter]]
     name = "V"
-    passband = "jc.V"            # or: curve = "myfilter.ecsv"
+    passband = "V_JC"            # or: curve = "myfilter.ecsv"
     peak_transmission = 0.90
     sky_mag_arcsec2 = 21.0
     extinction_mag_per_airmass = 0.20
@@ -204,7 +204,7 @@ class FilterSpec:
     name : str
         Name used in plans and on the command line.
     passband_ref : str
-        A passband key (``jc.V``) or an absolute path to a curve file.
+        A passband key (``V_JC``) or an absolute path to a curve file.
     peak_transmission : float
         Peak transmission of the physical filter (fraction).
     sky_mag_arcsec2 : float
