@@ -25,6 +25,7 @@ from functools import cached_property, lru_cache
 
 import numpy as np
 
+from . import kernels
 from .errors import StelltempError
 from .extinction import DEFAULT_LAW, DEFAULT_RV, check_law, relative_extinction
 from .passbands import get_passband
@@ -115,6 +116,9 @@ class HermiteTable:
         """
         lnt, ebv = np.broadcast_arrays(np.asarray(lnt, float), np.asarray(ebv, float))
         shape = lnt.shape
+        jit = kernels.jit_for(lnt.size)
+        if jit is not None:
+            return self._evaluate_compiled(jit, lnt.ravel(), ebv.ravel(), want_de, shape)
         k, t, s = self.cell(lnt.ravel(), ebv.ravel())
         q, dq = self.cubics(k, s, want_de)
         value, d_lnt = self.horner(q, t)
@@ -123,6 +127,20 @@ class HermiteTable:
             d_e = (dq[:, 0] + t * (dq[:, 1] + t * (dq[:, 2] + t * dq[:, 3]))) / self.h_e
             d_e = d_e.reshape(shape)
         return value.reshape(shape), d_lnt.reshape(shape), d_e
+
+    def _evaluate_compiled(self, jit, lnt, ebv, want_de, shape):
+        n = lnt.size
+        value, d_lnt = np.empty(n), np.empty(n)
+        d_e = np.empty(n if want_de else 0)
+        nt, ne = self.shape
+        jit["evaluate_cells"](np.ascontiguousarray(lnt), np.ascontiguousarray(ebv), self.flat_patches, nt, ne,
+                              self.lnt0, self.h_t, self.e0, self.h_e, bool(want_de), value, d_lnt, d_e)
+        return value.reshape(shape), d_lnt.reshape(shape), d_e.reshape(shape) if want_de else None
+
+    @cached_property
+    def flat_patches(self):
+        """`patches` as one flat contiguous array (for the compiled kernels)."""
+        return np.ascontiguousarray(self.patches).ravel()
 
     def cubics(self, k, s, want_de=False):
         """Cubics in t of cells ``k`` at E coordinates ``s``: q (n, 4) and, if asked, ∂q/∂s.

@@ -29,6 +29,9 @@ Loaded relations (see each table's metadata for what was verified):
 * Pecaut & Mamajek 2013, ApJS 208, 9, Table 5 (the dwarf sequence, in its
   maintained online version) — hot dwarfs (O9V–F0V) in U−B, B−V and V−Ks,
   and K7V–M9V dwarfs in V−Ks and V−Ic.
+* Casagrande et al. 2021, MNRAS 507, 2684 — Gaia EDR3/DR3 and 2MASS colours
+  (BP, RP, G against J, H, Ks; G−BP, G−RP) for dwarfs and giants, with log g
+  and [Fe/H] terms; applied only to stars with a given log g.
 
 A relation is never extrapolated: outside its published colour or [Fe/H]
 range it returns NaN and says so in a boolean array.  Stars of unknown
@@ -87,38 +90,35 @@ def _float_array(value, name):
         raise StelltempError(f"{name} must be numeric, got {value!r:.60}") from None
 
 
-_FACTOR = re.compile(r"^(X|\[Fe/H\])(?:\^([1-9]))?$")
+_FACTOR = re.compile(r"^(X|\[Fe/H\]|logg)(?:\^([1-9]))?$")
+_VARIABLES = ("X", "[Fe/H]", "logg")
 
 
 def parse_term(term):
-    """Powers ``(p, q)`` of X and [Fe/H] in a term name such as ``'X^2*[Fe/H]'``.
+    """Powers ``(p, q, r)`` of X, [Fe/H] and log g in a term such as ``'X^2*[Fe/H]'``.
 
     Examples
     --------
-    >>> parse_term("1"), parse_term("X^3"), parse_term("X*[Fe/H]")
-    ((0, 0), (3, 0), (1, 1))
+    >>> parse_term("1"), parse_term("X^3"), parse_term("X*[Fe/H]"), parse_term("logg*X^2")
+    ((0, 0, 0), (3, 0, 0), (1, 1, 0), (2, 0, 1))
     """
     term = str(term).replace(" ", "")
     if term == "1":
-        return (0, 0)
-    p = q = 0
+        return (0, 0, 0)
+    powers = [0, 0, 0]
     for factor in term.split("*"):
         m = _FACTOR.match(factor)
         if not m:
-            raise StelltempError(f"cannot read the calibration term {term!r} "
-                                 "(use 1, X, X^n, [Fe/H], [Fe/H]^n and products with *)")
-        n = int(m.group(2) or 1)
-        if m.group(1) == "X":
-            p += n
-        else:
-            q += n
-    return (p, q)
+            raise StelltempError(f"cannot read the calibration term {term!r} (use 1, X, [Fe/H], "
+                                 "logg, their powers ^n and products with *)")
+        powers[_VARIABLES.index(m.group(1))] += int(m.group(2) or 1)
+    return tuple(powers)
 
 
 def _term_order(powers):
     """Sort key: the six classic terms first (in `TERMS` order), then by powers."""
     canon = [parse_term(t) for t in TERMS]
-    return (canon.index(powers), 0, 0) if powers in canon else (len(canon), *powers)
+    return (canon.index(powers), 0, 0, 0) if powers in canon else (len(canon), *powers)
 
 
 def stage_assumed(logg):
@@ -235,30 +235,40 @@ class Relation:
     def _powers(self):
         return tuple(parse_term(t) for t in self.terms)
 
+    @property
+    def needs_logg(self):
+        """True when the formula has log g terms: it applies only to stars with a given log g."""
+        return any(r for _, _, r in self._powers)
+
     def scatter_at(self, teff):
         """Total published/adopted 1σ scatter at T_eff, K: hypot(scatter, scatter_frac·T)."""
         t = _float_array(teff, "T_eff")
         return np.hypot(self.scatter, self.scatter_frac * t)
 
     # -- evaluation (the one path for every form) -------------------------
-    def _prepare(self, colour, feh):
+    def _prepare(self, colour, feh, logg=None):
         x = _float_array(colour, "colour")
         z = _float_array(DEFAULT_FEH if feh is None else feh, "[Fe/H]")
+        g = _float_array(np.nan if logg is None else logg, "log g")
         try:
-            x, z = np.broadcast_arrays(x, z)
+            x, z, g = np.broadcast_arrays(x, z, g)
         except ValueError:
             raise StelltempError(
-                f"{self.key}: colour shape {x.shape} and [Fe/H] shape {z.shape} do not match") from None
+                f"{self.key}: colour shape {x.shape}, [Fe/H] shape {z.shape} and log g shape "
+                f"{g.shape} do not match") from None
         inside = ((x >= self.colour_range[0]) & (x <= self.colour_range[1])
                   & (z >= self.feh_range[0]) & (z <= self.feh_range[1]))
+        if self.needs_logg:  # the formula itself needs log g: only inside its range
+            with np.errstate(invalid="ignore"):
+                inside &= (g >= self.logg_range[0]) & (g < self.logg_range[1])
         # the paper's prescription for the most metal-poor stars, not an extrapolation
         z_eval = z if self.feh_floor is None else np.maximum(z, self.feh_floor)
-        return x, z, z_eval, inside
+        return x, z, z_eval, g, inside
 
-    def _poly(self, x, z, dx=0, dz=0):
-        """Σ cᵢ ∂(Xᵖ Zᑫ) with ``dx``/``dz`` derivatives (0 or 1) taken."""
-        out = np.zeros(np.broadcast(x, z).shape)
-        for c, (p, q) in zip(self.coeffs, self._powers):
+    def _poly(self, x, z, g, dx=0, dz=0):
+        """Σ cᵢ ∂(Xᵖ Zᑫ Gʳ) with ``dx``/``dz`` derivatives (0 or 1) taken."""
+        out = np.zeros(np.broadcast(x, z, g).shape)
+        for c, (p, q, r) in zip(self.coeffs, self._powers):
             k = c
             if dx:
                 k, p = k * p, p - 1
@@ -266,11 +276,11 @@ class Relation:
                 k, q = k * q, q - 1
             if k == 0.0:
                 continue
-            out = out + k * x**p * z**q
+            out = out + k * x**p * z**q * (g**r if r else 1.0)
         return out
 
-    def _evaluate(self, x, z):
-        """(T_eff, ∂T/∂X, ∂T/∂Z, valid) at colour x and evaluation [Fe/H] z."""
+    def _evaluate(self, x, z, g):
+        """(T_eff, ∂T/∂X, ∂T/∂Z, valid) at colour x, evaluation [Fe/H] z and log g g."""
         with np.errstate(divide="ignore", invalid="ignore"):
             if self.form == "table":
                 xs, ts = (np.asarray(v, float) for v in self.nodes)
@@ -279,16 +289,17 @@ class Relation:
                 seg = np.clip(np.searchsorted(xs, xc, side="right") - 1, 0, len(xs) - 2)
                 d_x = (ts[seg + 1] - ts[seg]) / (xs[seg + 1] - xs[seg])
                 return t, d_x, np.zeros_like(t), np.isfinite(x)
-            p = self._poly(x, z)
+            p = self._poly(x, z, g)
             if self.form == "theta":
                 t = self.scale / p
-                d_x = -self.scale * self._poly(x, z, dx=1) / p**2
-                d_z = -self.scale * self._poly(x, z, dz=1) / p**2
+                d_x = -self.scale * self._poly(x, z, g, dx=1) / p**2
+                d_z = -self.scale * self._poly(x, z, g, dz=1) / p**2
                 return t, d_x, d_z, p > 0.0
             t = self.scale * p
-            return t, self.scale * self._poly(x, z, dx=1), self.scale * self._poly(x, z, dz=1), t > 0.0
+            return (t, self.scale * self._poly(x, z, g, dx=1), self.scale * self._poly(x, z, g, dz=1),
+                    t > 0.0)
 
-    def theta(self, colour, feh=DEFAULT_FEH):
+    def theta(self, colour, feh=DEFAULT_FEH, logg=None):
         """θ_eff = 5040 K / T_eff, evaluated only inside the validity range.
 
         Parameters
@@ -303,11 +314,11 @@ class Relation:
         ndarray
             θ_eff (dimensionless); NaN outside the validity range.
         """
-        t, inside = self.teff(colour, feh)
+        t, inside = self.teff(colour, feh, logg)
         with np.errstate(divide="ignore", invalid="ignore"):
             return np.where(inside, THETA_SCALE / t, np.nan)
 
-    def teff(self, colour, feh=DEFAULT_FEH):
+    def teff(self, colour, feh=DEFAULT_FEH, logg=None):
         """Effective temperature from a dereddened colour.
 
         Parameters
@@ -316,6 +327,9 @@ class Relation:
             Dereddened colour ``blue − red``, mag.
         feh : array_like or None
             [Fe/H], dex, broadcast against ``colour``; None means solar.
+        logg : array_like or None
+            log g (cgs, dex); used only by relations with log g terms
+            (`needs_logg`), which return NaN where it is unknown.
 
         Returns
         -------
@@ -327,7 +341,8 @@ class Relation:
 
         Notes
         -----
-        Surface gravity is not checked here; see `applies_to`.
+        Surface gravity is checked here only for relations with log g terms;
+        for the others see `applies_to`.
 
         Examples
         --------
@@ -335,29 +350,29 @@ class Relation:
         >>> round(float(t)), bool(ok)
         (5755, True)
         """
-        x, _, z_eval, inside = self._prepare(colour, feh)
-        t, _, _, valid = self._evaluate(x, z_eval)
+        x, _, z_eval, g, inside = self._prepare(colour, feh, logg)
+        t, _, _, valid = self._evaluate(x, z_eval, g)
         inside = inside & valid
         return np.where(inside, t, np.nan), inside
 
-    def dteff_dcolour(self, colour, feh=DEFAULT_FEH):
+    def dteff_dcolour(self, colour, feh=DEFAULT_FEH, logg=None):
         """Analytic ∂T_eff/∂X in K mag⁻¹ (NaN outside the validity range).
 
         θ form: ∂T/∂X = −S ∂P/∂X / P²;  linear form: S ∂P/∂X;  table: the
         slope of the segment the colour falls in.
         """
-        x, _, z_eval, inside = self._prepare(colour, feh)
-        _, d_x, _, valid = self._evaluate(x, z_eval)
+        x, _, z_eval, g, inside = self._prepare(colour, feh, logg)
+        _, d_x, _, valid = self._evaluate(x, z_eval, g)
         return np.where(inside & valid, d_x, np.nan)
 
-    def dteff_dfeh(self, colour, feh=DEFAULT_FEH):
+    def dteff_dfeh(self, colour, feh=DEFAULT_FEH, logg=None):
         """Analytic ∂T_eff/∂[Fe/H] in K dex⁻¹ (NaN outside the validity range).
 
         Zero below `feh_floor`, where the formula is held at the floor, and
         for tabulated sequences (no [Fe/H] term).
         """
-        x, z, z_eval, inside = self._prepare(colour, feh)
-        _, _, d_z, valid = self._evaluate(x, z_eval)
+        x, z, z_eval, g, inside = self._prepare(colour, feh, logg)
+        _, _, d_z, valid = self._evaluate(x, z_eval, g)
         held = np.zeros(z.shape, bool) if self.feh_floor is None else z < self.feh_floor
         return np.where(inside & valid, np.where(held, 0.0, d_z), np.nan)
 
@@ -369,19 +384,21 @@ class Relation:
         logg : array_like or None
             log g (cgs, dex).  None or NaN means unknown: the star is then
             assumed to be a dwarf (`ASSUMED_STAGE`), so only dwarf relations
-            apply; `stage_assumed` tells where that happened.
+            apply (and none that needs log g in its formula); `stage_assumed`
+            tells where that happened.
 
         Returns
         -------
         ndarray of bool (or a bool scalar array when ``logg`` is None)
         """
+        unknown_ok = self.stage == ASSUMED_STAGE and not self.needs_logg
         if logg is None:
-            return np.asarray(self.stage == ASSUMED_STAGE)
+            return np.asarray(unknown_ok)
         g = _float_array(logg, "log g")
         known = np.isfinite(g)
         with np.errstate(invalid="ignore"):
             in_range = (g >= self.logg_range[0]) & (g < self.logg_range[1])
-        return np.where(known, in_range, self.stage == ASSUMED_STAGE)
+        return np.where(known, in_range, unknown_ok)
 
     def range_text(self):
         """The validity ranges in words, e.g. ``'V-Ks 0.78–3.15 mag, [Fe/H] −5.0…0.4, dwarf'``."""
@@ -630,13 +647,13 @@ def coverage_notes(colours, feh=None, logg=None, applied=None):
     if applied is None:
         applied = np.zeros(shape, bool)
         for rel, x in rels:
-            applied |= rel.applies_to(g) & rel.teff(x, z)[1]
+            applied |= rel.applies_to(g) & rel.teff(x, z, g)[1]
     applied = np.broadcast_to(np.asarray(applied, bool), shape)
     notes = np.full(shape, "", dtype=object)
     notes[assumed] = f"log g unknown: {ASSUMED_STAGE} assumed"
     for idx in zip(*np.nonzero(~applied)):
         stage = ASSUMED_STAGE if assumed[idx] else None
-        why, measured = [], False
+        why, measured, skipped = [], False, set()
         by_colour = {}
         for rel, x in rels:
             xi, zi, gi = float(x[idx]), float(z[idx]), float(g[idx])
@@ -644,6 +661,8 @@ def coverage_notes(colours, feh=None, logg=None, applied=None):
                 continue
             measured = True
             if not bool(rel.applies_to(gi)):
+                if rel.needs_logg and not np.isfinite(gi):
+                    skipped.add(rel.colour_name)
                 continue
             stage = rel.stage
             lo, hi = rel.colour_range
@@ -664,6 +683,8 @@ def coverage_notes(colours, feh=None, logg=None, applied=None):
                     "no calibration: no relation in the measured colours")
         else:
             text = "no calibration: " + "; ".join(why)
+        if skipped:
+            text += f"; relations in {', '.join(sorted(skipped))} need log g, which is unknown"
         notes[idx] = text if not assumed[idx] else f"{text}; log g unknown: {ASSUMED_STAGE} assumed"
     return notes.astype(str)
 
@@ -804,8 +825,8 @@ def combine_teff(colours, errors=None, feh=None, logg=None):
         candidate = rel.applies_to(g) & np.isfinite(x)
         with np.errstate(invalid="ignore"):
             good_err = np.isfinite(e) & (e >= 0.0)
-        t, inside = rel.teff(x, z)
-        slope = rel.dteff_dcolour(x, z)
+        t, inside = rel.teff(x, z, g)
+        slope = rel.dteff_dcolour(x, z, g)
         ok = candidate & inside & good_err
         outside |= candidate & ~inside
         bad |= np.isfinite(x) & ~good_err  # bad even where the relation does not apply

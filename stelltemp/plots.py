@@ -287,7 +287,8 @@ def colour_temperature_figure(bands, ebv=0.0, law="G23", rv=3.1, calibrations=Tr
     if calibrations:
         from .calibrations import DEFAULT_FEH, relations
 
-        rels = [r for r in relations() if r.feh_range[0] <= DEFAULT_FEH <= r.feh_range[1]]
+        # drawn at solar [Fe/H]; relations whose formula needs log g have no single curve
+        rels = [r for r in relations() if r.feh_range[0] <= DEFAULT_FEH <= r.feh_range[1] and not r.needs_logg]
 
     fig = _new_figure(8.0, 5.2)
     used_rels, stages = [], set()

@@ -16,7 +16,12 @@ README) and, in a fresh output folder:
 4. plans the night in the scenario with the demo instrument: best window,
    airmass and the exposure per filter for the S/N goal (``plan.ecsv``),
    an altitude/airmass chart and S/N against exposure time for one star;
-5. prints a short summary (with any Sun-safety warning of the observing
+5. reduces the scenario's invented night of instrumental photometry
+   (``night_observations.csv``, ``night_standards.csv``) to the standard
+   system: transformation fitted from the standards
+   (``night_transformation.toml``, residual figure), targets' standard
+   magnitudes (``night_targets.ecsv``) checked against ``night_truth.csv``;
+6. prints a short summary (with any Sun-safety warning of the observing
    module) and the paths.
 
 The demo folder sits at the top of the source tree (``catalogs_demo/``);
@@ -311,6 +316,9 @@ def run_tour(out_dir=DEFAULT_OUT, *, replace=False, demo_dir=None, quiet=False, 
                       airmass=airmass if math.isfinite(airmass) else 1.0, name=star)
     files["snr_figure"] = plot_snr_curves(one, str(out / f"snr_{star}.png"), replace=True)
 
+    # 5. the night's reduction to the standard system (when the demo has the night's files)
+    reduction = _reduction_step(demo, out, sc["instrument"], files)
+
     exposure = np.asarray(plan["exposure"], float)
     summary = {
         "scenario": sc["title"],
@@ -327,6 +335,7 @@ def run_tour(out_dir=DEFAULT_OUT, *, replace=False, demo_dir=None, quiet=False, 
                  "rows_not_ok_saturation": int(np.count_nonzero(np.asarray(plan["saturation"]) != "ok")),
                  "rows_with_advice": int(np.count_nonzero(np.char.str_len(np.asarray(plan["advice"], str)) > 0))},
         "sun_warnings": list(plan.meta.get("sun_warnings", [])),
+        "reduction": reduction,
         "note": BLACKBODY_NOTE,
         "files": {k: str(v) for k, v in files.items()},
     }
@@ -339,6 +348,48 @@ def run_tour(out_dir=DEFAULT_OUT, *, replace=False, demo_dir=None, quiet=False, 
     return summary
 
 
+#: the invented night of instrumental photometry (catalogs_demo/make_night.py)
+NIGHT_FILES = {"observations": "night_observations.csv", "standards": "night_standards.csv",
+               "truth": "night_truth.csv"}
+
+
+def _reduction_step(demo, out, instrument, files):
+    """Fit the demo night's transformation, transform its targets, compare with the truth (or None)."""
+    from .catalog.tableio import read_table
+    from .reduction.workflow import standardise_night
+
+    paths = {k: Path(demo) / v for k, v in NIGHT_FILES.items()}
+    if not (paths["observations"].is_file() and paths["standards"].is_file()):
+        return None
+    for key, name in (("transformation", "night_transformation.toml"), ("night_targets", "night_targets.ecsv"),
+                      ("residual_figure", "night_residuals.png")):
+        files[key] = str(out / name)
+    s = standardise_night(paths["observations"], paths["standards"], instrument, files["transformation"],
+                          targets_out=files["night_targets"], plot_out=files["residual_figure"], replace=True,
+                          second_order={"B"})
+    fits = [{"filter": f["filter"], "band": f["band"], "colour": f["colour"],
+             "colour_term": f["coefficients"]["colour_term"], "colour_term_err": f["errors"]["colour_term"],
+             "rms_mag": f["rms_mag"], "n_used": f["n_used"], "rejected": len(f["rejected"])}
+            for f in s["transformation"]["filters"]]
+    predicted = {r["filter"]: r["predicted"] for r in s["comparison_with_prediction"]
+                 if r["coefficient"] == "colour_term"}
+    for f in fits:
+        f["colour_term_predicted"] = predicted.get(f["filter"])
+    result = {"filters": fits, "targets": s["targets"]["rows"], "notes": s["notes"]}
+    if paths["truth"].is_file():
+        t = read_table(files["night_targets"])
+        truth = read_table(paths["truth"])
+        z = []
+        for band in [f["band"] for f in fits]:
+            true = {str(n): float(v) for n, v in zip(truth["star"], truth[f"{band}_true"])}
+            z += [(float(m) - true[str(n)]) / float(e) for n, m, e in zip(t["star"], t[band], t[f"{band}_err"])
+                  if str(n) in true]
+        z = np.abs(np.array(z))
+        result["truth"] = {"compared": int(z.size), "within_1sigma": float(np.mean(z < 1)),
+                           "within_3sigma": float(np.mean(z < 3))}
+    return result
+
+
 _FILE_NOTES = {
     "temperatures": "temperature, 68 % interval and flags for every star",
     "catalogue_figure": "colour temperature against observed B−V, flagged stars ringed",
@@ -348,6 +399,9 @@ _FILE_NOTES = {
     "plan": "best window, airmass and exposure per target and filter",
     "night_figure": "altitude and airmass through the night",
     "snr_figure": "S/N against exposure time for one star",
+    "transformation": "the night's fitted transformation (coefficients, covariance, provenance)",
+    "night_targets": "the night's targets in standard magnitudes, with covariance",
+    "residual_figure": "standard-star residuals against colour and airmass",
     "summary": "this summary as JSON",
 }
 
@@ -373,6 +427,17 @@ def print_summary(s, stream):
         w(f"              dark from {p['dark_start_utc'][11:16]} to {p['dark_end_utc'][11:16]} UTC; "
           f"{p['rows_not_ok_saturation']} row(s) near saturation, {p['rows_with_advice']} with advice "
           "(see plan.ecsv)")
+    red = s.get("reduction")
+    if red:
+        terms = ", ".join(f"{f['filter']} {f['colour_term']:+.3f}±{f['colour_term_err']:.3f}"
+                          + (f" (pred. {f['colour_term_predicted']:+.3f})" if f["colour_term_predicted"] is not None
+                             else "") for f in red["filters"])
+        w(f"reduction     colour terms {terms}")
+        line = f"              {red['targets']} target visits on the standard system"
+        if red.get("truth"):
+            line += (f"; against the invented truth {red['truth']['within_1sigma']:.0%} within 1 sigma, "
+                     f"{red['truth']['within_3sigma']:.0%} within 3 sigma")
+        w(line)
     if s["sun_warnings"]:
         for warning in s["sun_warnings"]:
             w(f"Sun           {warning}")

@@ -63,8 +63,10 @@ def test_all_expected_relations_loaded():
     keys = {r.key for r in cal.relations()}
     assert set(C10_TABLE4) | {"mbm21_bprp_dwarf", "mbm21_bprp_giant"} <= keys
     assert set(M15_TABLE2) | {"pm13_ub_hot", "pm13_bv_hot", "pm13_vks_hot", "pm13_vks_cool"} <= keys
+    assert {"c21_bpj_giant", "c21_gks_dwarf", "c21_rph_giant"} <= keys and "c21_bprp_dwarf" not in keys
     for r in cal.relations():
         assert (r.scatter > 0 or r.scatter_frac > 0) and r.citation.year in (2010, 2013, 2015, 2021)
+        assert str(r.citation).count(",") >= 3
         assert r.colour_range[0] < r.colour_range[1]
 
 
@@ -238,11 +240,66 @@ def test_pm13_loader_refuses_non_monotonic_colour(tmp_path):
         cal.load_relations(bad)
 
 
+# Casagrande et al. 2021, MNRAS 507, 2684, coefficients a0..a14 of BP-Ks and G-J
+# (public copies; see the table metadata) and the a0 of the rounded data copy.
+C21_BPKS = (8265.6045, -2124.5574, 355.5051, -23.1719, 0.0, 209.9927, -161.4505, 50.5904,
+            -6.3337, 0.0, -27.2653, -160.3595, 67.9016, -6.5232, 16.5137)
+
+
+def test_c21_formula_by_hand_and_logg_needed():
+    rel = cal.get_relation("c21_bpks_dwarf")
+    assert rel.needs_logg and rel.scatter == 33.0 and rel.colour_range == (0.30, 4.20)
+    a = C21_BPKS
+    x, g, z = 1.9, 4.3, -0.4
+    by_hand = (a[0] + a[1] * x + a[2] * x**2 + a[3] * x**3 + a[4] * x**5
+               + g * (a[5] + a[6] * x + a[7] * x**2 + a[8] * x**3 + a[9] * x**5)
+               + z * (a[10] + a[11] * x + a[12] * x**2 + a[13] * x**3) + a[14] * z * g * x)
+    assert rel.teff(x, z, g)[0] == pytest.approx(by_hand, rel=1e-12)
+    # unknown log g: the formula cannot be evaluated and the relation does not apply
+    assert not rel.teff(x, z)[1] and not bool(rel.applies_to(np.nan))
+    giant = cal.get_relation("c21_bpks_giant")
+    assert giant.colour_range == (0.30, 5.30) and bool(giant.applies_to(2.5))
+    assert not bool(giant.applies_to(4.4)) and not bool(rel.applies_to(2.5))
+    # derivatives against finite differences (colour and [Fe/H])
+    h = 1e-5
+    fd = (rel.teff(x + h, z, g)[0] - rel.teff(x - h, z, g)[0]) / (2 * h)
+    assert rel.dteff_dcolour(x, z, g) == pytest.approx(fd, rel=1e-6)
+    fd = (rel.teff(x, z + h, g)[0] - rel.teff(x, z - h, g)[0]) / (2 * h)
+    assert rel.dteff_dfeh(x, z, g) == pytest.approx(fd, rel=1e-5)
+
+
+@pytest.mark.parametrize("spt", ["F5V", "G2V", "K0V", "K5V"])
+def test_c21_against_the_pm13_dwarf_sequence(spt):
+    # Independent cross-check: Pecaut & Mamajek 2013, ApJS 208, 9, Table 5 (online
+    # version 2021.03.02) mean dwarf colours G-V, BP-RP, G-RP (Gaia DR2), V-Ks, J-H,
+    # H-Ks (2MASS) at log g 4.4, [Fe/H] 0. Tolerance: twice the relation's scatter
+    # and 0.02 mag of DR2-vs-DR3 photometric difference through the slope, in
+    # quadrature (the size of that difference is from memory).
+    rows = {"F5V": (6550, -0.11, 0.587, 0.329, 1.079, 0.173, 0.054),
+            "G2V": (5770, -0.165, 0.823, 0.459, 1.564, 0.293, 0.073),
+            "K0V": (5270, -0.227, 0.983, 0.56, 1.953, 0.387, 0.091),
+            "K5V": (4440, -0.44, 1.43, 0.74, 2.88, 0.568, 0.132)}
+    teff, gv, bprp, grp, vks, jh, hks = rows[spt]
+    gks = gv + vks
+    gh, bpg = gks - hks, bprp - grp
+    gj = gh - jh
+    colours = {"bpj": bpg + gj, "bph": bpg + gh, "bpks": bpg + gks, "rpj": gj - grp,
+               "rph": gh - grp, "rpks": gks - grp, "gj": gj, "gh": gh, "gks": gks,
+               "gbp": -bpg, "grp": grp}
+    for name, x in colours.items():
+        rel = cal.get_relation(f"c21_{name}_dwarf")
+        t, ok = rel.teff(x, 0.0, 4.4)
+        assert ok, name
+        tol = 2 * float(np.hypot(rel.scatter, rel.dteff_dcolour(x, 0.0, 4.4) * 0.02))
+        assert abs(float(t) - teff) < tol, (name, float(t), teff, tol)
+
+
 def test_parse_term_and_general_terms():
-    assert cal.parse_term("X^2*[Fe/H]") == (2, 1)
-    assert cal.parse_term("[Fe/H]^2") == (0, 2)
+    assert cal.parse_term("X^2*[Fe/H]") == (2, 1, 0)
+    assert cal.parse_term("[Fe/H]^2") == (0, 2, 0)
+    assert cal.parse_term("[Fe/H]*logg*X") == (1, 1, 1)
     with pytest.raises(StelltempError):
-        cal.parse_term("log g")
+        cal.parse_term("log(g)")
 
 
 # ------------------------------------------------------- validity ranges
@@ -343,6 +400,9 @@ def test_coverage_notes_say_why_and_what_was_assumed():
     assert notes[3] == "no calibration: none of the calibrated colours was measured"
     # a giant (log g 2.0) with V-Ks and B-V only: no giant relation in those colours
     assert notes[4].startswith("no calibration: no relation for a giant (log g 2.00)")
+    # Gaia-2MASS colours only, log g unknown: the relations that need log g are named
+    notes = cal.coverage_notes({("BP_GDR3", "Ks_2MASS"): [2.0]}, feh=[0.0], logg=None)
+    assert "BP-Ks need log g, which is unknown" in notes[0]
     # the metallicity reason is named when only [Fe/H] is outside
     notes = cal.coverage_notes({("V_JC", "J_2MASS"): [4.0]}, feh=[-1.5], logg=[5.0])
     assert "M15 V-J: [Fe/H] -1.50 outside -0.6 to +0.5" in notes[0]

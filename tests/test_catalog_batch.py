@@ -11,7 +11,7 @@ import pytest
 from astropy.table import Table
 
 from stelltemp.catalog import estimate_table, run_catalogue
-from stelltemp.catalog.batch import RESULT_SUFFIX, compute_chunk, fast_flag_names
+from stelltemp.catalog.batch import RESULT_SUFFIX, compute_chunk
 from stelltemp.catalog.tableio import read_table
 from stelltemp.engine import flags as F
 from stelltemp.errors import StelltempError
@@ -203,9 +203,9 @@ def test_compute_chunk_rejects_an_engine_that_loses_rows():
         compute_chunk(t, resolve_mapping(t.colnames), RunOptions(), short)
 
 
-def test_fast_flag_names_matches_describe():
+def test_flag_names_match_describe():
     masks = np.array([0, 3, F.ABSURD_VALUE, 3, 0], dtype=np.int64)
-    assert list(fast_flag_names(masks)) == [F.describe(m) for m in masks]
+    assert list(F.describe_all(masks)) == [F.describe(m) for m in masks]
 
 
 @pytest.mark.parametrize("ext", ["fits", "vot", "ecsv"])

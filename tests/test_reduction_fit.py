@@ -205,3 +205,27 @@ def test_tables_and_airmass_from_time_and_position():
     assert std == {"a": {"V_JC": (10.0, 0.01)}, "b": {}}
     with pytest.raises(StelltempError, match="missing column"):
         observations_from_table(Table({"star": ["a"]}))
+
+
+def test_transformation_file_round_trip(tmp_path):
+    from stelltemp.reduction.store import read_transformation, write_transformation
+
+    rng = np.random.default_rng(11)
+    obs, stds = night(0, *simulate(rng, 1))
+    tr = fit_transformation(obs, stds, SETUPS, provenance={"tool_version": "test", "observations": "x.csv"})
+    path = tmp_path / "night.toml"
+    write_transformation(tr, path)
+    with pytest.raises(StelltempError, match="already exists"):
+        write_transformation(tr, path)
+    back = read_transformation(path)
+    assert back.provenance["tool_version"] == "test"
+    for f in tr.fits:
+        assert back.fits[f].names == tr.fits[f].names
+        assert np.array_equal(back.fits[f].values, tr.fits[f].values)
+        assert np.array_equal(back.fits[f].covariance, tr.fits[f].covariance)
+    a = apply_transformation(obs, tr).table
+    b = apply_transformation(obs, back).table
+    assert np.array_equal(a["V_JC"], b["V_JC"]) and np.array_equal(a["V_JC_err"], b["V_JC_err"])
+    (tmp_path / "bad.toml").write_text('format = "something else"\n')
+    with pytest.raises(StelltempError, match="not a stelltemp transformation"):
+        read_transformation(tmp_path / "bad.toml")

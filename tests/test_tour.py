@@ -172,3 +172,16 @@ def test_demo_found_from_any_directory(tmp_path, monkeypatch):
         for f in DEMO.rglob("*"):
             if f.is_file() and "__pycache__" not in f.parts:
                 assert (found / f.relative_to(DEMO)).read_bytes() == f.read_bytes(), f
+
+
+def test_tour_reduces_the_invented_night(run):
+    # the night's targets come out on the standard system within their errors (invented truth)
+    out, summary = run
+    red = summary["reduction"]
+    assert red is not None and red["targets"] == 20
+    assert [f["filter"] for f in red["filters"]] == ["B", "V", "R", "I"]
+    assert red["truth"]["within_3sigma"] > 0.95 and 0.5 < red["truth"]["within_1sigma"] <= 1.0
+    for f in red["filters"]:
+        assert abs(f["colour_term"] - f["colour_term_predicted"]) < 3 * f["colour_term_err"]
+    for key in ("transformation", "night_targets", "residual_figure"):
+        assert Path(summary["files"][key]).is_file()

@@ -135,14 +135,6 @@ def success_mask(results):
     return ok
 
 
-def fast_flag_names(masks):
-    """`stelltemp.engine.flags.describe` over many rows, once per distinct mask."""
-    masks = np.asarray(masks, dtype=np.int64)
-    uniq, inverse = np.unique(masks, return_inverse=True)
-    names = np.array([F.describe(m) for m in uniq], dtype=object)
-    return names[inverse.reshape(masks.shape)].astype(str) if masks.size else np.array([], dtype=str)
-
-
 def default_engine():
     """The temperature engine, imported only when a run needs it."""
     try:
@@ -250,7 +242,7 @@ def compute_chunk(chunk, cmap, opts, engine):
     old = np.asarray(res["flags"], dtype=np.int64) if "flags" in res.colnames else np.zeros(n, np.int64)
     masks = old | clean.flags
     res["flags"] = masks
-    res["flag_names"] = fast_flag_names(masks)
+    res["flag_names"] = F.describe_all(masks)
     res[NOTES_COLUMN] = clean.notes
     return res
 
@@ -303,8 +295,18 @@ def merge_arrow(chunk, results, names, types=None):
     left = chunk if isinstance(chunk, pa.Table) else tableio.astropy_to_arrow(chunk)
     if types:
         left = tableio.apply_types(left, types)
-    right = tableio.results_to_arrow(results)
-    for f, col in zip(right.schema, right.columns):
+    coded = "flag_names" in results.colnames and "flags" in results.colnames
+    right = tableio.results_to_arrow(results[[c for c in results.colnames if c != "flag_names"]] if coded
+                                     else results)
+    for name in results.colnames:
+        if coded and name == "flag_names":
+            # the names from their dictionary encoding: one string per distinct mask, taken per row
+            codes, texts = F.encode(np.asarray(results["flags"], dtype=np.int64))
+            col = pa.array(list(texts), pa.string()).take(pa.array(codes))
+            f = pa.field(name, pa.string())
+        else:
+            col = right.column(name)
+            f = right.schema.field(name)
         left = left.append_column(pa.field(names[f.name], f.type, metadata=f.metadata), col)
     return left
 
@@ -319,7 +321,9 @@ def merge_astropy(chunk, results, names, types=None):
     else:
         left = Table(chunk, copy=False)
     for name in results.colnames:
-        left[names[name]] = results[name]
+        col = results[name]
+        # text held as shared str objects (flag names): fixed-width text for the file writers
+        left[names[name]] = col.astype(str) if getattr(col, "dtype", None) == object else col
     return left
 
 

@@ -18,6 +18,7 @@ one module per subcommand, in :data:`COMMANDS` order:
 ``catalogue``   temperatures for every row of a table file
 ``exposure``    counts, S/N and exposure time for one star
 ``nightplan``   windows and exposures for a target list in one night
+``standardise`` standard magnitudes from instrumental ones (transformation from standard stars)
 ``tour``        the whole job once on the invented demo data
 
 How to add a subcommand
@@ -50,7 +51,7 @@ import warnings
 
 from .. import __version__
 from ..errors import RenamedWarning, StelltempError
-from . import blackbody, catalogue, colourgrid, exposure, nightplan, passbands, relations, star, tour
+from . import blackbody, catalogue, colourgrid, exposure, nightplan, passbands, relations, standardise, star, tour
 from .options import HelpWithDefaults
 from .output import emit_json
 
@@ -60,7 +61,7 @@ EXIT_BAD_INPUT = 2
 #: exit status after the reader of stdout went away (128 + SIGPIPE, as Unix tools report it)
 EXIT_CLOSED_PIPE = 141
 #: the subcommand modules, in the order ``--help`` lists them
-COMMANDS = (passbands, blackbody, colourgrid, star, relations, catalogue, exposure, nightplan, tour)
+COMMANDS = (passbands, blackbody, colourgrid, star, relations, catalogue, exposure, nightplan, standardise, tour)
 
 
 class Parser(argparse.ArgumentParser):

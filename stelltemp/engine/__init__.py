@@ -77,6 +77,34 @@ def _clean_photometry(mags, errs, keys, n):
     return m, e, flags
 
 
+#: stars per internal block of `estimate`: time and memory grow linearly with rows
+BLOCK_ROWS = 1 << 16
+
+
+def _in_blocks(call, n, per_star):
+    """``call(**inputs)`` over row blocks of the per-star inputs, results joined into one QTable.
+
+    Values of ``per_star`` with n entries are sliced per block; scalars (and
+    dicts of them) pass whole.  The engine works row by row, so the joined
+    table equals one unblocked call.
+    """
+    def part(value, sl):
+        if isinstance(value, dict):
+            return {k: part(v, sl) for k, v in value.items()}
+        return value[sl] if np.ndim(value) == 1 and np.size(value) == n else value
+
+    blocks = [call(**{k: part(v, slice(i, i + BLOCK_ROWS)) for k, v in per_star.items()})
+              for i in range(0, n, BLOCK_ROWS)]
+    first = blocks[0]
+    table = QTable(meta=first.meta)
+    for name in first.colnames:
+        cols = [b[name] for b in blocks]
+        joined = np.concatenate([np.asarray(getattr(c, "value", c)) for c in cols])
+        unit = getattr(first[name], "unit", None)
+        table[name] = joined * unit if isinstance(first[name], u.Quantity) else joined
+    return table
+
+
 def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=DEFAULT_RV,
              law=DEFAULT_LAW, fit_ebv=False, parallax=None, parallax_err=None, feh=None, logg=None,
              method="auto", monte_carlo=0, seed=None):
@@ -136,6 +164,15 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
         raise StelltempError("fitting E(B−V) needs at least three bands")
     if int(monte_carlo) < 0:
         raise StelltempError("monte_carlo must be 0 or a positive number of samples")
+    n_rows = max((np.size(v) for v in mags.values()), default=0)
+    if n_rows > BLOCK_ROWS and not monte_carlo and isinstance(mags, dict):
+        per_star = dict(mags=mags, errs=errs, ebv=ebv, ebv_err=ebv_err, av=av, av_err=av_err,
+                        parallax=parallax, parallax_err=parallax_err, feh=feh, logg=logg)
+        values = [x for v in per_star.values() for x in (v.values() if isinstance(v, dict) else [v])]
+        if all(np.ndim(x) <= 1 and np.size(x) in (0, 1, n_rows) for x in values if x is not None):
+            return _in_blocks(lambda **kw: estimate(**kw, rv=rv, law=law, fit_ebv=fit_ebv, method=method),
+                              n_rows, per_star)
+        # otherwise the unblocked path below names the badly shaped input
     pivots = [get_passband(k).pivot_wavelength.value for k in keys]
     order = np.argsort(pivots)
     keys = [keys[i] for i in order]
@@ -207,7 +244,7 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
     table["n_cal"] = cal.n_used
     table["teff_cal_note"] = np.asarray(cal_notes, dtype=str)
     table["flags"] = flags
-    table["flag_names"] = fl.describe_all(flags).astype(str)
+    table["flag_names"] = fl.describe_all(flags)
     table.meta.update({
         "method": "colour" if use_colour else ("fit+ebv" if fit_ebv else "fit"),
         "passbands": ",".join(keys),

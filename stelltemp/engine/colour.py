@@ -27,9 +27,10 @@ from ..errors import StelltempError
 from ..extinction import DEFAULT_LAW, DEFAULT_RV, relative_extinction
 from ..photometry import mag_offset
 from . import flags as fl
+from .. import kernels
 
 _BLOCK = 1 << 15  # stars per block of the inversion
-_NEWTON_STEPS = 4  # from the linear guess: ~1e-4 → 1e-8 → 1e-16 in t
+_NEWTON_STEPS = kernels.NEWTON_STEPS
 
 
 @lru_cache(maxsize=256)
@@ -93,25 +94,58 @@ def invert_colour(colour, blue, red, ebv=0.0, law=DEFAULT_LAW, rv=DEFAULT_RV):
     shape = colour.shape
     c = colour.ravel()
     e = ebv.ravel()
+    jit = kernels.jit_for(c.size)
+    if jit is not None:
+        lnt, slope, flags = _invert_compiled(jit, c, e, *pair)
+        return np.exp(lnt).reshape(shape), slope.reshape(shape), flags.reshape(shape)
     # blocks that fit in the processor's cache: the many short passes over the
     # arrays below then cost far less than on one huge array
     parts = [_invert_block(c[k:k + _BLOCK], e[k:k + _BLOCK], *pair) for k in range(0, c.size, _BLOCK)]
     if not parts:
         empty = np.empty(shape)
         return empty, empty.copy(), np.zeros(shape, np.int64)
-    temperature, slope, flags = (np.concatenate(x) for x in zip(*parts))
-    return temperature.reshape(shape), slope.reshape(shape), flags.reshape(shape)
+    lnt, slope, flags = (np.concatenate(x) for x in zip(*parts))
+    return np.exp(lnt).reshape(shape), slope.reshape(shape), flags.reshape(shape)
+
+
+def _invert_compiled(jit, c, e, table, e_fine, rj):
+    """`invert_colour` by the compiled kernel (same steps as `_invert_block`, one star at a time)."""
+    nt, ne = table.shape
+    n = c.size
+    lnt, slope, flags = np.empty(n), np.empty(n), np.empty(n, np.int64)
+    jit["invert_cells"](np.ascontiguousarray(c), np.ascontiguousarray(e), *_flat(table), nt, ne,
+                        table.lnt0, table.h_t, table.e0, table.h_e, rj, e_fine[0], e_fine[1] - e_fine[0],
+                        bg.E_MIN, bg.E_MAX, kernels.NEWTON_STEPS, fl.BAD_INPUT, fl.NO_SOLUTION,
+                        fl.AT_GRID_EDGE, lnt, slope, flags)
+    return lnt, slope, flags
+
+
+def _flat(table):
+    """Node (value, scaled ∂/∂E) pairs and cell patches of a table as flat contiguous arrays (kept on it)."""
+    flat = table.__dict__.get("_flat")
+    if flat is None:
+        # value and scaled ∂/∂E of each node side by side: one cache line per lookup
+        flat = (np.ascontiguousarray(table.coef[..., [0, 2]]).ravel(),
+                table.flat_patches)
+        table.__dict__["_flat"] = flat
+    return flat
 
 
 def _invert_block(c, e, table, e_fine, rj):
-    """`invert_colour` on one block of stars (flat arrays)."""
+    """`invert_colour` on one block of stars (flat arrays), step for step as the compiled kernel.
+
+    Both give bit-identical results, so a star's temperature does not depend
+    on how many stars share its call.
+    """
     n = c.size
     nt, ne = table.shape
+    nodes, patches = _flat(table)
+    val, val_e = nodes[0::2], nodes[1::2]
     flags = np.zeros(n, np.int64)
 
     e_ok = np.isfinite(e) & (e >= bg.E_MIN) & (e <= bg.E_MAX)
     ok = np.isfinite(c) & e_ok
-    flags[~ok] |= fl.BAD_INPUT
+    flags[~ok] = fl.BAD_INPUT
 
     v = (np.where(e_ok, e, 0.0) - table.e0) / table.h_e
     j = np.clip(np.floor(v), 0, ne - 2).astype(np.intp)
@@ -121,69 +155,55 @@ def _invert_block(c, e, table, e_fine, rj):
     # cubic Hermite basis in s: node values (as0, as1) and scaled slopes (bs0, bs1)
     as0, as1 = 2 * s3 - 3 * s2 + 1, 3 * s2 - 2 * s3
     bs0, bs1 = s3 - 2 * s2 + s, s3 - s2
-    val = np.ascontiguousarray(table.coef[..., 0]).ravel()
-    val_e = np.ascontiguousarray(table.coef[..., 2]).ravel()
 
     def node_colour(i):
         """Exact (cubic in E) colour at temperature node i and each star's E."""
         k = i * ne + j
         return val[k] * as0 + val[k + 1] * as1 + val_e[k] * bs0 + val_e[k + 1] * bs1
 
-    c_cold = node_colour(np.zeros(n, np.intp))
-    c_hot = node_colour(np.full(n, nt - 1, np.intp))
+    c_cold = node_colour(0)
+    c_hot = node_colour(nt - 1)
     too_blue = ok & (c < c_hot)
-    no_sol = too_blue & (c < np.interp(e, e_fine, rj))
-    flags[no_sol] |= fl.NO_SOLUTION
-    flags[too_blue & ~no_sol] |= fl.AT_GRID_EDGE
-    too_red = ok & (c > c_cold)
-    flags[too_red] |= fl.AT_GRID_EDGE
+    # the Rayleigh–Jeans colour at each E, linear on its uniform grid
+    x = (np.where(too_blue, e, e_fine[0]) - e_fine[0]) / (e_fine[1] - e_fine[0])
+    m = np.clip(np.floor(x), 0, e_fine.size - 2).astype(np.intp)
+    limit = rj[m] + (x - m) * (rj[m + 1] - rj[m])
+    flags[too_blue] = np.where(c[too_blue] < limit[too_blue], fl.NO_SOLUTION, fl.AT_GRID_EDGE)
+    too_red = ok & ~too_blue & (c > c_cold)
+    flags[too_red] = fl.AT_GRID_EDGE
     solve = ok & ~too_blue & ~too_red
 
-    # bisection over nodes (colour decreases with node index) on node colours
-    # interpolated linearly in E: two gathers a step instead of four.  The
-    # linear and cubic E interpolants differ by ~1e-4 mag, so the cell found
-    # can be one off for colours that close to a node; that is fixed below.
-    lo = np.zeros(n, np.intp)
-    hi = np.full(n, nt - 1, np.intp)
+    # bisection over the nodes (colour falls with node index) on the exact node
+    # colours: the last node redder than the star
     cc = np.where(solve, c, 0.0)
-    for _ in range(int(np.ceil(np.log2(nt - 1)))):
-        mid = (lo + hi) >> 1
-        k = mid * ne + j
-        redder = val[k] + s * (val[k + 1] - val[k]) > cc
-        lo = np.where(redder, mid, lo)
-        hi = np.where(redder, hi, mid)
+    lo = np.zeros(n, np.intp)
+    span = nt - 1
+    while span > 1:
+        half = span >> 1
+        lo += half * (node_colour(lo + half) > cc)
+        span -= half
     i = np.minimum(lo, nt - 2)
 
     # inside the cell the colour is a cubic in the cell coordinate t:
     # p(t) = q0 + q1 t + q2 t² + q3 t³, with the E direction already summed
-    patches = table.patches.reshape(-1, 4, 4)
-
-    def cell_cubic(i, j, s):
-        c = patches[i * (ne - 1) + j]
-        s_ = s[:, None]
-        return c[:, :, 0] + s_ * (c[:, :, 1] + s_ * (c[:, :, 2] + s_ * c[:, :, 3]))
-
-    q = cell_cubic(i, j, s)
-    # one cell off: the root lies in the neighbour (colour above the cell's cold end or below its hot end)
-    shift = np.where(cc > q[:, 0], -1, np.where(cc < q.sum(axis=1), 1, 0))
-    shift[(i + shift < 0) | (i + shift > nt - 2) | ~solve] = 0
-    moved = np.nonzero(shift)[0]
-    if moved.size:
-        i[moved] += shift[moved]
-        q[moved] = cell_cubic(i[moved], j[moved], s[moved])
-    f0, g0, a2, a3 = q[:, 0], q[:, 1], q[:, 2], q[:, 3]
-    f1 = f0 + g0 + a2 + a3
+    c_ = patches.reshape(-1, 4, 4)[i * (ne - 1) + j]
+    s_ = s[:, None]
+    q = c_[:, :, 0] + s_ * (c_[:, :, 1] + s_ * (c_[:, :, 2] + s_ * c_[:, :, 3]))
+    q0, q1, q2, q3 = q[:, 0], q[:, 1], q[:, 2], q[:, 3]
+    f1 = q0 + q1 + q2 + q3
     with np.errstate(divide="ignore", invalid="ignore"):
-        t = np.clip((cc - f0) / (f1 - f0), 0.0, 1.0)
+        t = np.clip((cc - q0) / (f1 - q0), 0.0, 1.0)
+        moving = np.ones(n, bool)
         for _ in range(_NEWTON_STEPS):
-            p = f0 + t * (g0 + t * (a2 + t * a3)) - cc
-            dp = g0 + t * (2 * a2 + 3 * t * a3)
-            t = np.clip(t - p / dp, 0.0, 1.0)
-    dp = g0 + t * (2 * a2 + 3 * t * a3)
-    lnt = table.lnt0 + (i + t) * table.h_t
-    temperature = np.where(solve, np.exp(lnt), np.nan)
+            p = q0 + t * (q1 + t * (q2 + t * q3)) - cc
+            dp = q1 + t * (2 * q2 + 3 * t * q3)
+            t_new = np.clip(t - p / dp, 0.0, 1.0)
+            moving &= t_new != t  # a star stops once a step changes nothing (as the kernel)
+            t = np.where(moving, t_new, t)
+    dp = q1 + t * (2 * q2 + 3 * t * q3)
+    lnt = np.where(solve, table.lnt0 + (i + t) * table.h_t, np.nan)
     slope = np.where(solve, dp / table.h_t, np.nan)
-    return temperature, slope, flags
+    return lnt, slope, flags
 
 
 def colour_interval(colour, colour_err, blue, red, ebv=0.0, ebv_err=0.0, law=DEFAULT_LAW, rv=DEFAULT_RV):

@@ -45,9 +45,36 @@ def describe(mask):
     return ",".join(name for bit, name in NAMES.items() if mask & bit)
 
 
+_NAME_CACHE = {}
+
+
+def encode(masks):
+    """Dictionary encoding of the names of many masks: (codes, names) with names[codes] per row.
+
+    ``codes`` is an int32 array like ``masks``; ``names`` holds the
+    `describe` text of each distinct mask once (an object array of str).
+    O(n) for the usual small masks, built once per distinct mask per run.
+    """
+    masks = np.asarray(masks, dtype=np.int64)
+    flat = masks.ravel()
+    if flat.size and 0 <= flat.min() and flat.max() < 1 << 16:
+        present = np.flatnonzero(np.bincount(flat))
+        lookup = np.zeros(present[-1] + 1, np.int32)
+        lookup[present] = np.arange(present.size, dtype=np.int32)
+        codes = lookup[flat]
+    else:
+        present, codes = np.unique(flat, return_inverse=True)
+        codes = codes.astype(np.int32)
+    names = np.empty(present.size, dtype=object)
+    for i, m in enumerate(present.tolist()):
+        text = _NAME_CACHE.get(m)
+        if text is None:
+            text = _NAME_CACHE[m] = describe(m)
+        names[i] = text
+    return codes.reshape(masks.shape), names
+
+
 def describe_all(masks):
-    """`describe` over an integer array (one string per distinct mask)."""
-    masks = np.asarray(masks, dtype=np.int64).ravel()
-    unique, inverse = np.unique(masks, return_inverse=True)
-    names = np.array([describe(m) for m in unique], dtype=str)
-    return names[inverse]
+    """`describe` over an integer array: one str per row (an object array sharing one str per mask)."""
+    codes, names = encode(masks)
+    return names[codes.ravel()]

@@ -6,6 +6,7 @@
 * :mod:`~stelltemp.reduction.wls` — weighted least squares with outlier rejection;
 * :mod:`~stelltemp.reduction.fit` — fitting the coefficients to the standards;
 * :mod:`~stelltemp.reduction.apply` — standard magnitudes of targets with full covariance;
+* :mod:`~stelltemp.reduction.atmosphere` — a smooth model of the extinction k(λ);
 * :mod:`~stelltemp.reduction.predict` — colour terms predicted from the instrument's passbands.
 """
 

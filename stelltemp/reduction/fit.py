@@ -80,6 +80,7 @@ class FilterFit:
     points: dict
     priors: dict = field(default_factory=dict)
     notes: list = field(default_factory=list)
+    stored_n_used: int | None = None  # a fit read from a file keeps only its rejected points
 
     @property
     def errors(self):
@@ -92,7 +93,8 @@ class FilterFit:
 
     @property
     def n_used(self):
-        return int(np.sum(self.points["kept"]))
+        """Measurements the coefficients rest on."""
+        return self.stored_n_used if self.stored_n_used is not None else int(np.sum(self.points["kept"]))
 
     @property
     def rejected(self):

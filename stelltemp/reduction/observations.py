@@ -96,6 +96,7 @@ def airmass_from_position(time_utc, ra_deg, dec_deg, site):
     """
     from astropy import units as u
     from astropy.coordinates import AltAz, SkyCoord
+    from astropy.coordinates.erfa_astrom import ErfaAstromInterpolator, erfa_astrom
     from astropy.time import Time
 
     from ..observing.airmass import airmass_kasten_young
@@ -107,7 +108,9 @@ def airmass_from_position(time_utc, ra_deg, dec_deg, site):
         except ValueError as exc:
             raise StelltempError(f"observations: 'time_utc' holds a value that is not an ISO time ({exc})") from None
         c = SkyCoord(ra=np.asarray(ra_deg, float) * u.deg, dec=np.asarray(dec_deg, float) * u.deg, frame="icrs")
-        alt = c.transform_to(AltAz(obstime=t, location=site.location())).alt.deg
+        # astrometry parameters interpolated over 5 min: far below an airmass error that matters
+        with erfa_astrom.set(ErfaAstromInterpolator(300 * u.s)):
+            alt = c.transform_to(AltAz(obstime=t, location=site.location())).alt.deg
     return airmass_kasten_young(alt)
 
 

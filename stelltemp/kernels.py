@@ -1,0 +1,180 @@
+"""Compiled per-star kernels for large calls, with the numpy code as the fallback.
+
+Large arrays go through loops compiled by numba (one pass per star, all
+its steps kept in registers); small calls, and every call when numba is
+missing or ``STELLTEMP_JIT=0`` is set, run the numpy code beside each
+kernel.  Both compute the same thing: ``tests/test_kernels.py`` checks
+that they agree to rounding.
+
+numba is imported only by the first call with at least `MIN_ROWS` stars,
+and compiles with ``cache=True`` (machine code kept in numba's cache folder
+between runs), so short runs never pay for the compiler.
+
+The kernels
+-----------
+`invert_cells`
+    Colour → ln temperature on the bicubic Hermite colour table of
+    :mod:`stelltemp.bandgrid`: bisection over the temperature nodes with the
+    node colours exact (cubic) in E(B−V), then Newton steps on the cell's
+    cubic in ln T from the linear guess.
+`evaluate_cells`
+    Value, ∂/∂lnT and ∂/∂E of a bicubic Hermite table at many points.
+"""
+
+import os
+
+import numpy as np
+
+#: calls with fewer stars than this use the numpy code (no compiler start-up)
+MIN_ROWS = 20_000
+#: Newton steps inside a cell, from the linear guess: ~1e-4 → 1e-8 → 1e-16 in t
+NEWTON_STEPS = 4
+
+_state = {"jit": None}  # the compiled functions once loaded, False if unavailable
+
+
+def enabled():
+    """True unless ``STELLTEMP_JIT`` is set to 0/false/no/off."""
+    return os.environ.get("STELLTEMP_JIT", "1").strip().lower() not in ("0", "false", "no", "off")
+
+
+def _load():
+    """Compile (or load from numba's cache) the kernels; False when numba is missing."""
+    if _state["jit"] is None:
+        try:
+            import numba
+        except ImportError:
+            _state["jit"] = False
+        else:
+            _state["jit"] = _build(numba)
+    return _state["jit"]
+
+
+def jit_for(n):
+    """The compiled kernels for a call over ``n`` stars, or None (use numpy)."""
+    if n < MIN_ROWS or not enabled():
+        return None
+    return _load() or None
+
+
+def backend():
+    """'numba' when large calls are compiled, else 'numpy'."""
+    return "numba" if enabled() and _load() else "numpy"
+
+
+def __getattr__(name):  # BACKEND, computed (and numba loaded) only when asked
+    if name == "BACKEND":
+        return backend()
+    raise AttributeError(name)
+
+
+def _build(numba):
+    njit = numba.njit(cache=True, nogil=True, error_model="numpy", fastmath=False)
+
+    @njit
+    def invert_cells(c, e, nodes, patches, nt, ne, lnt0, h_t, e0, h_e,
+                     rj, rj_e0, rj_h, e_min, e_max, steps, bad, no_sol, edge,
+                     lnt, slope, flags):
+        n = c.size
+        n_rj = rj.size
+        for k in range(n):
+            ck = c[k]
+            ek = e[k]
+            lnt[k] = np.nan
+            slope[k] = np.nan
+            e_ok = np.isfinite(ek) and ek >= e_min and ek <= e_max
+            if not (e_ok and np.isfinite(ck)):
+                flags[k] = bad
+                continue
+            v = (ek - e0) / h_e
+            j = int(np.floor(v))
+            if j < 0:
+                j = 0
+            elif j > ne - 2:
+                j = ne - 2
+            s = v - j
+            s2 = s * s
+            s3 = s2 * s
+            as0 = 2 * s3 - 3 * s2 + 1
+            as1 = 3 * s2 - 2 * s3
+            bs0 = s3 - 2 * s2 + s
+            bs1 = s3 - s2
+            # node colours at the star's own E(B−V): cold end (i = 0) and hot end
+            kk = j
+            c_cold = nodes[2 * kk] * as0 + nodes[2 * kk + 2] * as1 + nodes[2 * kk + 1] * bs0 + nodes[2 * kk + 3] * bs1
+            kk = (nt - 1) * ne + j
+            c_hot = nodes[2 * kk] * as0 + nodes[2 * kk + 2] * as1 + nodes[2 * kk + 1] * bs0 + nodes[2 * kk + 3] * bs1
+            if ck < c_hot:
+                # Rayleigh–Jeans colour at this E, linear on its uniform grid
+                x = (ek - rj_e0) / rj_h
+                m = int(np.floor(x))
+                if m < 0:
+                    m = 0
+                elif m > n_rj - 2:
+                    m = n_rj - 2
+                f = x - m
+                limit = rj[m] + f * (rj[m + 1] - rj[m])
+                flags[k] = no_sol if ck < limit else edge
+                continue
+            if ck > c_cold:
+                flags[k] = edge
+                continue
+            flags[k] = 0
+            # branch-free bisection: the largest node i with colour(i) > c
+            lo = 0
+            span = nt - 1
+            while span > 1:
+                half = span >> 1
+                kk = (lo + half) * ne + j
+                cm = nodes[2 * kk] * as0 + nodes[2 * kk + 2] * as1 + nodes[2 * kk + 1] * bs0 + nodes[2 * kk + 3] * bs1
+                lo += half * (cm > ck)
+                span -= half
+            i = min(lo, nt - 2)
+            # the cell's cubic in t with the E direction summed: q0 + q1 t + q2 t² + q3 t³
+            base = (i * (ne - 1) + j) * 16
+            q0 = patches[base + 0] + s * (patches[base + 1] + s * (patches[base + 2] + s * patches[base + 3]))
+            q1 = patches[base + 4] + s * (patches[base + 5] + s * (patches[base + 6] + s * patches[base + 7]))
+            q2 = patches[base + 8] + s * (patches[base + 9] + s * (patches[base + 10] + s * patches[base + 11]))
+            q3 = patches[base + 12] + s * (patches[base + 13] + s * (patches[base + 14] + s * patches[base + 15]))
+            f1 = q0 + q1 + q2 + q3
+            t = (ck - q0) / (f1 - q0)
+            t = min(max(t, 0.0), 1.0)
+            for _ in range(steps):
+                p = q0 + t * (q1 + t * (q2 + t * q3)) - ck
+                dp = q1 + t * (2 * q2 + 3 * t * q3)
+                t_new = min(max(t - p / dp, 0.0), 1.0)
+                if t_new == t:  # converged: further steps change nothing
+                    break
+                t = t_new
+            dp = q1 + t * (2 * q2 + 3 * t * q3)
+            lnt[k] = lnt0 + (i + t) * h_t
+            slope[k] = dp / h_t
+
+    @njit
+    def evaluate_cells(lnt, ebv, patches, nt, ne, lnt0, h_t, e0, h_e, want_de, value, d_lnt, d_e):
+        n = lnt.size
+        for k in range(n):
+            u = (lnt[k] - lnt0) / h_t
+            v = (ebv[k] - e0) / h_e
+            # as numpy's fmin(fmax(x, 0), n − 2): NaN goes to cell 0 and stays in t or s
+            uu = u if u > 0.0 else 0.0
+            vv = v if v > 0.0 else 0.0
+            i = int(min(uu, nt - 2.0))
+            j = int(min(vv, ne - 2.0))
+            t = u - i
+            s = v - j
+            base = (i * (ne - 1) + j) * 16
+            q0 = patches[base + 0] + s * (patches[base + 1] + s * (patches[base + 2] + s * patches[base + 3]))
+            q1 = patches[base + 4] + s * (patches[base + 5] + s * (patches[base + 6] + s * patches[base + 7]))
+            q2 = patches[base + 8] + s * (patches[base + 9] + s * (patches[base + 10] + s * patches[base + 11]))
+            q3 = patches[base + 12] + s * (patches[base + 13] + s * (patches[base + 14] + s * patches[base + 15]))
+            value[k] = q0 + t * (q1 + t * (q2 + t * q3))
+            d_lnt[k] = (q1 + t * (2 * q2 + 3 * t * q3)) / h_t
+            if want_de:
+                r0 = patches[base + 1] + s * (2 * patches[base + 2] + 3 * s * patches[base + 3])
+                r1 = patches[base + 5] + s * (2 * patches[base + 6] + 3 * s * patches[base + 7])
+                r2 = patches[base + 9] + s * (2 * patches[base + 10] + 3 * s * patches[base + 11])
+                r3 = patches[base + 13] + s * (2 * patches[base + 14] + 3 * s * patches[base + 15])
+                d_e[k] = (r0 + t * (r1 + t * (r2 + t * r3))) / h_e
+
+    return {"invert_cells": invert_cells, "evaluate_cells": evaluate_cells}

@@ -1,0 +1,323 @@
+"""Benchmark: every speed goal of the engine and the catalogue path, with same-run references.
+
+Each goal is timed next to a reference measured in the same run (the
+machine is shared, so absolute times drift; ratios within one run do not
+drift much).  Every goal is measured ``--repeats`` times (default 3) and
+reported with its min and median; a goal is met when the median meets it.
+
+Goals (2-core machine):
+
+* ``inversion``: 1e6 single-colour inversions with per-star E(B−V)
+  (`stelltemp.engine.colour.invert_colour`) ≤ 1.3 × one ``np.interp`` of
+  1e6 values on a 4,000-point grid;
+* ``estimate_2band``: `stelltemp.engine.estimate`, 2 bands, 1e6 stars,
+  one call ≤ 0.5 s;
+* ``fit_fixed`` / ``fit_free``: `estimate`, 5 bands, 1e5 stars, E(B−V)
+  fixed / fitted ≤ 4 / 8 × one evaluation of all 5 band models (value and
+  both derivatives);
+* ``catalogue_parquet``: ``stelltemp catalogue`` on a 1e6-row Parquet
+  file, 5 bands + E(B−V), end to end ≤ 3 × a pyarrow read of the input
+  plus a write of the same output;
+* ``fixed_cost``: a ``catalogue`` run on 10,000 rows in a fresh process
+  ≤ 0.8 s (reference: ``stelltemp --help`` in a fresh process);
+* ``tour``: ``stelltemp tour`` in a fresh process ≤ 4 s;
+* ``dask``: 4e6 rows on 2 process workers ≥ 1.6 × faster than the local
+  engine on the same file, identical results.
+
+``scaling``: `estimate` with 2 bands on 1e4 … 4e6 stars, seconds and peak
+traced memory (numpy's allocations, `tracemalloc`) per row.
+
+Prints one JSON object.  ``--only`` picks goals (comma-separated).  On this
+machine run it with OPENBLAS_CORETYPE and OPENBLAS_L2_SIZE unset for that
+command alone (they slow a current numpy)::
+
+    env -u OPENBLAS_CORETYPE -u OPENBLAS_L2_SIZE python tests/benchmarks/bench_goals.py
+"""
+
+import argparse
+import json
+import os
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+import tracemalloc
+from pathlib import Path
+
+import numpy as np
+
+ROOT = Path(__file__).resolve().parents[2]
+sys.path.insert(0, str(ROOT))
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+
+KEYS5 = ["B_JC", "V_JC", "Ic_JC", "J_2MASS", "Ks_2MASS"]
+SCALING_ROWS = (10_000, 30_000, 100_000, 300_000, 1_000_000, 4_000_000)
+GOALS = ("inversion", "estimate_2band", "fit_fixed", "fit_free", "catalogue_parquet", "fixed_cost",
+         "tour", "dask", "scaling")
+
+
+def _clock(fn, *args, **kwargs):
+    t0 = time.perf_counter()
+    fn(*args, **kwargs)
+    return time.perf_counter() - t0
+
+
+def _summary(times, refs, goal, kind):
+    """min/median of the goal's times, its references and their ratios; kind 'ratio_max', 'ratio_min' or 'seconds'."""
+    ratios = [t / r for t, r in zip(times, refs)] if refs else None
+    out = {"seconds_min": round(min(times), 4), "seconds_median": round(statistics.median(times), 4)}
+    if refs:
+        out["reference_seconds_min"] = round(min(refs), 4)
+        out["reference_seconds_median"] = round(statistics.median(refs), 4)
+        out["ratio_min"] = round(min(ratios), 3)
+        out["ratio_median"] = round(statistics.median(ratios), 3)
+    out["goal"] = goal
+    if kind == "seconds":
+        out["goal_kind"] = "seconds at most"
+        out["met"] = out["seconds_median"] <= goal
+    elif kind == "ratio_max":
+        out["goal_kind"] = "ratio to the reference at most"
+        out["met"] = out["ratio_median"] <= goal
+    else:  # reference / time: a speed-up at least
+        out["goal_kind"] = "speed-up over the reference at least"
+        out["speedup_median"] = round(statistics.median(r / t for t, r in zip(times, refs)), 3)
+        out["met"] = out["speedup_median"] >= goal
+    return out
+
+
+def _colour_stars(n, seed=1):
+    from stelltemp import bandgrid as bg
+
+    rng = np.random.default_rng(seed)
+    t = np.exp(rng.uniform(np.log(2500), np.log(40000), n))
+    e = rng.uniform(0, 2, n)
+    colour = bg.colour_table("B_JC", "V_JC").evaluate(np.log(t), e, want_de=False)[0]
+    return t, e, colour
+
+
+def goal_inversion(repeats):
+    from stelltemp.engine.colour import invert_colour
+
+    n = 1_000_000
+    t, e, colour = _colour_stars(n)
+    grid_x = np.linspace(0.0, 1.0, 4000)
+    grid_y = np.cumsum(np.random.default_rng(3).uniform(0, 1, 4000))
+    x = np.random.default_rng(4).uniform(0, 1, n)
+    invert_colour(colour[:1000], "B_JC", "V_JC", e[:1000])  # tables (and any compile) outside the timing
+    times, refs = [], []
+    for _ in range(repeats):
+        refs.append(_clock(np.interp, x, grid_x, grid_y))
+        times.append(_clock(invert_colour, colour, "B_JC", "V_JC", e))
+    back = invert_colour(colour, "B_JC", "V_JC", e)[0]
+    out = _summary(times, refs, 1.3, "ratio_max")
+    out["round_trip_max_rel_error"] = float(np.nanmax(np.abs(back / t - 1)))
+    return out
+
+
+def _two_band(n, seed=2):
+    from stelltemp import bandgrid as bg
+
+    rng = np.random.default_rng(seed)
+    t = np.exp(rng.uniform(np.log(3000), np.log(30000), n))
+    e = rng.uniform(0, 1, n)
+    mags = {k: bg.band_table(k).evaluate(np.log(t), e, want_de=False)[0] + 10.0 for k in ("B_JC", "V_JC")}
+    errs = {k: np.full(n, 0.02) for k in mags}
+    return mags, errs, e
+
+
+def goal_estimate_2band(repeats):
+    from stelltemp.engine import estimate
+
+    mags, errs, e = _two_band(1_000_000)
+    estimate({k: v[:100] for k, v in mags.items()}, ebv=e[:100])
+    times = [_clock(estimate, mags, errs, ebv=e, ebv_err=0.02) for _ in range(repeats)]
+    return _summary(times, None, 0.5, "seconds")
+
+
+def _five_band(n, seed=5):
+    from stelltemp import bandgrid as bg
+
+    rng = np.random.default_rng(seed)
+    tf = np.exp(rng.uniform(np.log(3000), np.log(30000), n))
+    ef = rng.uniform(0, 1, n)
+    mags = np.stack([bg.band_table(k).evaluate(np.log(tf), ef, want_de=False)[0] for k in KEYS5], 1)
+    mags += rng.normal(0, 0.02, mags.shape) + rng.uniform(5, 15, (n, 1))
+    return tf, ef, mags
+
+
+def _fit_goal(repeats, fit_ebv):
+    from stelltemp import bandgrid as bg
+    from stelltemp.engine import estimate
+
+    n = 100_000
+    tf, ef, mags = _five_band(n)
+    md = {k: mags[:, i] for i, k in enumerate(KEYS5)}
+    errs = {k: np.full(n, 0.02) for k in KEYS5}
+    tables = [bg.band_table(k) for k in KEYS5]
+    lnt = np.log(tf)
+
+    def all_models():
+        for tab in tables:
+            tab.evaluate(lnt, ef, want_de=True)
+
+    estimate({k: v[:100] for k, v in md.items()}, ebv=ef[:100], fit_ebv=fit_ebv)
+    times, refs = [], []
+    for _ in range(repeats):
+        refs.append(_clock(all_models))
+        times.append(_clock(estimate, md, errs, ebv=ef, ebv_err=0.05, fit_ebv=fit_ebv))
+    return _summary(times, refs, 8.0 if fit_ebv else 4.0, "ratio_max")
+
+
+def goal_fit_fixed(repeats):
+    return _fit_goal(repeats, False)
+
+
+def goal_fit_free(repeats):
+    return _fit_goal(repeats, True)
+
+
+def goal_catalogue_parquet(repeats, rows=1_000_000):
+    import pyarrow.parquet as pq
+
+    from bench_catalog import make_catalogue
+    from stelltemp.catalog import run_catalogue
+
+    times, refs = [], []
+    with tempfile.TemporaryDirectory() as tmp:
+        src, _ = make_catalogue(tmp, rows, chunk=100_000, csv=False)
+        warm = Path(tmp) / "warm.parquet"
+        pq.write_table(pq.read_table(src).slice(0, 1000), warm)
+        run_catalogue(warm, Path(tmp) / "warm_out.parquet", quiet=True)
+        for r in range(repeats):
+            out = Path(tmp) / f"out{r}.parquet"
+            times.append(_clock(run_catalogue, src, out, quiet=True))
+            t0 = time.perf_counter()
+            table = pq.read_table(out)  # the floor: read an input, write the same output
+            refs.append(0.0)
+            t0 = time.perf_counter()
+            pq.read_table(src)
+            pq.write_table(table, Path(tmp) / f"floor{r}.parquet")
+            refs[-1] = time.perf_counter() - t0
+            out.unlink()
+    return _summary(times, refs, 3.0, "ratio_max")
+
+
+def _fresh(args, cwd=None):
+    env = dict(os.environ, PYTHONPATH=str(ROOT))
+    t0 = time.perf_counter()
+    subprocess.run([sys.executable, *args], cwd=cwd, env=env, check=True, capture_output=True)
+    return time.perf_counter() - t0
+
+
+def goal_fixed_cost(repeats):
+    import pyarrow.parquet as pq
+
+    from bench_catalog import make_catalogue
+
+    times, refs = [], []
+    with tempfile.TemporaryDirectory() as tmp:
+        src, _ = make_catalogue(tmp, 10_000, csv=False)
+        pq.read_table(src)
+        _fresh(["-m", "stelltemp.cli", "catalogue", str(src), str(Path(tmp) / "prime.parquet"), "--quiet"])
+        for r in range(repeats):
+            refs.append(_fresh(["-m", "stelltemp.cli", "--help"]))
+            times.append(_fresh(["-m", "stelltemp.cli", "catalogue", str(src), str(Path(tmp) / f"o{r}.parquet"),
+                                 "--ebv", "ebv", "--quiet"]))
+    return _summary(times, refs, 0.8, "seconds")
+
+
+def goal_tour(repeats):
+    times = []
+    with tempfile.TemporaryDirectory() as tmp:
+        _fresh(["-m", "stelltemp.cli", "tour", "--out", str(Path(tmp) / "prime")], cwd=ROOT)
+        for r in range(repeats):
+            times.append(_fresh(["-m", "stelltemp.cli", "tour", "--out", str(Path(tmp) / f"t{r}")], cwd=ROOT))
+    return _summary(times, None, 4.0, "seconds")
+
+
+def goal_dask(repeats, rows=4_000_000):
+    import pyarrow.parquet as pq
+    from distributed import Client, LocalCluster
+
+    from bench_catalog import make_catalogue
+    from stelltemp.catalog import run_catalogue
+    from stelltemp.catalog.scale import run_catalogue_dask
+
+    times, refs = [], []
+    with tempfile.TemporaryDirectory() as tmp:
+        src, _ = make_catalogue(tmp, rows, chunk=500_000, csv=False)
+        with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None) as cluster, \
+                Client(cluster) as client:
+            identical = None
+            for r in range(repeats):
+                loc, dsk = Path(tmp) / f"local{r}.parquet", Path(tmp) / f"dask{r}.parquet"
+                refs.append(_clock(run_catalogue, src, loc, quiet=True))
+                times.append(_clock(run_catalogue_dask, src, dsk, quiet=True, scheduler=client))
+                if identical is None:
+                    a, b = pq.read_table(loc).drop_columns([]), pq.read_table(dsk)
+                    identical = a.select(b.column_names).equals(b)
+                loc.unlink()
+                dsk.unlink()
+    out = _summary(times, refs, 1.6, "speedup_min")
+    out["identical_results"] = bool(identical)
+    out["met"] = out["met"] and out["identical_results"]
+    return out
+
+
+def scaling(rows=SCALING_ROWS):
+    from stelltemp.engine import estimate
+
+    series = []
+    mags, errs, e = _two_band(max(rows))
+    estimate({k: v[:100] for k, v in mags.items()}, ebv=e[:100])
+    for n in rows:
+        part = {k: v[:n] for k, v in mags.items()}
+        perr = {k: v[:n] for k, v in errs.items()}
+        dt = _clock(estimate, part, perr, ebv=e[:n], ebv_err=0.02)
+        tracemalloc.start()
+        estimate(part, perr, ebv=e[:n], ebv_err=0.02)
+        _, peak = tracemalloc.get_traced_memory()
+        tracemalloc.stop()
+        series.append({"rows": n, "seconds": round(dt, 4), "us_per_row": round(dt / n * 1e6, 3),
+                       "peak_traced_mb": round(peak / 2**20, 1), "peak_bytes_per_row": round(peak / n, 1)})
+    return series
+
+
+def _blas():
+    try:
+        from threadpoolctl import threadpool_info
+
+        return [{k: d.get(k) for k in ("internal_api", "architecture", "num_threads")} for d in threadpool_info()]
+    except ImportError:
+        return "threadpoolctl not installed"
+
+
+def main(argv=None):
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--only", default=",".join(GOALS), help=f"comma-separated goals from {', '.join(GOALS)}")
+    ap.add_argument("--repeats", type=int, default=3)
+    args = ap.parse_args(argv)
+    chosen = [g.strip() for g in args.only.split(",") if g.strip()]
+    unknown = set(chosen) - set(GOALS)
+    if unknown:
+        ap.error(f"unknown goals: {', '.join(sorted(unknown))}")
+    import warnings
+
+    warnings.filterwarnings("ignore")
+    out = {"cpu_count": os.cpu_count(), "repeats": args.repeats,
+           "openblas_coretype": os.environ.get("OPENBLAS_CORETYPE"), "blas": _blas()}
+    try:
+        from stelltemp import kernels
+
+        out["kernels"] = kernels.BACKEND
+    except ImportError:
+        out["kernels"] = "numpy"
+    for g in chosen:
+        out[g] = scaling() if g == "scaling" else globals()[f"goal_{g}"](args.repeats)
+        print(json.dumps({g: out[g]}), file=sys.stderr)  # progress while the rest runs
+    print(json.dumps(out, indent=1))
+
+
+if __name__ == "__main__":
+    main()

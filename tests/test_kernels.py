@@ -1,0 +1,128 @@
+"""The compiled kernels against their numpy twins: identical results, bit for bit.
+
+Calls below `kernels.MIN_ROWS` stars run numpy and larger ones the compiled
+code, so a star's result must not depend on the size of its call (a
+catalogue chunk or a Dask partition); these tests lower the threshold to
+run both on the same small arrays.
+"""
+
+import numpy as np
+import pytest
+
+from stelltemp import bandgrid as bg
+from stelltemp import kernels
+from stelltemp.engine import colour as col
+from stelltemp.engine import flags as fl
+
+numba = pytest.importorskip("numba")
+
+
+@pytest.fixture
+def both(monkeypatch):
+    """Run f(...) compiled (threshold 0) and in numpy (STELLTEMP_JIT=0)."""
+    def run(f, *args, **kwargs):
+        monkeypatch.setattr(kernels, "MIN_ROWS", 0)
+        monkeypatch.delenv("STELLTEMP_JIT", raising=False)
+        assert kernels.jit_for(1) is not None
+        fast = f(*args, **kwargs)
+        monkeypatch.setenv("STELLTEMP_JIT", "0")
+        assert kernels.jit_for(10**9) is None
+        slow = f(*args, **kwargs)
+        return fast, slow
+    return run
+
+
+def _same(a, b):
+    assert a.dtype == b.dtype and a.shape == b.shape
+    assert np.array_equal(a, b, equal_nan=True)
+
+
+def test_evaluate_identical_including_off_grid_and_nan(both):
+    rng = np.random.default_rng(3)
+    lnt = rng.uniform(np.log(500.0), np.log(2e5), 5000)
+    e = rng.uniform(-1.0, 7.0, 5000)
+    lnt[::97] = np.nan
+    e[::89] = np.inf
+    table = bg.band_table("V_JC")
+    # NaN and infinite inputs give NaN out (numpy warns, as callers expect)
+    with np.errstate(invalid="ignore"):
+        fast, slow = both(table.evaluate, lnt, e)
+    for a, b in zip(fast, slow):
+        _same(a, b)
+    with np.errstate(invalid="ignore"):
+        fast, slow = both(table.evaluate, lnt, e, want_de=False)
+    _same(fast[0], slow[0])
+    assert fast[2] is None and slow[2] is None
+
+
+def test_inversion_identical_on_every_branch(both):
+    rng = np.random.default_rng(4)
+    t = np.exp(rng.uniform(np.log(700.0), np.log(2e5), 6000))
+    e = rng.uniform(-0.6, 6.2, 6000)
+    c = bg.colour_table("B_JC", "V_JC").evaluate(np.log(t), np.clip(e, bg.E_MIN, bg.E_MAX), want_de=False)[0]
+    c[::50] = -2.0  # bluer than any blackbody
+    c[1::50] = np.nan
+    c[2::50] = -0.33  # between the hot edge and the Rayleigh–Jeans colour, for small E
+    fast, slow = both(col.invert_colour, c, "B_JC", "V_JC", e)
+    for a, b in zip(fast, slow):
+        _same(a, b)
+    flags = fast[2]
+    # every outcome is exercised: solved, bad input, no solution, grid edge
+    assert (flags == 0).any() and (flags == fl.BAD_INPUT).any()
+    assert (flags == fl.NO_SOLUTION).any() and (flags == fl.AT_GRID_EDGE).any()
+
+
+def test_inversion_round_trip_compiled(monkeypatch):
+    monkeypatch.setattr(kernels, "MIN_ROWS", 0)
+    rng = np.random.default_rng(5)
+    t = np.exp(rng.uniform(np.log(1100.0), np.log(90000.0), 3000))
+    e = rng.uniform(0.0, 3.0, 3000)
+    c = bg.colour_table("B_JC", "V_JC").evaluate(np.log(t), e, want_de=False)[0]
+    back, slope, flags = col.invert_colour(c, "B_JC", "V_JC", e)
+    assert np.all(flags == 0)
+    assert np.max(np.abs(back / t - 1)) < 1e-10
+    assert np.all(slope < 0)
+
+
+def test_short_calls_never_load_the_compiler(monkeypatch):
+    monkeypatch.setattr(kernels, "_state", {"jit": None})
+    assert kernels.jit_for(kernels.MIN_ROWS - 1) is None
+    assert kernels._state["jit"] is None  # numba not even imported for a short call
+
+
+def test_flag_names_dictionary_encoded():
+    masks = np.array([0, 3, 3, 256, 0, 1 | 256, 3])
+    codes, names = fl.encode(masks)
+    assert list(names[codes]) == [fl.describe(m) for m in masks]
+    assert len(names) == 4 and codes.dtype == np.int32
+    big = np.array([1 << 20, 0, 1 << 20])  # masks past the lookup range take the sorting path
+    codes, names = fl.encode(big)
+    assert list(names[codes]) == [fl.describe(m) for m in big]
+    assert list(fl.describe_all(np.array([], np.int64))) == []
+
+
+@pytest.mark.parametrize("fit", [False, True])
+def test_estimate_in_blocks_equals_one_call(monkeypatch, fit):
+    """`estimate` splits long inputs into blocks: same table as one block, row for row."""
+    import stelltemp.engine as engine
+
+    rng = np.random.default_rng(6)
+    n = 2500
+    t = np.exp(rng.uniform(np.log(3000.0), np.log(30000.0), n))
+    e = rng.uniform(0.0, 1.0, n)
+    keys = ["B_JC", "V_JC", "Ks_2MASS"] if fit else ["B_JC", "V_JC"]
+    mags = {k: bg.band_table(k).evaluate(np.log(t), e, want_de=False)[0] + 8.0 for k in keys}
+    mags["B_JC"][::37] = np.nan
+    kwargs = dict(ebv=e, ebv_err=0.02, parallax=np.full(n, 4.0), parallax_err=0.2, feh=0.0, fit_ebv=fit)
+    whole = engine.estimate(mags, **kwargs)
+    monkeypatch.setattr(engine, "BLOCK_ROWS", 1000)  # three blocks, the last one short
+    blocked = engine.estimate(mags, **kwargs)
+    assert blocked.colnames == whole.colnames and blocked.meta == whole.meta
+    for name in whole.colnames:
+        a, b = whole[name], blocked[name]
+        assert getattr(a, "unit", None) == getattr(b, "unit", None)
+        a, b = np.asarray(getattr(a, "value", a)), np.asarray(getattr(b, "value", b))
+        if a.dtype.kind == "f":
+            assert np.array_equal(a, b, equal_nan=True), name
+        else:
+            assert list(a) == list(b), name
