@@ -357,9 +357,17 @@ def get_passband(key_or_path, **file_options):
         return _USER_BANDS[text]
     if is_builtin_name(text):
         return _builtin(resolve_key(text))
-    if Path(text).suffix.lower() in (".ecsv", ".csv", ".txt", ".dat") or Path(text).exists():
+    if Path(text).suffix.lower() in (".ecsv", ".csv", ".txt", ".dat") or _exists(text):
         return load_passband_file(text, **file_options)
     return _builtin(resolve_key(text))  # raises with a helpful message
+
+
+def _exists(text):
+    """True when `text` names an existing file (False for names no file system takes)."""
+    try:
+        return Path(text).exists()
+    except (OSError, ValueError):  # too long, NUL byte ...
+        return False
 
 
 _UNIT_ALIASES = {"a": "Angstrom", "aa": "Angstrom", "angstrom": "Angstrom", "angstroms": "Angstrom",

@@ -89,7 +89,8 @@ def test_bad_rows_are_flagged_and_the_run_goes_on(tmp_path):
     assert flags["e"] == F.ABSURD_VALUE and notes["e"] == "V_JC_err: outside [0, 5]"
     assert np.isfinite(back["t_bb"][4])  # default error used instead
     assert flags["f"] & F.BAD_INPUT and notes["f"] == "no usable magnitude"
-    assert flags["g"] & F.BAD_INPUT and notes["g"] == "ebv: missing"
+    assert flags["g"] & F.BAD_INPUT and notes["g"] == "ebv: missing, no result without E(B-V)"
+    assert np.isnan(back["t_bb"][6])  # never the E(B-V) = 0 result
     assert list(back["flag_names"])[1] == "bad_input"
     assert summary.rows == 8 and summary.clean_rows == 2
     # row d: its B is set aside, so the engine has no colour either
@@ -147,7 +148,7 @@ def test_refuses_existing_output_and_bad_arguments(tmp_path):
         run_catalogue(inp, other, engine=fake_estimate, rv=-1, quiet=True)
     with pytest.raises(StelltempError, match="column 'EBV_map'"):
         run_catalogue(inp, other, engine=fake_estimate, ebv="EBV_map", quiet=True)
-    with pytest.raises(StelltempError, match="ebv = 50 is outside"):
+    with pytest.raises(StelltempError, match=r"ebv \(E\(B-V\)\) must be a finite number in \[-0.5, 6\] mag, got 50"):
         run_catalogue(inp, other, engine=fake_estimate, ebv=50, quiet=True)
     assert not other.exists()
 

@@ -50,7 +50,8 @@ def test_prepare_inputs_negative_error_missing_ebv_and_empty_rows():
     clean_in = prepare_inputs(lambda n: chunk[n], cmap, 3)
     assert clean_in.flags.tolist() == [0, F.BAD_INPUT, F.ABSURD_VALUE | F.BAD_INPUT]
     assert clean_in.notes[1] == "no usable magnitude"
-    assert clean_in.notes[2] == "eV: outside [0, 5]; E: missing"
+    assert clean_in.notes[2] == "E: missing, no result without E(B-V); eV: outside [0, 5]"
+    assert np.isnan(clean_in.mags["B_JC"][2])  # no reddening: no result, never that of E(B-V) = 0
     assert np.isnan(clean_in.errs["V_JC"][2])
     # fitting E(B-V): an empty reddening cell is not a problem
     fitted = prepare_inputs(lambda n: chunk[n], cmap, 3, fit_ebv=True)

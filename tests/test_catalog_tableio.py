@@ -80,10 +80,18 @@ def test_csv_duplicate_names_comments_and_bad_lines(tmp_path):
     path.write_text("# invented survey\nid,V_JC,V_JC,x\n1,10,11,a\n2,12\n3,13,14,c,extra\n4,15,16,d\n")
     reader = ChunkReader(path)
     assert reader.colnames == ["id", "V_JC", "V_JC.dup2", "x"]
-    rows = pa.concat_tables(list(reader))
-    assert rows["id"].to_pylist() == ["1", "4"]
+    chunks, notes = [], []
+    for chunk in reader:
+        chunks.append(chunk)
+        notes += reader.row_notes
+    rows = pa.concat_tables(chunks)
+    # rows in = rows out: the two malformed lines stay, in place, flagged as unusable
+    assert rows["id"].to_pylist() == ["1", "2", "3", "4"]
+    assert rows["V_JC"].to_pylist() == ["10", "12", "13", "15"] and rows["x"].to_pylist() == ["a", "", "c", "d"]
+    assert notes == [(1, "line 4: 2 field(s) for 4 columns, values not used", True),
+                     (2, "line 5: 5 field(s) for 4 columns, values not used", True)]
     assert any("renamed 'V_JC.dup2'" in n for n in reader.notes)
-    assert any("2 malformed CSV line(s) skipped" in n for n in reader.notes)
+    assert any("2 CSV line(s) with a wrong number of fields kept as flagged rows" in n for n in reader.notes)
 
 
 def test_csv_streams_in_bounded_chunks(tmp_path):

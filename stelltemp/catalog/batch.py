@@ -20,10 +20,11 @@ from datetime import datetime, timezone
 import numpy as np
 
 from stelltemp.catalog import tableio
-from stelltemp.catalog.hygiene import LIMITS, prepare_inputs
+from stelltemp.catalog.hygiene import prepare_inputs
 from stelltemp.catalog.mapping import ColumnMap, default_mapping, load_mapping, mapping_from_dict
 from stelltemp.engine import flags as F
 from stelltemp.errors import StelltempError
+from stelltemp.validation import check_number
 
 #: suffix given to a result column whose name is already an input column
 RESULT_SUFFIX = "_result"
@@ -181,7 +182,7 @@ def run_record(cmap, opts):
     }
 
 
-def resolve_mapping(colnames, mapping=None, ebv=None, ebv_err=None):
+def resolve_mapping(colnames, mapping=None, ebv=None, ebv_err=None, vector_columns=()):
     """The column map of a run, checked against the table's columns.
 
     Parameters
@@ -191,6 +192,8 @@ def resolve_mapping(colnames, mapping=None, ebv=None, ebv_err=None):
         None uses the default naming (see :mod:`stelltemp.catalog.mapping`).
     ebv, ebv_err : float, str or None
         A number for every row or a column name; overrides the map.
+    vector_columns : iterable of str
+        Columns holding several values per row; none may be mapped.
     """
     if mapping is None:
         cmap = default_mapping(colnames)
@@ -202,10 +205,14 @@ def resolve_mapping(colnames, mapping=None, ebv=None, ebv_err=None):
         cmap = load_mapping(mapping)
     cmap = cmap.with_ebv(ebv, ebv_err)
     for name, val in cmap.values.items():
-        lo, hi = LIMITS[name]
-        if not (np.isfinite(val) and lo <= val <= hi):
-            raise StelltempError(f"{name} = {val:g} is outside [{lo:g}, {hi:g}]")
+        check_number(name, val)
     cmap.check(colnames)
+    vectors = [c for c in cmap.required_columns() if c in set(vector_columns)]
+    if vectors:
+        raise StelltempError(
+            f"column '{vectors[0]}' holds several values per row (a vector column): map a column "
+            "with one value per row"
+        )
     return cmap
 
 
@@ -213,7 +220,7 @@ def _getter(chunk):
     return lambda name: chunk[name]
 
 
-def compute_chunk(chunk, cmap, opts, engine):
+def compute_chunk(chunk, cmap, opts, engine, row_notes=()):
     """Clean one chunk's inputs, run the engine, merge the pre-engine flags.
 
     Parameters
@@ -225,6 +232,8 @@ def compute_chunk(chunk, cmap, opts, engine):
     opts : RunOptions
     engine : callable
         Follows the contract of `stelltemp.engine.estimate`.
+    row_notes : iterable of (int, str, bool)
+        Rows the table reader changed (`tableio.ChunkReader.row_notes`).
 
     Returns
     -------
@@ -235,7 +244,7 @@ def compute_chunk(chunk, cmap, opts, engine):
     n = len(chunk)
     if n == 0:
         return _empty_results(cmap, opts, engine)
-    clean = prepare_inputs(_getter(chunk), cmap, n, fit_ebv=opts.fit_ebv)
+    clean = prepare_inputs(_getter(chunk), cmap, n, fit_ebv=opts.fit_ebv, row_notes=row_notes)
     res = _call_engine(engine, clean, opts)
     if len(res) != n:
         raise StelltempError(f"the engine returned {len(res)} rows for {n}")
@@ -394,27 +403,32 @@ def run_catalogue(
     opts.check()
     tableio.check_output(output_path, overwrite, input_path)
     reader = tableio.ChunkReader(input_path, chunk_rows)
-    cmap = resolve_mapping(reader.colnames, mapping, ebv, ebv_err)
+    cmap = resolve_mapping(reader.colnames, mapping, ebv, ebv_err, reader.vector_columns())
     engine = engine or default_engine()
     out_fmt = tableio.table_format(output_path)
-    types = None
+    types, conversions = None, []
     if reader.fmt == "csv" and out_fmt != "csv":  # give typed columns to typed formats
-        types = tableio.narrowest_types(iter(reader), reader.colnames)
+        types = tableio.narrowest_types(iter(reader), reader.colnames, conversions)
+    record = run_record(cmap, opts)
+    if conversions:
+        record["conversions"] = "; ".join(conversions)
 
     summary = RunSummary(input=str(input_path), output=str(output_path))
     names = None
-    with tableio.open_sink(output_path, run_record(cmap, opts), overwrite) as sink, progress_bar(
+    with tableio.open_sink(output_path, record, overwrite) as sink, progress_bar(
         reader.num_rows, quiet
     ) as bar:
         merge = merge_arrow if sink.kind == "arrow" else merge_astropy
         for chunk in _nonempty_or_one_empty(reader):
-            res = compute_chunk(chunk, cmap, opts, engine)
+            res = compute_chunk(chunk, cmap, opts, engine, reader.row_notes if len(chunk) else ())
             if names is None:
                 names = result_names(reader.colnames, res.colnames)
             summary.add(res)
             sink.write(merge(chunk, res, names, types))
             bar.update(len(chunk))
     summary.notes.extend(reader.notes)
+    summary.notes.extend(cmap.notes)
+    summary.notes.extend(conversions + list(getattr(sink, "notes", [])))
     summary.wall_time_s = time.perf_counter() - t0
     return summary
 
@@ -442,7 +456,8 @@ def estimate_table(table, mapping=None, *, ebv=None, ebv_err=None, rv=3.1, law="
     """
     opts = RunOptions(rv=float(rv), law=law, method=method, fit_ebv=bool(fit_ebv))
     opts.check()
-    cmap = resolve_mapping(list(table.colnames), mapping, ebv, ebv_err)
+    cmap = resolve_mapping(list(table.colnames), mapping, ebv, ebv_err,
+                           [n for n in table.colnames if getattr(table[n], "ndim", 1) > 1])
     res = compute_chunk(table, cmap, opts, engine or default_engine())
     return merge_astropy(table, res, result_names(table.colnames, res.colnames))
 

@@ -11,8 +11,14 @@ text that is no number    ``BAD_INPUT``    ``<column>: not a number``
 +inf or -inf              ``BAD_INPUT``    ``<column>: infinite``
 outside `LIMITS`          ``ABSURD_VALUE`` ``<column>: outside [lo, hi]``
 no usable magnitude left  ``BAD_INPUT``    ``no usable magnitude``
-E(B−V) column empty       ``BAD_INPUT``    ``<column>: missing``
+E(B−V) column empty       ``BAD_INPUT``    ``<column>: missing, no …``
+E(B−V) error empty        (none)           ``<column>: missing, taken as 0``
+reader changed the row    ``BAD_INPUT``    the reader's note (line, bytes)
 ========================  ===============  ============================
+
+A row whose E(B−V) or E(B−V) error is missing (unless E(B−V) is fitted),
+not a number, infinite or outside its range gets no result at all: its
+temperatures are NaN, never those of E(B−V) = 0.
 
 Empty cells and the usual missing-value words (``NA``, ``null``, ``--``…)
 are missing values (NaN), not errors: a missing magnitude simply means the
@@ -27,32 +33,18 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
-from stelltemp.engine import ABSURD_MAG, MAX_MAG_ERR
 from stelltemp.engine import flags as F
+from stelltemp.errors import StelltempError
+from stelltemp.validation import RANGES
 
-#: plausible range of each kind of input; anything outside is ABSURD_VALUE.
-#: Deliberately generous: they catch sentinels (99.99, -999) and unit mix-ups,
-#: not unusual stars.
-LIMITS = {
-    # |mag| <= 40 : common practice (the brightest and faintest catalogued
-    # objects lie well within it)
-    "mag": (-ABSURD_MAG, ABSURD_MAG),
-    # a 1-sigma error is non-negative; above 5 mag it carries no information
-    # (the engine's own limit): common practice
-    "err": (0.0, MAX_MAG_ERR),
-    # E(B-V): slightly negative values occur in noisy reddening maps; the most
-    # reddened sight lines stay far below 30 mag (from memory)
-    "ebv": (-1.0, 30.0),
-    "ebv_err": (0.0, 30.0),
-    # parallax (mas): negative values are legitimate noise; no star has a
-    # parallax above ~770 mas (Proxima Cen, from memory)
-    "parallax": (-1000.0, 1000.0),
-    "parallax_err": (0.0, 1000.0),
-    # [Fe/H] (dex): known stars lie within about -7 .. +1 (from memory)
-    "feh": (-10.0, 2.0),
-    # log g (cgs dex): supergiants near 0, white dwarfs near 8-9 (from memory)
-    "logg": (-2.0, 10.0),
-}
+#: kind of input -> its documented range (:data:`stelltemp.validation.RANGES`);
+#: anything outside is ABSURD_VALUE.  They catch sentinels (99.99, -999) and
+#: unit mix-ups, not unusual stars.  E(B-V) is bounded by the kernel's grid.
+LIMIT_RANGES = {kind: RANGES[name] for kind, name in (
+    ("mag", "mag"), ("err", "mag_err"), ("ebv", "ebv"), ("ebv_err", "ebv_err"), ("parallax", "parallax"),
+    ("parallax_err", "parallax_err"), ("feh", "feh"), ("logg", "logg"))}
+#: the same as (lo, hi) pairs
+LIMITS = {kind: (r.lo, r.hi) for kind, r in LIMIT_RANGES.items()}
 
 #: words (lower case, stripped) read as a missing value rather than as text
 MISSING_WORDS = ("", "nan", "-nan", "+nan", "na", "n/a", "null", "none", "--", "-", "?", "masked")
@@ -82,7 +74,7 @@ def column_to_float(col):
     mask = np.ma.getmaskarray(col) if np.ma.isMaskedArray(col) or hasattr(col, "mask") else None
     data = np.asarray(col.data if hasattr(col, "mask") and hasattr(col, "data") else col)
     if data.ndim != 1:
-        raise TypeError("a mapped column must be one-dimensional")
+        raise StelltempError("a mapped column must hold one value per row (this one is a vector column)")
     kind = data.dtype.kind
     if kind in "fiu":
         values = data.astype(np.float64, copy=True)
@@ -214,7 +206,7 @@ class CleanInputs:
     notes: np.ndarray  # str
 
 
-def prepare_inputs(get, cmap, n, fit_ebv=False):
+def prepare_inputs(get, cmap, n, fit_ebv=False, row_notes=()):
     """Collect and clean every mapped input of one chunk.
 
     Parameters
@@ -227,23 +219,21 @@ def prepare_inputs(get, cmap, n, fit_ebv=False):
         Number of rows in the chunk.
     fit_ebv : bool
         When E(B−V) is fitted an empty E(B−V) cell is not a problem.
+    row_notes : iterable of (int, str, bool)
+        What the table reader changed in a row: (row, note, values_unusable),
+        e.g. a CSV line with a wrong number of fields (unusable) or bytes that
+        were not UTF-8 text.  Each such row gets ``BAD_INPUT`` and the note;
+        an unusable row gets no magnitude, hence no result.
 
     Returns
     -------
     CleanInputs
     """
     notes = RowNotes(n)
-    mags, errs = {}, {}
-    for key, spec in cmap.bands.items():
-        vals, text = column_to_float(get(spec.mag))
-        mags[key] = clean(vals, text, "mag", spec.mag, notes)
-        if spec.err:
-            vals, text = column_to_float(get(spec.err))
-            errs[key] = clean(vals, text, "err", spec.err, notes)
-    usable = np.zeros(n, bool)
-    for vals in mags.values():
-        usable |= np.isfinite(vals)
-    notes.add(~usable, F.BAD_INPUT, "no usable magnitude")
+    unusable = np.zeros(n, bool)
+    for row, text, drop in row_notes:
+        notes.add(np.arange(n) == row, F.BAD_INPUT, text)
+        unusable[row] |= bool(drop)
 
     scalars = {}
     for name in ("ebv", "ebv_err", "parallax", "parallax_err", "feh", "logg"):
@@ -251,10 +241,32 @@ def prepare_inputs(get, cmap, n, fit_ebv=False):
             col = cmap.columns[name]
             vals, text = column_to_float(get(col))
             missing = np.isnan(vals) & ~text
+            bad = ~missing & ~LIMIT_RANGES[name].holds(vals)  # text, infinite or outside
             vals = clean(vals, text, name, col, notes)
-            if name == "ebv" and not fit_ebv:
-                notes.add(missing, F.BAD_INPUT, f"{col}: missing")
+            if name == "ebv":
+                # no reddening known: no result (never silently E(B-V) = 0)
+                if not fit_ebv:
+                    notes.add(missing & ~unusable, F.BAD_INPUT, f"{col}: missing, no result without E(B-V)")
+                    bad |= missing
+                unusable |= bad
+            elif name == "ebv_err":
+                unusable |= bad
+                notes.add(missing, 0, f"{col}: missing, taken as 0")
+                vals = np.where(missing, 0.0, vals)
             scalars[name] = vals
         elif name in cmap.values:
             scalars[name] = float(cmap.values[name])
+
+    mags, errs = {}, {}
+    for key, spec in cmap.bands.items():
+        vals, text = column_to_float(get(spec.mag))
+        mags[key] = clean(vals, text, "mag", spec.mag, notes)
+        mags[key][unusable] = np.nan
+        if spec.err:
+            vals, text = column_to_float(get(spec.err))
+            errs[key] = clean(vals, text, "err", spec.err, notes)
+    usable = np.zeros(n, bool)
+    for vals in mags.values():
+        usable |= np.isfinite(vals)
+    notes.add(~usable & ~unusable, F.BAD_INPUT, "no usable magnitude")
     return CleanInputs(mags=mags, errs=errs, scalars=scalars, flags=notes.flags, notes=notes.text())

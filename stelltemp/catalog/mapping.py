@@ -81,6 +81,8 @@ class ColumnMap:
     bands: dict = field(default_factory=dict)
     columns: dict = field(default_factory=dict)
     values: dict = field(default_factory=dict)
+    #: what the default naming matched loosely or left out (for the run's notes)
+    notes: tuple = ()
 
     def required_columns(self):
         """Every catalogue column this map reads, in a stable order."""
@@ -150,6 +152,13 @@ def band_key_pattern(systems=KNOWN_SYSTEMS):
 def default_mapping(colnames, systems=KNOWN_SYSTEMS):
     """Column map from the default naming (see module docstring).
 
+    A column name that a format's reader mangled still matches its passband:
+    VOTable readers prefix names that start with a digit with ``_``
+    (``_2mass.Ks``) and some FITS writers upper-case them (``2MASS.KS``); such
+    a name is matched when exactly one passband key fits, and noted.  A
+    column that looks like a passband key (``<system>.<band>`` of a known
+    system) but matches none is noted as not used, never silently ignored.
+
     Parameters
     ----------
     colnames : iterable of str
@@ -165,18 +174,62 @@ def default_mapping(colnames, systems=KNOWN_SYSTEMS):
     present = set(names)
     pattern = band_key_pattern(systems)
     registered = _registered_keys()
-    bands = {}
+    folded = {}
+    for key in registered:
+        folded.setdefault(key.lower(), []).append(key)
+    bands, notes, used = {}, [], set()
     for name in names:
-        is_band = name in registered if registered else bool(pattern.match(name))
-        if name.endswith(ERR_SUFFIX) or not is_band:
+        if name.endswith(ERR_SUFFIX):
             continue
-        err = name + ERR_SUFFIX
-        key = _canonical(name) if registered else name
+        key = name if (name in registered if registered else bool(pattern.match(name))) else None
+        if key is None and registered:
+            key = _loose_key(name, registered, folded, present)
+            if key is not None:
+                key = _canonical(key)
+                notes.append(f"column '{name}' read as passband {key}")
+        elif key is not None and registered:
+            key = _canonical(key)  # an old key (jc.V) warns and becomes V_JC
+        if key is None:
+            if _looks_like_band(name, systems):
+                notes.append(f"column '{name}' looks like a passband key but matches no passband: not used")
+            continue
         if key in bands:
-            raise StelltempError(f"columns '{bands[key].mag}' and '{name}' both hold passband {key}")
-        bands[key] = BandColumns(mag=name, err=err if err in present else None)
+            notes.append(f"column '{name}' is a second column for passband {key}: not used")
+            continue
+        err = next((c for c in (name + ERR_SUFFIX, key + ERR_SUFFIX) if c in present), None)
+        bands[key] = BandColumns(mag=name, err=err)
+        used.update([name, err])
+    for name in names:
+        if name.endswith(ERR_SUFFIX) and name not in used and _looks_like_band(name[: -len(ERR_SUFFIX)], systems):
+            notes.append(f"column '{name}' looks like an error column but its magnitude is not used: not used")
     columns = {k: k for k in SCALAR_INPUTS if k in present}
-    return ColumnMap(bands=bands, columns=columns)
+    return ColumnMap(bands=bands, columns=columns, notes=tuple(notes))
+
+
+def _loose_key(name, registered, folded, present):
+    """The one passband key a mangled column name stands for, or None."""
+    for candidate in (name, name.lstrip("_")):
+        if candidate != name and candidate in registered and candidate not in present:
+            return candidate
+        keys = folded.get(candidate.lower(), [])
+        if len(keys) == 1 and keys[0] not in present:
+            return keys[0]
+    return None
+
+
+def _looks_like_band(name, systems):
+    """True for names shaped like a passband key of a known system (any case, leading '_')."""
+    text = name.lstrip("_").lower()
+    lowered = tuple(s.lower() for s in systems) + _OLD_SYSTEMS
+    if "." in text and text.split(".", 1)[0] in lowered:
+        return True
+    return "_" in text and text.rsplit("_", 1)[1] in _SYSTEM_SUFFIXES
+
+
+#: system prefixes of the keys of earlier releases (``jc.V``, ``gaia3.BP``)
+_OLD_SYSTEMS = ("jc", "sdss", "ps1", "2mass", "gaia3")
+#: lower-case system suffixes of the ``<band>_<SYSTEM>`` keys
+_SYSTEM_SUFFIXES = ("jc", "sdss", "ps1", "2mass", "gdr3")
 
 
 def _registered_keys():
@@ -205,11 +258,10 @@ def load_mapping(path):
     StelltempError
         Unreadable file, TOML syntax error, unknown table or key, wrong type.
     """
+    from stelltemp.safeio import read_text_file
+
     path = Path(path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except OSError as exc:
-        raise StelltempError(f"cannot read column map {path}: {exc.strerror or exc}") from None
+    text = read_text_file(path, "column map")
     try:
         doc = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:

@@ -39,6 +39,7 @@ from __future__ import annotations
 import contextlib
 import csv
 import json
+import re
 from pathlib import Path
 
 import numpy as np
@@ -46,7 +47,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from stelltemp.errors import StelltempError
-from stelltemp.safeio import atomic_path
+from stelltemp.safeio import atomic_path, check_output_path
 
 #: extension (lower case) -> format name
 EXTENSIONS = {
@@ -199,7 +200,8 @@ class ChunkReader:
         self.chunk_rows = max(1, int(chunk_rows))
         self.notes = []
         self.num_rows = None
-        self.skipped_lines = 0
+        #: per chunk, after it is yielded: (row, note, values_unusable) of rows the reader changed
+        self.row_notes = []
         if not self.path.is_file():
             raise StelltempError(f"{self.path}: no such file")
         if self.fmt == "parquet":
@@ -230,55 +232,129 @@ class ChunkReader:
     # -- csv
     def _open_csv(self):
         try:
-            with open(self.path, "rb") as fh:
-                skip = 0
-                head = b""
-                while True:
-                    line = fh.readline()
-                    if not line:
-                        break
-                    if line.lstrip().startswith(b"#") or not line.strip():
-                        skip += 1
-                        continue
-                    head = line
-                    break
-                sample = fh.read(1 << 16)
+            head_line, self._csv_offset, self._header_line = _csv_header(self.path)
         except OSError as exc:
-            raise StelltempError(f"{self.path}: cannot read ({exc.strerror or exc})") from None
+            raise StelltempError(f"{self.path}: cannot read ({exc.strerror or 'read error'})") from None
         try:
-            header = next(csv.reader([head.decode("utf-8-sig")]), [])
-        except UnicodeDecodeError:
-            raise StelltempError(f"{self.path}: the header is not UTF-8 text") from None
+            text = head_line.decode("utf-8-sig")
+        except UnicodeDecodeError as exc:
+            raise StelltempError(
+                f"{self.path}: line {self._header_line}: the header is not UTF-8 text "
+                f"(byte 0x{head_line[exc.start]:02x} at column {exc.start + 1})"
+            ) from None
+        try:
+            header = next(csv.reader([text]), [])
+        except csv.Error:
+            raise StelltempError(f"{self.path}: line {self._header_line}: the header line is not valid CSV") from None
         header = [h.strip() for h in header]
         if not any(header):
             raise StelltempError(f"{self.path}: no header line with column names")
         header = [h if h else f"col{i + 1}" for i, h in enumerate(header)]
         self.colnames = _dedupe(header, self.notes)
-        lines = max(1, sample.count(b"\n"))
+        try:
+            with open(self.path, "rb") as fh:
+                fh.seek(self._csv_offset)
+                sample = fh.read(1 << 16)
+        except OSError as exc:
+            raise StelltempError(f"{self.path}: cannot read ({exc.strerror or 'read error'})") from None
+        lines = max(1, len(_LINE_BREAK.findall(sample)))
         row_bytes = max(16, len(sample) // lines) if sample else 64
-        self._csv_skip = skip + 1
         self._block = int(min(256 << 20, max(1 << 20, row_bytes * self.chunk_rows)))
         self.schema = pa.schema([pa.field(n, pa.string()) for n in self.colnames])
 
-    def _csv_stream(self):
+    def _csv_stream(self, fh, bad):
         import pyarrow.csv as pcsv
 
         def on_bad_row(row):
-            self.skipped_lines += 1
+            bad.append(row)
             return "skip"
 
+        fh.seek(self._csv_offset)
         return pcsv.open_csv(
-            self.path,
-            read_options=pcsv.ReadOptions(
-                skip_rows=self._csv_skip, column_names=self.colnames, block_size=self._block
-            ),
+            fh,
+            # no read-ahead thread: a failure then never leaves a parser thread behind
+            read_options=pcsv.ReadOptions(column_names=self.colnames, block_size=self._block, use_threads=False),
             parse_options=pcsv.ParseOptions(invalid_row_handler=on_bad_row),
             convert_options=pcsv.ConvertOptions(
-                column_types={n: pa.string() for n in self.colnames},
+                column_types={n: pa.binary() for n in self.colnames},  # bytes: decoded per cell below
                 strings_can_be_null=False,
                 quoted_strings_can_be_null=False,
             ),
         )
+
+    def _csv_chunks(self):
+        """CSV chunks as text; malformed lines kept as flagged rows (see `row_notes`)."""
+        bad, done = [], 0
+        lines = _PhysicalLines(self.path, self._csv_offset, self._header_line)
+        self.malformed_lines = 0
+        with open(self.path, "rb") as fh:
+            try:
+                stream = self._csv_stream(fh, bad)
+                for batch in stream:
+                    table, notes = _decode_text(pa.Table.from_batches([batch]), self.colnames)
+                    if bad:
+                        table, notes = self._insert_malformed(table, notes, bad, done, lines)
+                        bad.clear()
+                    self._refuse_swallowed_lines(table, done, lines)
+                    done += table.num_rows
+                    self.row_notes = notes
+                    yield table
+            except pa.ArrowInvalid as exc:
+                if not str(exc).startswith("Empty CSV file"):  # a header and no data: no rows
+                    raise StelltempError(f"{self.path}: unreadable CSV ({_first_line(exc)})") from None
+        if bad:  # rows reported after the last block (never seen, kept for safety)
+            table, notes = self._insert_malformed(self.schema.empty_table(), [], bad, done, lines)
+            self.row_notes = notes
+            yield table
+        note = (f"{self.malformed_lines} CSV line(s) with a wrong number of fields kept as flagged rows "
+                "(their values are not used; see input_notes)")
+        if self.malformed_lines and note not in self.notes:  # the reader may be iterated twice
+            self.notes.append(note)
+
+    def _insert_malformed(self, table, notes, bad, done, lines):
+        """Put each malformed line back at its place as a row of text cells, flagged.
+
+        pyarrow numbers rows from 1 over the data (blank lines not counted),
+        good and malformed alike, so ``row.number - 1`` is the row's place.
+        """
+        import bisect
+
+        pieces, out_notes, at, placed = [], [], 0, []
+        for row in sorted(bad, key=lambda r: r.number):
+            line = lines.line_of(row.number)
+            if "\n" in row.text or "\r" in row.text:
+                raise StelltempError(
+                    f"{self.path}: line {line}: a quoted field opened here runs over "
+                    f"{row.text.count(chr(10)) + 1} lines (an unclosed quote?); the file's structure "
+                    "cannot be trusted, so nothing was computed"
+                )
+            orig = min(max(row.number - 1 - done - len(placed), at), table.num_rows)
+            if orig > at:
+                pieces.append(table.slice(at, orig - at))
+            pieces.append(_text_row(row.text, self.colnames))
+            out_notes.append((orig + len(placed), f"line {line}: {row.actual_columns} field(s) for "
+                              f"{row.expected_columns} columns, values not used", True))
+            placed.append(orig)
+            at = orig
+            self.malformed_lines += 1
+        if at < table.num_rows:
+            pieces.append(table.slice(at))
+        for i, text, drop in notes:
+            out_notes.append((i + bisect.bisect_right(placed, i), text, drop))
+        merged = pa.concat_tables([p.cast(self.schema) for p in pieces]) if pieces else self.schema.empty_table()
+        return merged, sorted(out_notes)
+
+    def _refuse_swallowed_lines(self, table, done, lines):
+        """A cell holding a line break and a comma is an unclosed quote that swallowed lines."""
+        for name in table.column_names:
+            hit = pc.and_(pc.match_substring_regex(table[name], "[\r\n]"), pc.match_substring(table[name], ","))
+            if pc.any(hit).as_py():
+                row = int(np.flatnonzero(np.asarray(pc.fill_null(hit, False)))[0])
+                raise StelltempError(
+                    f"{self.path}: line {lines.line_of(done + row + 1)}, column '{name}': a quoted cell runs "
+                    "over several lines and holds commas (an unclosed quote?); the file's structure cannot "
+                    "be trusted, so nothing was computed"
+                )
 
     # -- astropy formats
     def _open_astropy(self):
@@ -303,21 +379,24 @@ class ChunkReader:
         if self.fmt == "parquet":
             try:
                 for batch in self._pq.iter_batches(batch_size=self.chunk_rows):
+                    self.row_notes = []
                     yield pa.Table.from_batches([batch]).rename_columns(self.colnames)
             except (pa.ArrowInvalid, OSError) as exc:
                 raise StelltempError(f"{self.path}: damaged Parquet data ({_first_line(exc)})") from None
         elif self.fmt == "csv":
-            try:
-                stream = self._csv_stream()
-                for batch in stream:
-                    yield pa.Table.from_batches([batch])
-            except pa.ArrowInvalid as exc:
-                raise StelltempError(f"{self.path}: unreadable CSV ({_first_line(exc)})") from None
-            if self.skipped_lines:
-                self.notes.append(f"{self.skipped_lines} malformed CSV line(s) skipped (wrong number of fields)")
+            yield from self._csv_chunks()
         else:
             for start in range(0, len(self._table), self.chunk_rows):
+                self.row_notes = []
                 yield self._table[start : start + self.chunk_rows]
+
+    def vector_columns(self):
+        """Names of columns holding several values per row (FITS vectors, Parquet lists)."""
+        if self.fmt == "csv":
+            return []
+        if self.fmt == "parquet":
+            return [n for n, f in zip(self.colnames, self.schema) if pa.types.is_nested(f.type)]
+        return [n for n in self.colnames if getattr(self._table[n], "ndim", 1) > 1]
 
     def empty_chunk(self):
         """A zero-row chunk with the input's columns (for schemas of empty inputs)."""
@@ -365,6 +444,110 @@ def _first_line(exc):
     return text[0] if text else type(exc).__name__
 
 
+_LINE_BREAK = re.compile(rb"\r\n|\r|\n")
+
+
+def _csv_header(path, limit=16 << 20):
+    """(header bytes, byte offset of the first data line, header line number) of a CSV file.
+
+    Leading blank lines and ``#`` comment lines are skipped.  Line breaks may
+    be LF, CRLF or CR alone.
+    """
+    with open(path, "rb") as fh:
+        buf = fh.read(1 << 20)
+        pos, line_no = 0, 0
+        while True:
+            m = _LINE_BREAK.search(buf, pos)
+            while (m is None or (m.group() == b"\r" and m.end() == len(buf))) and len(buf) < limit:
+                more = fh.read(1 << 20)
+                if not more:
+                    break
+                buf += more
+                m = _LINE_BREAK.search(buf, pos)
+            end = m.start() if m else len(buf)
+            nxt = m.end() if m else len(buf)
+            line = buf[pos:end]
+            line_no += 1
+            if m is None and len(buf) >= limit:
+                raise StelltempError(f"{path}: line {line_no}: no line break in the first "
+                                     f"{limit >> 20} MiB; not a CSV table")
+            if line.strip() and not line.lstrip().startswith(b"#"):
+                return line, nxt, line_no
+            if m is None:
+                return b"", nxt, line_no
+            pos = nxt
+
+
+class _PhysicalLines:
+    """Line number in the file of a CSV data row (1-based, blank lines not counted as rows).
+
+    Only used to name lines in notes and errors; scans the file lazily, once.
+    """
+
+    def __init__(self, path, offset, header_line):
+        self.path, self.offset, self.header_line = path, offset, header_line
+        self._rows = None
+        self._seen = {}
+
+    def line_of(self, number):
+        if number in self._seen:
+            return self._seen[number]
+        if self._rows is None:
+            self._rows = self._scan()
+        for n, line in self._rows:
+            self._seen[n] = line
+            if n >= number:
+                break
+        return self._seen.get(number, f"{self.header_line}+{number}")
+
+    def _scan(self):
+        import io
+
+        with open(self.path, "rb") as fh:
+            fh.seek(self.offset)
+            text = io.TextIOWrapper(fh, encoding="utf-8", errors="replace", newline="")
+            reader = csv.reader(text)
+            n, start = 0, self.header_line + 1
+            try:
+                for fields in reader:
+                    if fields:
+                        n += 1
+                        yield n, start
+                    start = self.header_line + 1 + reader.line_num
+            except csv.Error:
+                return
+
+
+def _decode_text(table, names):
+    """Binary CSV columns as UTF-8 text; undecodable bytes become U+FFFD with a row note."""
+    cols, notes = [], []
+    for name, col in zip(names, table.columns):
+        try:
+            cols.append(col.cast(pa.string()))
+            continue
+        except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
+            pass
+        values = []
+        for i, raw in enumerate(col.to_pylist()):
+            try:
+                values.append(raw.decode("utf-8"))
+            except UnicodeDecodeError:
+                values.append(raw.decode("utf-8", errors="replace"))
+                notes.append((i, f"{name}: bytes that are not UTF-8 text replaced by U+FFFD", False))
+        cols.append(pa.array(values, pa.string()))
+    return pa.Table.from_arrays(cols, names=names), sorted(notes)
+
+
+def _text_row(text, names):
+    """One malformed CSV line as a row of text cells (missing cells empty, extra cells dropped)."""
+    try:
+        fields = next(csv.reader([text]), [])
+    except csv.Error:
+        fields = text.split(",")
+    fields = (fields + [""] * len(names))[: len(names)]
+    return pa.table({n: pa.array([f], pa.string()) for n, f in zip(names, fields)})
+
+
 def read_table(path):
     """Read a whole table file into an astropy Table (small files; see `ChunkReader`)."""
     reader = ChunkReader(path, chunk_rows=1 << 62)
@@ -395,7 +578,7 @@ _INT_RE = r"^[+-]?\d+$"
 _FLOAT_RE = r"^[+-]?(?:\d+\.?\d*|\.\d+)(?:e[+-]?\d+)?$|^[+-]?(?:inf|infinity|nan)$"
 
 
-def narrowest_types(chunks, names):
+def narrowest_types(chunks, names, notes=None):
     """Narrowest arrow type holding every value of text columns over all `chunks`.
 
     Parameters
@@ -405,11 +588,16 @@ def narrowest_types(chunks, names):
     names : list of str
         Columns to type.
 
+    notes : list, optional
+        Receives a note for each column kept as text because its integers
+        do not fit in 64 bits (Parquet, FITS and VOTable cannot hold them).
+
     Returns
     -------
     dict of str -> pyarrow.DataType
-        ``int64`` if every non-empty cell is an integer, ``float64`` if every
-        non-empty cell is a number, else ``string``.  All-empty columns stay text.
+        ``int64`` if every non-empty cell is an integer within the 64-bit
+        range, ``float64`` if every non-empty cell is a number, else
+        ``string``.  All-empty columns stay text.
     """
     state = {n: "empty" for n in names}
     order = ["empty", "int", "float", "string"]
@@ -422,6 +610,11 @@ def narrowest_types(chunks, names):
             if not pc.any(filled).as_py():
                 continue
             need = "int"
+            if state[n] in ("empty", "int") and _too_big_for_int64(low, filled):
+                state[n] = "string"
+                if notes is not None:
+                    notes.append(f"column '{n}': integers beyond the 64-bit range kept as text")
+                continue
             if not pc.all(pc.or_(pc.invert(filled), pc.match_substring_regex(low, _INT_RE))).as_py():
                 need = "float"
                 if not pc.all(pc.or_(pc.invert(filled), pc.match_substring_regex(low, _FLOAT_RE))).as_py():
@@ -430,6 +623,19 @@ def narrowest_types(chunks, names):
                 state[n] = need
     to_type = {"empty": pa.string(), "int": pa.int64(), "float": pa.float64(), "string": pa.string()}
     return {n: to_type[state[n]] for n in names}
+
+
+def _too_big_for_int64(low, filled):
+    """True when an integer cell of a text column lies outside the int64 range."""
+    ints = pc.and_(filled, pc.match_substring_regex(low, _INT_RE))
+    long_ = pc.and_(ints, pc.greater(pc.utf8_length(pc.utf8_ltrim(low, "+-0")), 18))
+    if not pc.any(long_).as_py():
+        return False
+    try:
+        pc.cast(pc.filter(low, long_), pa.int64())
+    except (pa.ArrowInvalid, OverflowError):
+        return True
+    return False
 
 
 def apply_types(chunk, types):
@@ -450,17 +656,16 @@ def apply_types(chunk, types):
 def check_output(path, overwrite=False, input_path=None):
     """Refuse to replace an existing output (or the input) before any work starts."""
     path = Path(path)
-    table_format(path)
-    if input_path is not None and Path(input_path).resolve() == path.resolve():
-        raise StelltempError(f"{path}: the output would replace the input")
-    if path.is_dir():
-        raise StelltempError(f"{path}: is a folder")
-    if not overwrite:
-        for p in (path, Path(str(path) + SIDECAR_SUFFIX)) if table_format(path) == "csv" else (path,):
-            if p.exists():
-                raise StelltempError(f"{p}: already exists (allow replacing it explicitly)")
-    if not path.parent.exists():
-        raise StelltempError(f"{path.parent}: no such folder")
+    fmt = table_format(path)
+    if input_path is not None:
+        try:
+            same = Path(input_path).resolve() == path.resolve()
+        except OSError:
+            same = False
+        if same:
+            raise StelltempError(f"{path}: the output would replace the input")
+    for p in (path, Path(str(path) + SIDECAR_SUFFIX)) if fmt == "csv" else (path,):
+        check_output_path(p, overwrite)
 
 
 # --------------------------------------------------------------------- sinks
@@ -606,13 +811,15 @@ class AstropySink(Sink):
         if not self.parts:
             raise StelltempError("nothing to write")
         table = vstack(self.parts, metadata_conflicts="silent") if len(self.parts) > 1 else self.parts[0]
-        for name in table.colnames:  # FITS and VOTable cannot hold Python objects
-            if table[name].dtype.kind == "O":
-                table[name] = table[name].astype(str)
+        self.notes = storable_columns(table, self.fmt)
+        if self.notes:
+            self.run_meta = {**self.run_meta, "conversions": "; ".join(self.notes)}
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")  # HIERARCH / unit-string chatter
             if self.fmt == "fits":
                 for key, val in self.run_meta.items():
+                    if isinstance(val, str):  # FITS header text is ASCII
+                        val = val.encode("ascii", "backslashreplace").decode("ascii")
                     table.meta[FITS_KEYS.get(key, key[:8].upper())] = val
                 table.write(self.tmp, format="fits", overwrite=True)
             elif self.fmt == "votable":
@@ -620,6 +827,70 @@ class AstropySink(Sink):
             else:
                 table.meta.update(self.run_meta)
                 table.write(self.tmp, format="ascii.ecsv", overwrite=True)
+
+
+def storable_columns(table, fmt):
+    """Convert, in place, the columns `fmt` cannot hold; return one note per converted column.
+
+    ============================  ==========================================
+    column                        written as
+    ============================  ==========================================
+    lists, Python objects         JSON text (all accumulated formats)
+    unsigned integers (VOTable)   int64, or text beyond its range
+    date/time values              ISO 8601 text (FITS, VOTable)
+    non-ASCII text (FITS only)    ASCII with backslash escapes (``\\xc9``;
+                                  FITS text is ASCII, FITS standard 4.0)
+    non-ASCII column names        the same escapes (FITS only)
+    ============================  ==========================================
+    """
+    from astropy.table import Column, MaskedColumn
+
+    notes = []
+    for name in table.colnames:
+        col = table[name]
+        kind = col.dtype.kind
+        mask = np.ma.getmaskarray(col) if hasattr(col, "mask") else None
+        if kind == "O":
+            values = [_json_cell(v) for v in col]
+            why = "lists or objects written as JSON text"
+        elif kind == "M" and fmt in ("fits", "votable"):
+            values = np.datetime_as_string(np.asarray(col), unit="auto").tolist()
+            why = "date/time values written as ISO 8601 text"
+        elif kind == "U" and fmt == "fits" and any(not str(v).isascii() for v in np.asarray(col).ravel()):
+            values = [str(v).encode("ascii", "backslashreplace").decode("ascii") for v in np.asarray(col)]
+            why = "non-ASCII text written with backslash escapes (FITS text is ASCII)"
+        elif kind == "u" and fmt == "votable":  # VOTable has no unsigned integers above 8 bits
+            data = np.asarray(col)
+            if col.dtype.itemsize == 1:
+                continue
+            if data.size and data.max() > np.iinfo(np.int64).max:
+                values, why = [str(v) for v in data], "unsigned integers beyond the 64-bit signed range written as text"
+            else:
+                values, why = data.astype(np.int64), "unsigned integers written as signed 64-bit integers"
+        else:
+            continue
+        if fmt == "fits" and kind != "u":
+            values = [v.encode("ascii", "backslashreplace").decode("ascii") for v in values]
+        new = (MaskedColumn(values, mask=mask, name=name) if mask is not None and mask.any()
+               else Column(values, name=name))
+        new.info.description = col.info.description
+        table.replace_column(name, new)
+        notes.append(f"column '{name}': {why}")
+    if fmt == "fits":
+        for name in table.colnames:
+            if not name.isascii():
+                new = name.encode("ascii", "backslashreplace").decode("ascii")
+                table.rename_column(name, new)
+                notes.append(f"column '{name}' named '{new}' (FITS column names are ASCII)")
+    return notes
+
+
+def _json_cell(value):
+    if value is None or value is np.ma.masked:
+        return ""
+    if isinstance(value, np.ndarray):
+        value = value.tolist()
+    return json.dumps(value, default=str, ensure_ascii=False)
 
 
 def _write_votable(table, path, run_meta):

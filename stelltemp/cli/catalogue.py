@@ -5,6 +5,8 @@ import sys
 from pathlib import Path
 
 from ..errors import StelltempError
+from ..safeio import check_figure_path
+from ..validation import check_size
 from . import options
 
 NAME = "catalogue"
@@ -60,10 +62,11 @@ def run(args, out=None, err=None, engine=None):
     """Run the catalogue; ``engine`` replaces the real engine (tests pass a stand-in)."""
     out = out or sys.stdout
     target = output_path(args, err)
-    if args.chunk_rows < 1:
-        raise StelltempError("--chunk-rows must be at least 1")
-    if args.plot and Path(args.plot).exists() and not args.replace:  # refuse before the long run
-        raise StelltempError(f"{args.plot}: already exists (add --replace to replace it)")
+    check_size("chunk_rows", args.chunk_rows, "--chunk-rows")
+    if args.workers is not None:
+        check_size("workers", args.workers, "--workers")
+    if args.plot:  # refuse before the long run: folder, format, existing file
+        check_figure_path(args.plot, args.replace)
     common = dict(mapping=args.columns, ebv=args.ebv, ebv_err=args.ebv_err, rv=args.rv, law=args.law,
                   method=args.method, fit_ebv=args.fit_ebv, overwrite=args.replace, quiet=args.quiet, engine=engine)
     try:
@@ -77,7 +80,7 @@ def run(args, out=None, err=None, engine=None):
 
             summary = run_catalogue(args.input, target, chunk_rows=args.chunk_rows, **common)
     except StelltempError as exc:
-        text = str(exc).replace("(allow replacing it explicitly)", "(add --replace to replace it)")
+        text = str(exc).replace("(allow replacing it explicitly, e.g. with --replace)", "(add --replace to replace it)")
         raise StelltempError(text) from None
     if args.plot:
         from ..catalog.figure import plot_results

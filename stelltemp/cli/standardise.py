@@ -93,6 +93,12 @@ def _report(s, out):
             if cmp:
                 line += f"   (predicted {cmp['predicted']:+.3f}, {cmp['difference_sigma']:+.1f} sigma)"
             print(line, file=out)
+        p = s["predicted"].get(f["filter"])
+        if p:
+            lo, hi = p["colour_range_mag"]
+            print(f"    predicted from the passbands: c = {p['coefficients']['colour_term']:+.4f}; departure from "
+                  f"the straight line {p['nonlinearity_max_mag'] * 1000:.1f} mmag at most over "
+                  f"{f['colour']} {lo:+.2f} to {hi:+.2f}", file=out)
         for r in f["rejected"]:
             print(f"    set aside: {r['star']} at X = {r['airmass']:.2f}: {r['reason']}", file=out)
     if s["targets"]:

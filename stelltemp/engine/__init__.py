@@ -25,6 +25,7 @@ from ..calibrations import ASSUMED_STAGE, combine_teff, coverage_notes, relation
 from ..errors import StelltempError
 from ..extinction import DEFAULT_LAW, DEFAULT_RV, check_law
 from ..passbands import get_passband
+from ..validation import RANGES
 from . import flags as fl
 from .colour import colour_interval, invert_colour
 from .derived import angular_diameter_mas, derived_quantities
@@ -36,9 +37,9 @@ BLACKBODY_NOTE = ("t_bb is a blackbody colour temperature, not an effective temp
                   "teff_cal (empirical calibrations, inside their validity ranges) is the T_eff to quote.")
 METHODS = ("auto", "colour", "fit")
 #: magnitudes beyond this are taken as absurd (flagged, band dropped)
-ABSURD_MAG = 40.0
+ABSURD_MAG = RANGES["mag"].hi
 #: a 1-sigma magnitude error above this carries no information (flagged, band dropped)
-MAX_MAG_ERR = 5.0
+MAX_MAG_ERR = RANGES["mag_err"].hi
 DEFAULT_MAG_ERR = 0.03
 
 
@@ -191,6 +192,7 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
     with np.errstate(invalid="ignore"):
         bad_red = ~np.isfinite(ebv) | (ebv < bg.E_MIN) | (ebv > bg.E_MAX) | ~(ebv_err >= 0)
     flags |= np.where(bad_red, fl.BAD_INPUT, 0)
+    m[bad_red] = np.nan  # no result without a usable reddening (never that of E(B-V) = 0)
     ebv_err = np.where(np.isfinite(ebv_err), ebv_err, 0.0)
 
     use_colour = method == "colour" or (method == "auto" and len(keys) == 2)
@@ -279,8 +281,9 @@ def _offset_from_bands(m, e, keys, t, ebv, law, rv):
         wsum = w.sum(axis=1)
         a = np.nansum(w * (m - mod), axis=1) / wsum
         mean_slope = (w * d_t).sum(axis=1) / wsum
+        a_err = 1 / np.sqrt(wsum)
     a = np.where(np.isfinite(t), a, np.nan)
-    return a, 1 / np.sqrt(wsum), mean_slope
+    return a, a_err, mean_slope
 
 
 def _by_colour(m, e, keys, ebv, ebv_err, law, rv):

@@ -623,9 +623,8 @@ def load_instrument(path) -> Instrument:
     StelltempError
         File missing or unreadable, or any bad value (see `parse_instrument`).
     """
+    from ..safeio import read_text_file
+
     p = Path(path).expanduser()
-    try:
-        text = p.read_text(encoding="utf-8")
-    except OSError as exc:
-        raise StelltempError(f"cannot read instrument file {p}: {exc.strerror or exc}") from None
+    text = read_text_file(p, "instrument file")
     return parse_instrument(text, base_dir=p.parent, source=p.name)

@@ -322,13 +322,15 @@ def read_targets(path):
 
     p = Path(path)
     fmt = "ascii.ecsv" if p.suffix.lower() == ".ecsv" else "ascii.csv"
-    if not p.is_file():
-        raise StelltempError(f"target list not found: {p}")
+    from ..errors import plain_reason
+    from ..safeio import read_text_file
+
+    text = read_text_file(p, "target list").splitlines()  # missing, unreadable or not UTF-8: one plain line
     try:
         # CSV: '#' lines are comments, as in the catalogue reader
-        t = Table.read(p, format=fmt) if fmt == "ascii.ecsv" else Table.read(p, format=fmt, comment="#")
+        t = Table.read(text, format=fmt) if fmt == "ascii.ecsv" else Table.read(text, format=fmt, comment="#")
     except Exception as exc:  # astropy raises many types for malformed tables
-        raise StelltempError(f"cannot read target list {p.name}: {str(exc).splitlines()[0]}") from None
+        raise StelltempError(f"cannot read target list {p.name}: {plain_reason(exc)}") from None
     return parse_targets(t)
 
 

@@ -321,7 +321,7 @@ def fit_transformation(obs: Observations, standards: dict, setups, *, priors=Non
         raise StelltempError(f"priors for filters not being fitted: {', '.join(sorted(unknown))}")
     fits = {s.filter: fit_filter(obs, standards, s, priors=priors.get(s.filter), clip=clip,
                                  scale_errors=scale_errors) for s in setups}
-    prov = {"method": "weighted least squares, Harris, FitzGerald & Reed (1981, PASP 93, 507) form",
+    prov = {"method": "generalised least squares, Harris, FitzGerald & Reed (1981, PASP 93, 507) form",
             "clip_sigma": clip, "error_scaling": "chi2/dof when > 1" if scale_errors else "none",
             "airmass": obs.airmass_source}
     prov.update(provenance or {})
