@@ -243,7 +243,7 @@ def run_tour(out_dir=DEFAULT_OUT, *, replace=False, demo_dir=None, quiet=False, 
     from .engine import flags as fl
     from .observing.figures import plot_night, plot_snr_curves
     from .observing.instrument import load_instrument
-    from .observing.plan import night_tracks, parse_targets, plan_night, plan_target
+    from .observing.plan import night_tracks, parse_targets, plan_night, plan_target, target_photometry
 
     demo = find_demo_dir(demo_dir)
     sc = load_scenario(demo)
@@ -286,20 +286,21 @@ def run_tour(out_dir=DEFAULT_OUT, *, replace=False, demo_dir=None, quiet=False, 
 
     # 4. the night plan
     instrument = load_instrument(sc["instrument"])
-    # counts from each star's own spectrum: the engine's blackbody temperature,
-    # reddened by the E(B−V) it used, scaled to the observed magnitude
+    # counts from each star's own photometry: every filter's rate anchored to the star's measured magnitude
+    # in that band, with the engine's blackbody temperature and the E(B−V) it used for the colour terms
     ebv_used = _floats(results["ebv_used"])
-    plan_in = Table({"name": targets["name"], "ra": targets["ra"], "dec": targets["dec"],
-                     "mag": targets["mag"], "band": targets["band"],
-                     "teff": np.where(np.isfinite(t_bb), np.round(t_bb, 0), np.nan),
-                     "ebv": np.where(np.isfinite(t_bb) & np.isfinite(ebv_used), ebv_used, 0.0)})
+    plan_in = targets.copy(copy_data=True)
+    plan_in["teff"] = np.where(np.isfinite(t_bb), np.round(t_bb, 0), np.nan)
+    if "ebv" in plan_in.colnames:
+        plan_in["ebv"] = np.where(np.isfinite(ebv_used), ebv_used, _floats(plan_in["ebv"]))
     plan_targets = parse_targets(plan_in)
     plan = plan_night(instrument, plan_targets, sc["date"], snr=snr)
     by_name = {t["name"]: t for t in plan_targets}
     saved = plan.copy(copy_data=True)
     saved.meta = table_ready(plan)["meta"]
-    saved.meta["note"] = ("exposures for each star's blackbody (T_bb from the temperature run), reddened by "
-                          "its E(B-V) and scaled to its V magnitude; invented demo data")
+    saved.meta["note"] = ("count rates anchored to each star's measured magnitude in every filter's band, colour "
+                          "terms from its blackbody (T_bb from the temperature run) reddened by its E(B-V); "
+                          "invented demo data")
     files["plan"] = str(out / "plan.ecsv")
     save_table(saved, files["plan"], "ascii.ecsv", replace=True)
     centre = by_name[star]
@@ -312,7 +313,7 @@ def run_tour(out_dir=DEFAULT_OUT, *, replace=False, demo_dir=None, quiet=False, 
     star_plan = plan[plan["target"] == star]
     airmass = float(np.nanmin(np.asarray(star_plan["min_airmass"], float))) if len(star_plan) else 1.0
     p = by_name[star]
-    one = plan_target(instrument, p["mag"], p["band"], p["teff"], ebv=p["ebv"], snr=snr,
+    one = plan_target(instrument, teff=p["teff"], photometry=target_photometry(instrument, p), ebv=p["ebv"], snr=snr,
                       airmass=airmass if math.isfinite(airmass) else 1.0, name=star)
     files["snr_figure"] = plot_snr_curves(one, str(out / f"snr_{star}.png"), replace=True)
 

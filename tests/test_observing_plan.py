@@ -46,19 +46,28 @@ def test_plan_target_columns_and_consistency(rig):
 
 
 def test_plan_target_given_time_and_saturation(rig):
-    faint = plan.plan_target(rig, 15.0, exposure_s=60.0)
+    faint = plan.plan_target(rig, 15.0, "V", exposure_s=60.0)
     assert set(faint["saturation"]) == {"ok"}
     assert np.all(np.isnan(faint["exposure_for_snr"]))
     bright = plan.plan_target(rig, 5.0, "V", teff=3500.0, exposure_s=60.0)
     sat = bright[bright["saturation"] == "saturated"]
     assert len(sat) >= 3
     for row in sat:
-        assert row["n_exposures"] > 1 and row["each_exposure"] <= row["nonlinear_after"] * (1 + 1e-9)
+        # never an exposure below the camera's minimum; a star too bright even then gets the light cut it needs
+        assert row["n_exposures"] > 1 and row["each_exposure"] >= rig.camera.min_exposure_s
+        if row["light_cut"] > 1:
+            assert row["nonlinear_after"] < rig.camera.min_exposure_s
+            assert row["light_cut"] == pytest.approx(rig.camera.min_exposure_s / row["nonlinear_after"])
+            assert "neutral-density filter" in row["advice"] and "aperture stop" in row["advice"]
+        else:
+            assert row["each_exposure"] <= row["nonlinear_after"] * (1 + 1e-9)
         assert "take" in row["advice"]
+        assert row["peak_adu"] <= rig.camera.saturation_adu and row["peak_e"] <= rig.camera.full_well_e
+        assert row["peak_excess"] > 1
     with pytest.raises(StelltempError, match="S/N, an exposure"):
-        plan.plan_target(rig, 10.0)
+        plan.plan_target(rig, 10.0, "V")
     with pytest.raises(StelltempError, match="airmass"):
-        plan.plan_target(rig, 10.0, snr=10, airmass=0.5)
+        plan.plan_target(rig, 10.0, "V", snr=10, airmass=0.5)
 
 
 def test_parse_targets_flags_bad_rows():
@@ -125,8 +134,8 @@ def test_cli_exposure_text_plot_and_sun(tmp_path):
     assert "saturated" in text and "take" in err.getvalue()
     assert (tmp_path / "snr.png").stat().st_size > 1000
     # pointing at the Sun's position at noon: daylight and Sun warnings with the caution
-    args = p.parse_args(["exposure", "--instrument", str(CCD_FILE), "--mag", "3", "--exposure", "1", "--json",
-                         "--time", "2025-06-21T12:00", "--ra", "06:00:00", "--dec", "23.4"])
+    args = p.parse_args(["exposure", "--instrument", str(CCD_FILE), "--mag", "3", "--band", "V", "--exposure", "1",
+                         "--json", "--time", "2025-06-21T12:00", "--ra", "06:00:00", "--dec", "23.4"])
     out, err = io.StringIO(), io.StringIO()
     run_cli(args, out, err)
     doc = json.loads(out.getvalue())
@@ -135,7 +144,7 @@ def test_cli_exposure_text_plot_and_sun(tmp_path):
     with pytest.raises(StelltempError, match="--snr, --exposure"):
         run_cli(p.parse_args(["exposure", "--instrument", str(CCD_FILE), "--mag", "3"]), out, err)
     with pytest.raises(StelltempError, match="no filter 'Q'"):
-        run_cli(p.parse_args(["exposure", "--instrument", str(CCD_FILE), "--mag", "3", "--snr", "5",
+        run_cli(p.parse_args(["exposure", "--instrument", str(CCD_FILE), "--mag", "3", "--band", "V", "--snr", "5",
                               "--filters", "V,Q"]), out, err)
 
 

@@ -21,15 +21,17 @@ from astropy import units as u
 from astropy.table import QTable
 
 from .. import bandgrid as bg
-from ..calibrations import ASSUMED_STAGE, combine_teff, coverage_notes, relations
+from ..calibrations import ASSUMED_STAGE, DEFAULT_FEH
 from ..errors import StelltempError
 from ..extinction import DEFAULT_LAW, DEFAULT_RV, check_law
 from ..passbands import get_passband
 from ..validation import RANGES
 from . import flags as fl
 from .colour import colour_interval, invert_colour
+from .combine import calibrated_teff
 from .derived import angular_diameter_mas, derived_quantities
 from .fit import fit_blackbody
+from .notes import RowNotes
 
 __all__ = ["estimate", "BLACKBODY_NOTE", "METHODS"]
 
@@ -61,8 +63,13 @@ def _column(values, n, name, default=None, unit=u.mag):
     return np.broadcast_to(arr.reshape(-1) if arr.ndim else arr, (n,)).astype(float)
 
 
-def _clean_photometry(mags, errs, keys, n):
-    """(n, nb) arrays of magnitudes and errors with bad values removed, and flags."""
+def _clean_photometry(mags, errs, keys, n, notes=None):
+    """(n, nb) arrays of magnitudes and errors with bad values removed, and flags.
+
+    A negative error is a bad value: the band is dropped and ABSURD_VALUE set.
+    A missing error becomes `DEFAULT_MAG_ERR`, an exact zero 1e-4 mag; both
+    are recorded in ``notes`` (a `RowNotes`) for the rows they touch.
+    """
     flags = np.zeros(n, np.int64)
     m = np.empty((n, len(keys)))
     e = np.empty((n, len(keys)))
@@ -73,8 +80,14 @@ def _clean_photometry(mags, errs, keys, n):
         absurd = (np.abs(m) > ABSURD_MAG) | (e < 0) | (e > MAX_MAG_ERR)
         flags[np.any(absurd & np.isfinite(m), axis=1)] |= fl.ABSURD_VALUE
         m[absurd | ~np.isfinite(m)] = np.nan
+        missing = ~np.isfinite(e) & np.isfinite(m)
+        exact = (e == 0) & np.isfinite(m)
         e[~np.isfinite(e)] = DEFAULT_MAG_ERR
         e[e == 0] = 1e-4  # an exact magnitude: keep it, with a tiny error
+    if notes is not None:
+        for b, k in enumerate(keys):
+            notes.add(missing[:, b], f"{k} error {DEFAULT_MAG_ERR:g} mag assumed")
+            notes.add(exact[:, b], f"{k} error 0 taken as 0.0001 mag")
     return m, e, flags
 
 
@@ -106,9 +119,19 @@ def _in_blocks(call, n, per_star):
     return table
 
 
+def _whole_table_meta(table):
+    """Metadata counts of a table joined from blocks, recounted over all its rows."""
+    uniq, inverse = np.unique(np.asarray(table["severity"], str), return_inverse=True)
+    levels = np.array([fl.LEVELS.index(x) for x in uniq], np.int64)[inverse.reshape(-1)]
+    table.meta["flag_summary"] = fl.summary(np.asarray(table["flags"]), levels)
+    table.meta["assumptions"] = RowNotes.count_texts(table["assumed"])
+    return table
+
+
 def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=DEFAULT_RV,
              law=DEFAULT_LAW, fit_ebv=False, parallax=None, parallax_err=None, feh=None, logg=None,
-             method="auto", monte_carlo=0, seed=None):
+             method="auto", monte_carlo=0, seed=None, feh_err=None, cal_ebv=False,
+             cal_detail=False):
     """Temperatures, errors, flags and derived quantities for many stars.
 
     Parameters
@@ -133,7 +156,10 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
     parallax, parallax_err : float, array or Quantity, optional
         Parallax and error (plain numbers in mas), for radius and luminosity.
     feh, logg : float or array, optional
-        [Fe/H] and log g for the empirical calibrations.
+        [Fe/H] and log g for the empirical calibrations (missing: solar
+        [Fe/H] and the dwarf relations, recorded in ``assumed``).
+    feh_err : float or array, optional
+        1σ error of [Fe/H], dex, propagated into ``teff_cal``.
     method : {'auto', 'colour', 'fit'}
         'colour': exact inversion of one colour (exactly two bands);
         'fit': multi-band fit of T and angular diameter; 'auto': colour for
@@ -144,11 +170,24 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
         give percentile intervals instead of the analytic ones.
     seed : int, optional
         Random seed for the Monte Carlo.
+    cal_ebv : bool
+        Fit E(B−V) from the calibrations themselves (the reddening that makes
+        the colours agree), with ``ebv ± ebv_err`` as prior when ebv_err > 0;
+        without a prior this needs three or more calibrated colours.  Always
+        done for ``teff_cal`` when ``fit_ebv`` (the blackbody fit's E(B−V) is
+        biased by the star not being a blackbody).  Gives ``ebv_cal``.
+    cal_detail : bool
+        Add each relation's own temperature and error as columns
+        ``teff_<relation key>`` and ``teff_<relation key>_err``.
 
     Returns
     -------
     QTable
-        One row per star; columns listed in :data:`RESULT_COLUMNS`.
+        One row per star; columns listed in :data:`RESULT_COLUMNS` (plus the
+        per-relation columns with ``cal_detail``).  ``teff_cal`` combines the
+        relations with their full covariance (:mod:`stelltemp.engine.combine`).
+        Metadata: ``flag_summary`` (rows by severity and by flag) and
+        ``assumptions`` (each default used, with its number of rows).
     """
     if not isinstance(mags, dict) or len(mags) < 2:
         raise StelltempError("need magnitudes in at least two passbands")
@@ -168,11 +207,14 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
     n_rows = max((np.size(v) for v in mags.values()), default=0)
     if n_rows > BLOCK_ROWS and not monte_carlo and isinstance(mags, dict):
         per_star = dict(mags=mags, errs=errs, ebv=ebv, ebv_err=ebv_err, av=av, av_err=av_err,
-                        parallax=parallax, parallax_err=parallax_err, feh=feh, logg=logg)
+                        parallax=parallax, parallax_err=parallax_err, feh=feh, logg=logg,
+                        feh_err=feh_err)
         values = [x for v in per_star.values() for x in (v.values() if isinstance(v, dict) else [v])]
         if all(np.ndim(x) <= 1 and np.size(x) in (0, 1, n_rows) for x in values if x is not None):
-            return _in_blocks(lambda **kw: estimate(**kw, rv=rv, law=law, fit_ebv=fit_ebv, method=method),
-                              n_rows, per_star)
+            table = _in_blocks(lambda **kw: estimate(**kw, rv=rv, law=law, fit_ebv=fit_ebv, method=method,
+                                                     cal_ebv=cal_ebv, cal_detail=cal_detail),
+                               n_rows, per_star)
+            return _whole_table_meta(table)
         # otherwise the unblocked path below names the badly shaped input
     pivots = [get_passband(k).pivot_wavelength.value for k in keys]
     order = np.argsort(pivots)
@@ -181,7 +223,10 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
     mags = {keys[j]: mags[given[i]] for j, i in enumerate(order)}
     errs = {} if errs is None else {get_passband(k).key: v for k, v in errs.items()}
     n = max((np.size(v) for v in mags.values()), default=0)
-    m, e, flags = _clean_photometry(mags, errs, keys, n)
+    notes = RowNotes(n)
+    m, e, flags = _clean_photometry(mags, errs, keys, n, notes)
+    ebv_given = not (av is None and np.all(np.asarray(ebv, dtype=object) == 0.0)
+                     and not isinstance(ebv, u.Quantity))
     ebv = _column(ebv, n, "E(B-V)")
     ebv_err = _column(ebv_err, n, "E(B-V) error")
     if av is not None:
@@ -194,6 +239,8 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
     flags |= np.where(bad_red, fl.BAD_INPUT, 0)
     m[bad_red] = np.nan  # no result without a usable reddening (never that of E(B-V) = 0)
     ebv_err = np.where(np.isfinite(ebv_err), ebv_err, 0.0)
+    if not ebv_given and not fit_ebv and not cal_ebv:
+        notes.add(True, "E(B-V) = 0 assumed")
 
     use_colour = method == "colour" or (method == "auto" and len(keys) == 2)
     if use_colour:
@@ -213,12 +260,18 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
     cov_t_theta = -0.2 * np.log(10) * core["cov_lnt_a"]
     plx = _column(parallax, n, "parallax", unit=u.mas)
     plx_err = _column(parallax_err, n, "parallax error", 0.0, unit=u.mas)
+    if plx is not None:
+        no_err = np.isfinite(plx) & (np.full(n, True) if parallax_err is None else ~(plx_err > 0))
+        notes.add(no_err, "parallax error unknown: radius and luminosity errors exclude the distance")
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         derived = derived_quantities(t, np.where(np.isfinite(lnt_err), lnt_err, np.nan), theta,
                                      lntheta_err, cov_t_theta, plx, plx_err)
-        terms = _reddening_terms(keys, t, core["ebv"], law, rv, core.get("model"), core.get("model_de"))
-        cal, cal_notes = _calibrated(m, e, keys, ebv_err, feh, logg, terms, n)
-    flags |= cal.flags & ~fl.BAD_INPUT
+        cal = _calibrated(m, e, keys, t, ebv, ebv_err, core, fit_ebv or cal_ebv, feh, feh_err, logg,
+                          law, rv, n, notes, monte_carlo, seed)
+    flags |= cal.flags
+    flags |= np.where(cal.p_value < fl.DISAGREE_P, fl.COLOURS_DISAGREE, 0)
+    usable = np.isfinite(t) | np.isfinite(cal.teff)
+    level = fl.row_severity(flags, usable)
 
     table = QTable()
     table["t_bb"] = t * u.K
@@ -243,10 +296,23 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
     table["luminosity_err"] = derived["lum_err_lsun"] * u.L_sun
     table["teff_cal"] = cal.teff * u.K
     table["teff_cal_err"] = cal.teff_err * u.K
+    table["teff_cal_lo"] = cal.teff_lo * u.K
+    table["teff_cal_hi"] = cal.teff_hi * u.K
     table["n_cal"] = cal.n_used
-    table["teff_cal_note"] = np.asarray(cal_notes, dtype=str)
+    table["cal_used"] = cal.used_names()
+    table["cal_chi2"] = cal.chi2
+    table["cal_dof"] = cal.dof
+    table["ebv_cal"] = cal.ebv * u.mag
+    table["ebv_cal_err"] = cal.ebv_err * u.mag
+    if cal_detail:
+        for i, key in enumerate(cal.keys):
+            table[f"teff_{key}"] = cal.teff_each[:, i] * u.K
+            table[f"teff_{key}_err"] = cal.err_each[:, i] * u.K
+    table["teff_cal_note"] = cal.notes
     table["flags"] = flags
     table["flag_names"] = fl.describe_all(flags)
+    table["severity"] = fl.severity_names(level)
+    table["assumed"] = notes.texts()
     table.meta.update({
         "method": "colour" if use_colour else ("fit+ebv" if fit_ebv else "fit"),
         "passbands": ",".join(keys),
@@ -254,6 +320,9 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
         "R_V": rv,
         "uncertainty": f"monte_carlo:{int(monte_carlo)}" if monte_carlo else "analytic",
         "note": BLACKBODY_NOTE,
+        "calibration_ebv": "fitted from the calibrations" if (fit_ebv or cal_ebv) else "as given",
+        "flag_summary": fl.summary(flags, level),
+        "assumptions": notes.counts(),
         "luminosity_class": ("log g given per star" if logg is not None else
                              f"log g not given: {ASSUMED_STAGE} relations assumed for every star"),
     })
@@ -263,9 +332,9 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
 RESULT_COLUMNS = (
     "t_bb", "t_bb_lo", "t_bb_hi", "t_bb_err", "theta", "theta_err", "ebv_used", "ebv_used_err",
     "n_bands", "chi2", "dof", "p_value", "lambda_peak", "lambda_peak_err", "fbol", "fbol_err",
-    "radius", "radius_err", "luminosity", "luminosity_err", "teff_cal", "teff_cal_err", "n_cal",
-    "teff_cal_note",
-    "flags", "flag_names",
+    "radius", "radius_err", "luminosity", "luminosity_err", "teff_cal", "teff_cal_err",
+    "teff_cal_lo", "teff_cal_hi", "n_cal", "cal_used", "cal_chi2", "cal_dof", "ebv_cal",
+    "ebv_cal_err", "teff_cal_note", "flags", "flag_names", "severity", "assumed",
 )
 
 
@@ -311,7 +380,7 @@ def _by_fit(m, e, keys, ebv, ebv_err, fit_ebv, law, rv):
     flags = res["flags"]
     if not fit_ebv:
         red_part = np.abs(res["dlnt_de"]) * ebv_err
-        flags = flags | np.where(red_part > lnt_err, fl.REDDENING_DOMINATES, 0)
+        flags = flags | np.where(fl.reddening_dominates(red_part, lnt_err), fl.REDDENING_DOMINATES, 0)
         lnt_err = np.hypot(lnt_err, red_part)
     t_lo = t * np.exp(-lnt_err)
     t_hi = t * np.exp(lnt_err)
@@ -347,52 +416,23 @@ def _monte_carlo_interval(m, e, keys, ebv, ebv_err, fit_ebv, use_colour, law, rv
     return lo, hi
 
 
-def _reddening_terms(keys, t_bb, ebv, law, rv, model=None, model_de=None):
-    """Per band: the excess M(T, E) − M(T, 0) of a blackbody at the star's T_bb, and ∂M/∂E.
+def _calibrated(m, e, keys, t_bb, ebv, ebv_err, core, fit_ebv, feh, feh_err, logg, law, rv, n,
+                notes, monte_carlo, seed):
+    """Empirical T_eff from every calibrated colour (:func:`.combine.calibrated_teff`).
 
-    ``model``/``model_de`` (n, n_bands), when the fit already has M(T, E) and
-    ∂M/∂E at the solution, save evaluating them again.
+    Colours are dereddened through the passbands with the excess of a
+    blackbody at the star's (iterated) calibrated temperature, starting from T_bb.
     """
-    n = len(t_bb)
-    lnt = np.log(np.where(np.isfinite(t_bb), t_bb, 5800.0))
-    e_used = np.where(np.isfinite(ebv), ebv, 0.0)
-    terms = {}
-    for b, key in enumerate(keys):
-        table = bg.band_table(key, law, rv)
-        if model is None:
-            reddened, _, slope_e = table.evaluate(lnt, e_used)
-        else:
-            reddened, slope_e = model[:, b], model_de[:, b]
-        intrinsic, _, _ = table.evaluate(lnt, np.zeros(n), want_de=False)
-        terms[key] = (reddened - intrinsic, slope_e)
-    return terms
-
-
-def _calibrated(m, e, keys, ebv_err, feh, logg, terms, n):
-    """Empirical T_eff from every calibrated colour available, dereddened through the passbands.
-
-    The colour excess of each pair is that of a blackbody at the star's
-    colour temperature, reddened by the law: C(T, E) − C(T, 0) (``terms``
-    from :func:`_reddening_terms`).
-    """
-    colours, errors = {}, {}
-    index = {k: i for i, k in enumerate(keys)}
-    for rel in relations():
-        blue, red = rel.bands
-        if blue not in index or red not in index or (blue, red) in colours:
-            continue
-        b, r = index[blue], index[red]
-        excess = terms[blue][0] - terms[red][0]
-        slope_e = terms[blue][1] - terms[red][1]
-        colours[(blue, red)] = m[:, b] - m[:, r] - excess
-        errors[(blue, red)] = np.hypot(np.hypot(e[:, b], e[:, r]), slope_e * ebv_err)
-    if not colours:
-        return (SimpleNamespace(teff=np.full(n, np.nan), teff_err=np.full(n, np.nan), n_used=np.zeros(n, int),
-                                flags=np.full(n, fl.NO_CALIBRATION, np.int64)),
-                np.full(n, "no calibration: no calibrated colour among these passbands"))
     feh = None if feh is None else _column(feh, n, "[Fe/H]", unit=u.dex)
+    feh_err = None if feh_err is None else _column(feh_err, n, "[Fe/H] error", unit=u.dex)
     logg = None if logg is None else _column(logg, n, "log g", unit=u.dex(u.cm / u.s**2))
-    res = combine_teff(colours, errors, feh=feh, logg=logg)
-    notes = coverage_notes(colours, feh=feh, logg=np.full(n, np.nan) if logg is None else logg,
-                           applied=~res.none_applicable)
-    return res, notes
+    cal = calibrated_teff(m, e, keys, t_bb, ebv, ebv_err, fit_ebv=fit_ebv, feh=feh, feh_err=feh_err,
+                          logg=logg, law=law, rv=rv, monte_carlo=int(monte_carlo),
+                          seed=None if seed is None else [int(seed), 11])
+    has_cal = cal.n_used > 0
+    if cal.keys:
+        no_feh = np.full(n, True) if feh is None else ~np.isfinite(feh)
+        notes.add(has_cal & no_feh, f"[Fe/H] = {DEFAULT_FEH:g} assumed")
+        no_logg = np.full(n, True) if logg is None else ~np.isfinite(logg)
+        notes.add(has_cal & no_logg, f"log g unknown: {ASSUMED_STAGE} relations assumed")
+    return cal

@@ -242,6 +242,6 @@ def colour_interval(colour, colour_err, blue, red, ebv=0.0, ebv_err=0.0, law=DEF
     flags = flags | np.where(open_top, fl.RJ_LIMIT, 0)
     t_lo = np.where(solved & ~np.isfinite(t_lo) & ((f_lo & fl.AT_GRID_EDGE) != 0), bg.T_MIN, t_lo)
     with np.errstate(invalid="ignore"):
-        dominated = solved & (red_part > np.where(bad_err, np.inf, colour_err))
+        dominated = solved & fl.reddening_dominates(red_part, np.where(bad_err, np.inf, colour_err))
     flags = flags | np.where(dominated, fl.REDDENING_DOMINATES, 0)
     return {"t": t, "t_lo": t_lo, "t_hi": t_hi, "t_err": (t_hi - t_lo) / 2, "flags": flags}

@@ -28,7 +28,7 @@ from .colour import invert_colour
 _MAX_ITERATIONS = 30
 _MAX_STEP = 0.5  # largest change of ln T in one iteration
 _TOL = 1e-10
-POOR_FIT_P = 1e-3
+POOR_FIT_P = fl.POOR_FIT_P
 
 
 def _start(mags, weights, keys, ebv, law, rv):

@@ -2,6 +2,18 @@
 
 Each bit says one thing; a star may carry several.  ``describe(mask)`` turns
 a mask into the comma-separated names used in tables and reports.
+
+Every flag has a severity (`SEVERITY`):
+
+* ``info`` — worth knowing, the numbers stand as they are;
+* ``warning`` — a number is a limit, a value was set aside, or the star's
+  colours contradict each other: read the row before quoting it;
+* ``unusable`` — no result can be quoted.
+
+A row's severity is that of its worst flag, and ``unusable`` whenever it
+has neither a colour temperature nor a calibrated one (`row_severity`).
+`RULES` states the rule and threshold behind each flag; this module and the
+flags table of DEVELOPERS.md are the one place they are written down.
 """
 
 import numpy as np
@@ -17,14 +29,26 @@ AT_GRID_EDGE = 1 << 2
 RJ_LIMIT = 1 << 3
 #: a calibrated relation was used outside its published validity range (not applied)
 OUTSIDE_CALIBRATION = 1 << 4
-#: multi-band fit: reduced chi-squared p-value below 0.001
+#: multi-band fit: the magnitudes are not those of one reddened blackbody, p(χ²) below
+#: `POOR_FIT_P` (expected for real stars measured to ~0.01 mag: information only)
 POOR_FIT = 1 << 5
-#: the reddening error contributes more to the temperature error than the photometry
+BLACKBODY_MISFIT = POOR_FIT
+#: the E(B−V) error makes up more than `REDDENING_SHARE` of the variance of T_bb
 REDDENING_DOMINATES = 1 << 6
 #: value outside physically plausible limits (e.g. |mag| > 40, negative error)
 ABSURD_VALUE = 1 << 7
 #: no calibrated effective temperature could be computed
 NO_CALIBRATION = 1 << 8
+#: the calibrated temperatures of one star's colours disagree beyond their combined
+#: errors: p(χ²) of the combination below `DISAGREE_P`
+COLOURS_DISAGREE = 1 << 9
+
+#: p-value below which a multi-band blackbody fit is called a misfit
+POOR_FIT_P = 1e-3
+#: share of the T_bb variance from the E(B−V) error above which REDDENING_DOMINATES is set
+REDDENING_SHARE = 0.9
+#: p-value of the calibrated combination's χ² below which COLOURS_DISAGREE is set
+DISAGREE_P = 1e-3
 
 NAMES = {
     BAD_INPUT: "bad_input",
@@ -32,10 +56,50 @@ NAMES = {
     AT_GRID_EDGE: "grid_edge",
     RJ_LIMIT: "rayleigh_jeans",
     OUTSIDE_CALIBRATION: "outside_calibration",
-    POOR_FIT: "poor_fit",
+    POOR_FIT: "not_blackbody",
     REDDENING_DOMINATES: "reddening_dominates",
     ABSURD_VALUE: "absurd_value",
     NO_CALIBRATION: "no_calibration",
+    COLOURS_DISAGREE: "colours_disagree",
+}
+
+#: severity levels, in increasing order
+LEVELS = ("", "info", "warning", "unusable")
+INFO, WARNING, UNUSABLE = 1, 2, 3
+
+#: severity of each flag
+SEVERITY = {
+    BAD_INPUT: WARNING,
+    NO_SOLUTION: UNUSABLE,
+    AT_GRID_EDGE: WARNING,
+    RJ_LIMIT: WARNING,
+    OUTSIDE_CALIBRATION: INFO,
+    POOR_FIT: INFO,
+    REDDENING_DOMINATES: INFO,
+    ABSURD_VALUE: WARNING,
+    NO_CALIBRATION: WARNING,
+    COLOURS_DISAGREE: WARNING,
+}
+
+#: the rule behind each flag, with its threshold (shown by documentation and reports)
+RULES = {
+    BAD_INPUT: "a magnitude, error, E(B-V), [Fe/H], log g or parallax was missing, "
+               "non-numeric or infinite and was set aside; too few usable bands leave no result",
+    NO_SOLUTION: "the colour is bluer than a blackbody of any temperature (Rayleigh-Jeans limit)",
+    AT_GRID_EDGE: "T_bb at the grid edge (1,000 or 100,000 K): only a limit is meaningful",
+    RJ_LIMIT: "the upper 68 % bound of T_bb is unbounded: T_bb is a lower limit",
+    OUTSIDE_CALIBRATION: "a relation had the star's colour but the star lies outside its "
+                         "published colour or [Fe/H] range; that relation was not used",
+    POOR_FIT: f"the magnitudes are not those of one reddened blackbody: p(chi2) < {POOR_FIT_P:g} "
+              "(normal for real stars measured to ~0.01 mag; T_bb is the best-matching blackbody)",
+    REDDENING_DOMINATES: f"the E(B-V) error makes up more than {REDDENING_SHARE:.0%} of the "
+                         "variance of T_bb",
+    ABSURD_VALUE: "a value outside plausible limits (|mag| > 40, error < 0 or > 5 mag) was "
+                  "dropped with its band",
+    NO_CALIBRATION: "no calibrated T_eff (no relation for these colours, luminosity class or range)",
+    COLOURS_DISAGREE: f"the calibrated temperatures of the star's colours disagree beyond their "
+                      f"combined errors: p(chi2) < {DISAGREE_P:g} (bad photometry, a binary, wrong "
+                      "reddening)",
 }
 
 
@@ -78,3 +142,55 @@ def describe_all(masks):
     """`describe` over an integer array: one str per row (an object array sharing one str per mask)."""
     codes, names = encode(masks)
     return names[codes.ravel()]
+
+
+def reddening_dominates(red_part, phot_part):
+    """True where the E(B−V) term's share of the variance exceeds `REDDENING_SHARE`."""
+    red2 = np.square(red_part)
+    with np.errstate(invalid="ignore"):
+        return red2 > REDDENING_SHARE * (red2 + np.square(phot_part))
+
+
+def mask_at_least(level):
+    """OR of all flag bits whose severity is ``level`` or worse."""
+    out = 0
+    for bit, sev in SEVERITY.items():
+        if sev >= level:
+            out |= bit
+    return out
+
+
+def row_severity(masks, usable=None):
+    """Severity level (0 clean … 3 unusable) of each row.
+
+    Parameters
+    ----------
+    masks : array_like of int
+        Flag masks.
+    usable : array_like of bool, optional
+        Whether the row has any finite temperature; False makes it unusable.
+    """
+    masks = np.asarray(masks, dtype=np.int64)
+    level = np.zeros(masks.shape, np.int64)
+    for bit, sev in SEVERITY.items():
+        level = np.where(masks & bit, np.maximum(level, sev), level)
+    if usable is not None:
+        level = np.where(np.asarray(usable, bool), level, UNUSABLE)
+    return level
+
+
+def severity_names(levels):
+    """'' / 'info' / 'warning' / 'unusable' for each level."""
+    return np.array(LEVELS, dtype=str)[np.asarray(levels, dtype=np.int64)]
+
+
+def summary(masks, levels):
+    """Counts of rows by severity and by flag, for table metadata and reports."""
+    masks = np.asarray(masks, dtype=np.int64)
+    levels = np.asarray(levels, dtype=np.int64)
+    out = {"rows": int(masks.size), "clean": int(np.sum(levels == 0))}
+    for i, name in enumerate(LEVELS[1:], start=1):
+        out[name] = int(np.sum(levels == i))
+    out["by_flag"] = {NAMES[bit]: int(np.count_nonzero(masks & bit)) for bit in NAMES
+                      if np.any(masks & bit)}
+    return out

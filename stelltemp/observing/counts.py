@@ -2,19 +2,22 @@
 
 Star::
 
-    N_e = A · 10^(−0.4 k X) · ∫ F_λ λ/(hc) · τ_f S(λ) · R(λ)^m · τ_o · QE(λ) dλ
+    N_e = A · 10^(−0.4 k X) · ∫ F_λ λ/(hc) · τ_f S(λ) · R(λ)^m · τ_o · Q(λ) dλ
 
 with A the unobstructed collecting area, k the filter's extinction
 coefficient (mag per airmass, grey across the band), X the airmass, S the
-passband's photon-counting response (peak 1) taken as the relative filter
-transmission, τ_f its peak transmission, R the mirror reflectivity (m
-mirrors), τ_o the other optics and QE the camera's quantum efficiency.
-Magnitudes given for stars are outside the atmosphere.
+passband's photon-counting response (peak 1), τ_f its peak transmission,
+R the mirror reflectivity (m mirrors) and τ_o the other optics.  Q counts
+the detector once (`FilterSpec.qe_factor`): the camera QE for a bare filter
+curve; for a standard-system curve, which already contains a detector,
+1 or the ratio of the camera QE to that standard detector's QE.  Magnitudes
+given for stars are outside the atmosphere.
 
 The star's spectrum is a blackbody of temperature T (Planck) scaled so that
 its synthetic magnitude in a named passband equals the given magnitude, or
 any tabulated spectrum.  With no temperature the shape of the CALSPEC Vega
-spectrum (an A0 V star) is used.
+spectrum (an A0 V star) is used as a template.  Either is reddened by the
+star's E(B−V) before it is scaled (the magnitude is the observed one).
 
 Sky: the sky surface brightness in a filter (mag arcsec⁻², as measured at the
 site, so no extinction is applied) is given the spectrum of the zero-point
@@ -31,6 +34,8 @@ interpolated linearly (the passband as the core does it, through
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from ..errors import StelltempError
@@ -46,10 +51,13 @@ __all__ = [
     "photon_integral",
     "electron_rate_spectrum",
     "scaled_blackbody",
+    "template_spectrum",
     "star_electron_rate",
     "sky_electron_rate",
     "zero_point_rate",
     "sky_airmass_brightening",
+    "moonlight_electron_rate",
+    "MOONLIGHT_COLOUR",
     "dark_electron_rate",
     "extinction_factor",
 ]
@@ -83,25 +91,26 @@ def _curve_points(instrument: Instrument, spec):
     pts = []
     if isinstance(instrument.telescope.reflectivity, Curve):
         pts.append(instrument.telescope.reflectivity.wave)
-    if not spec.curve_includes_detector:
+    if not spec.curve_includes_detector or spec.reference_qe is not None:
         pts.append(instrument.camera.qe.wave)
+    if spec.reference_qe is not None:
+        pts.append(spec.reference_qe.wave)
     return pts
 
 
 def system_efficiency(instrument: Instrument, filter_name: str, wave):
     """Fraction of photons above the atmosphere that become electrons, at ``wave`` (Å).
 
-    Filter (τ_f × photon response) × mirrors × other optics × QE; the QE is
-    left out for filters whose curve already includes the detector.
+    Filter (τ_f × photon response) × mirrors × other optics × the detector
+    term of `FilterSpec.qe_factor` (the QE for a bare filter curve; 1 or the
+    QE ratio to the standard detector for a system curve).
     """
     spec = instrument.filter(filter_name)
     pb = spec.passband
     w = np.asarray(wave, float)
     eff = spec.peak_transmission * _photon_response_at(pb, w)
     eff = eff * instrument.telescope.throughput(w)
-    if not spec.curve_includes_detector:
-        eff = eff * instrument.camera.qe(w)
-    return eff
+    return eff * spec.qe_factor(instrument.camera.qe, w)
 
 
 def photon_integral(wave, flam, efficiency):
@@ -153,6 +162,23 @@ def electron_rate_spectrum(wave, flam, instrument: Instrument, filter_name: str,
                  * extinction_factor(spec.extinction_mag_per_airmass, airmass))
 
 
+_TRANSMISSION_CACHE: dict = {}
+
+
+def _transmission(wave, ebv, law, rv):
+    """Dust transmission 10^(−0.4 R_V E(B−V) k(λ)), k(λ) cached per wavelength grid (the law is slow to evaluate)."""
+    from ..extinction import relative_extinction
+
+    w = np.asarray(wave, float)
+    key = (law, float(rv), w.shape, hash(w.tobytes()))
+    k = _TRANSMISSION_CACHE.get(key)
+    if k is None:
+        if len(_TRANSMISSION_CACHE) > 256:
+            _TRANSMISSION_CACHE.clear()
+        k = _TRANSMISSION_CACHE[key] = relative_extinction(w, law, rv)
+    return 10 ** (-0.4 * float(rv) * np.multiply.outer(np.asarray(ebv, float), k))
+
+
 def scaled_blackbody(teff, mag, band, ebv=0.0, law="G23", rv=3.1):
     """Evaluator of a (reddened) blackbody of ``teff`` with magnitude ``mag`` in ``band``.
 
@@ -173,7 +199,6 @@ def scaled_blackbody(teff, mag, band, ebv=0.0, law="G23", rv=3.1):
     callable
         ``flam(wave)`` → F_λ (erg s⁻¹ cm⁻² Å⁻¹) with shape (..., len(wave)).
     """
-    from ..extinction import transmission
     from ..passbands import get_passband
 
     pb = get_passband(band)
@@ -191,7 +216,7 @@ def scaled_blackbody(teff, mag, band, ebv=0.0, law="G23", rv=3.1):
 
     def reddened(wave):
         w = np.asarray(wave, float)
-        return planck_lambda_cgs(t[..., None], w) * transmission(w, e, law, rv)
+        return planck_lambda_cgs(t[..., None], w) * _transmission(w, e, law, rv)
 
     grid = band_grid(pb)
     m0 = -2.5 * np.log10(band_integral(grid, reddened(grid).reshape(-1, len(grid)), pb)) + mag_offset(pb)
@@ -203,14 +228,29 @@ def scaled_blackbody(teff, mag, band, ebv=0.0, law="G23", rv=3.1):
     return flam
 
 
-def _vega_shaped(mag, band):
+def template_spectrum(mag, band, ebv=0.0, law="G23", rv=3.1):
+    """The A0 V template (CALSPEC Vega) reddened by ``ebv`` and scaled to ``mag`` in ``band``.
+
+    Returns
+    -------
+    (wave, flam) : ndarray, ndarray
+        Å and erg s⁻¹ cm⁻² Å⁻¹; ``flam`` has shape (..., len(wave)) for
+        array ``mag``/``ebv``.
+    """
     from ..passbands import get_passband
 
     pb = get_passband(band)
     w, f = vega_spectrum()
-    m0 = -2.5 * np.log10(band_integral(w, f, pb)) + mag_offset(pb)
-    scale = 10.0 ** (-0.4 * (np.asarray(mag, float) - m0))
-    return w, f, scale
+    keep = (w >= 1000.0) & (w <= 300000.0)  # inside every extinction law's range; covers all passbands
+    w, f = w[keep], f[keep]
+    e = np.asarray(ebv, float)
+    if np.any(~np.isfinite(e)):
+        raise StelltempError("E(B-V) must be finite")
+    m, e = np.broadcast_arrays(np.asarray(mag, float), e)
+    red = f * _transmission(w, e, law, rv) if np.any(e != 0) else np.broadcast_to(f, e.shape + f.shape)
+    m0 = -2.5 * np.log10(band_integral(w, red.reshape(-1, len(w)), pb)).reshape(e.shape) + mag_offset(pb)
+    scale = 10.0 ** (-0.4 * (m - m0))
+    return w, scale[..., None] * red
 
 
 def star_electron_rate(instrument: Instrument, filter_name: str, mag, band=None, teff=None, airmass=1.0, ebv=0.0):
@@ -226,12 +266,12 @@ def star_electron_rate(instrument: Instrument, filter_name: str, mag, band=None,
     band : str or Passband, optional
         Band of ``mag`` (default: the filter's own passband).
     teff : float or array, optional
-        Blackbody temperature, K; None uses the Vega (A0 V) spectral shape.
+        Blackbody temperature, K; None uses the Vega (A0 V) template shape.
     airmass : float or array
         X (0 = above the atmosphere); broadcast with ``mag``/``teff``.
     ebv : float or array
-        E(B−V) of the star (with ``teff``): the blackbody is reddened (G23,
-        R_V = 3.1) and ``mag`` is its observed magnitude.
+        E(B−V) of the star: the blackbody (or the template) is reddened
+        (G23, R_V = 3.1) and ``mag`` is its observed magnitude.
 
     Returns
     -------
@@ -246,8 +286,10 @@ def star_electron_rate(instrument: Instrument, filter_name: str, mag, band=None,
     area = instrument.telescope.collecting_area_cm2
     ext = extinction_factor(spec.extinction_mag_per_airmass, airmass)
     if teff is None:
-        w, f, scale = _vega_shaped(mag, band)
-        rate = photon_integral(grid, np.interp(grid, w, f), eff) * scale
+        w, f = template_spectrum(mag, band, ebv)
+        f2 = f.reshape(-1, len(w))
+        flam = np.array([np.interp(grid, w, row) for row in f2]).reshape(f.shape[:-1] + grid.shape)
+        rate = photon_integral(grid, flam, eff)
     else:
         flam = scaled_blackbody(teff, mag, band, ebv)(grid)
         rate = photon_integral(grid, flam, eff)
@@ -286,6 +328,45 @@ def sky_electron_rate(instrument: Instrument, filter_name: str, sky_mag=None):
     mu = spec.sky_mag_arcsec2 if sky_mag is None else np.asarray(sky_mag, float)
     out = zero_point_rate(instrument, filter_name) * 10.0 ** (-0.4 * mu) * instrument.camera.binned_scale_arcsec**2
     return float(out) if np.ndim(out) == 0 else out
+
+
+#: colour assumption for moonlight: the Sun's spectrum (the lunar albedo and the scattering taken as grey)
+MOONLIGHT_COLOUR = ("scattered moonlight given the solar spectrum (Kurucz 1993), scaled to its V surface "
+                    "brightness: lunar albedo and atmospheric scattering taken as grey (real moonlit skies "
+                    "are somewhat bluer, Krisciunas & Schaefer 1991)")
+
+
+def moonlight_electron_rate(instrument: Instrument, filter_name: str, moon_v_arcsec2):
+    """Sky electrons per second per read-out pixel from scattered moonlight.
+
+    Parameters
+    ----------
+    moon_v_arcsec2 : float
+        V surface brightness of the moonlight alone at the target (mag
+        arcsec⁻², e.g. from `stelltemp.observing.moon.moonlight_vmag`);
+        ``inf`` or NaN-free large values give 0.
+
+    Notes
+    -----
+    The conversion to other filters follows `MOONLIGHT_COLOUR`: the solar
+    spectrum is scaled to ``moon_v_arcsec2`` in Johnson V and integrated
+    through the filter's natural band (no extinction: the brightness is the
+    one seen from the ground).
+    """
+    from ..reference import sun_spectrum
+
+    mu = float(moon_v_arcsec2)
+    if not math.isfinite(mu) and mu > 0:
+        return 0.0
+    if not math.isfinite(mu):
+        raise StelltempError("moonlight surface brightness must be a number (mag/arcsec2)")
+    w, f = sun_spectrum()
+    from ..passbands import get_passband
+
+    v = get_passband("V_JC")
+    m0 = -2.5 * np.log10(band_integral(w, f, v)) + mag_offset(v)
+    per_arcsec2 = electron_rate_spectrum(w, f * 10.0 ** (-0.4 * (mu - m0)), instrument, filter_name, airmass=0.0)
+    return per_arcsec2 * instrument.camera.binned_scale_arcsec**2
 
 
 def sky_airmass_brightening(airmass, k_mag_per_airmass):

@@ -20,11 +20,13 @@ the site.  Units are part of every key name, so a file reads on its own::
     bias_adu = 1000
     pixel_scale_arcsec = 0.62    # unbinned
     binning = 1
+    min_exposure_s = 1.0         # shortest exposure worth taking (default 1 s, see below)
 
     [[filter]]
     name = "V"
     passband = "V_JC"            # or: curve = "myfilter.ecsv"
-    peak_transmission = 0.90
+    curve_kind = "system"        # "system" (standard response, detector included) or "filter"
+    peak_transmission = 0.45     # peak of the whole filter x detector response here
     sky_mag_arcsec2 = 21.0
     extinction_mag_per_airmass = 0.20
 
@@ -33,17 +35,40 @@ the site.  Units are part of every key name, so a file reads on its own::
     longitude_deg = -20.0        # east positive
     elevation_m = 1200
     seeing_fwhm_arcsec = 2.5
+    utc_offset_hours = 1.0       # local civil time - UTC, for plans (default: nearest hour of longitude/15)
 
 Curve files are ECSV or CSV with a ``wavelength`` column (Å unless the ECSV
 column carries a unit) and a ``value`` column (a fraction 0–1).  Relative
 paths are taken from the directory of the instrument file.
 
-The filter's passband shape (its photon-counting response, peak 1) is taken
-as the relative transmission of the physical filter and scaled by
-``peak_transmission``.  Standard-system curves (e.g. Bessell's) already fold
-in a typical detector; set ``curve_includes_detector = true`` on a filter to
-skip the camera QE for it (``peak_transmission`` is then the peak of
-filter × QE).
+What a filter's curve contains, and so what multiplies it, is said by
+``curve_kind`` (each optical element is counted once):
+
+``"filter"``
+    The curve is the bare transmission of the physical filter.  Its shape
+    (photon-counting response, peak 1) is scaled by ``peak_transmission``
+    and multiplied by the mirrors, the other optics and the camera QE.
+    The default for a ``curve`` file.
+``"system"``
+    The curve is a standard-system response that already contains a
+    detector (Bessell's UBVRI, the SDSS, PS1, 2MASS and Gaia curves all do):
+    the default for every built-in ``passband`` key.  ``peak_transmission``
+    is then the peak of the whole filter × detector response of *your*
+    set-up, the telescope's mirrors and other optics still multiply it, and
+    the camera QE is **not** applied a second time.  If the standard
+    detector's QE is known, give it as ``reference_qe`` (inline) or
+    ``reference_qe_curve`` (file): the camera QE then enters only as the
+    ratio QE_camera(λ) / QE_reference(λ), which corrects the curve's shape
+    for your detector.  ``curve_includes_detector = true`` is the older
+    spelling of ``curve_kind = "system"``.
+
+``min_exposure_s`` (camera) is the shortest single exposure the plans will
+advise.  The default, 1 s, is typical of a mechanical shutter (whose opening
+and closing time is then below 1–2 % of the exposure) and of the point below
+which scintillation dominates small telescopes (common practice); a camera
+with an electronic shutter may set it lower.  Brighter stars get advice to
+cut the light (defocus, a smaller aperture stop or a neutral-density
+filter) by a stated factor instead of shorter exposures.
 
 Every problem raises :class:`stelltemp.errors.StelltempError` with one line
 naming the file, the key and, where it can be found, the line number.
@@ -170,6 +195,9 @@ class Camera:
         Unbinned pixel scale, arcsec per pixel.
     binning : int
         On-chip binning factor (n × n).
+    min_exposure_s : float
+        Shortest single exposure the plans advise, s (default 1 s, see the
+        module docstring).
     """
 
     qe: Curve
@@ -183,6 +211,7 @@ class Camera:
     pixel_scale_arcsec: float
     binning: int = 1
     name: str = ""
+    min_exposure_s: float = 1.0
 
     @property
     def binned_scale_arcsec(self) -> float:
@@ -213,7 +242,12 @@ class FilterSpec:
     extinction_mag_per_airmass : float
         Extinction coefficient k, mag per airmass.
     curve_includes_detector : bool
-        True when the curve already contains the detector QE.
+        True when the curve is a standard-system response that already
+        contains a detector (``curve_kind = "system"``).
+    reference_qe : Curve or None
+        QE of the standard detector contained in a system curve: the camera
+        QE then enters as the ratio to it.  None: the camera QE is not
+        applied to a system curve.
     """
 
     name: str
@@ -222,6 +256,7 @@ class FilterSpec:
     sky_mag_arcsec2: float
     extinction_mag_per_airmass: float
     curve_includes_detector: bool = False
+    reference_qe: Curve | None = None
     _cache: dict = field(default_factory=dict, compare=False, repr=False)
 
     @property
@@ -232,6 +267,28 @@ class FilterSpec:
 
             self._cache["pb"] = get_passband(self.passband_ref)
         return self._cache["pb"]
+
+    @property
+    def curve_kind(self) -> str:
+        """``"system"`` (standard response with a detector) or ``"filter"`` (bare filter)."""
+        return "system" if self.curve_includes_detector else "filter"
+
+    def qe_factor(self, camera_qe: Curve, wave):
+        """What the camera QE contributes at ``wave`` (Å) for this filter's curve.
+
+        The QE itself for a bare filter; the ratio to the reference detector
+        for a system curve with ``reference_qe`` (0 where the reference is
+        blind); 1 for a system curve without one.
+        """
+        w = np.asarray(wave, dtype=float)
+        if not self.curve_includes_detector:
+            return camera_qe(w)
+        if self.reference_qe is None:
+            return np.ones_like(w)
+        ref = self.reference_qe(w)
+        out = np.zeros_like(w)
+        np.divide(camera_qe(w), ref, out=out, where=ref > 0)
+        return out
 
 
 @dataclass(frozen=True)
@@ -246,6 +303,9 @@ class Site:
         Height above sea level, m.
     seeing_fwhm_arcsec : float
         Typical seeing FWHM at the zenith, arcsec.
+    utc_offset_hours : float or None
+        Local civil time minus UTC, hours (None: the nearest whole hour of
+        longitude / 15°, see `utc_offset`).
     """
 
     latitude_deg: float
@@ -253,6 +313,14 @@ class Site:
     elevation_m: float
     seeing_fwhm_arcsec: float
     name: str = ""
+    utc_offset_hours: float | None = None
+
+    @property
+    def utc_offset(self) -> tuple:
+        """(hours, how): local time − UTC and where it came from (the file or the longitude)."""
+        if self.utc_offset_hours is not None:
+            return float(self.utc_offset_hours), "utc_offset_hours in [site]"
+        return float(round(self.longitude_deg / 15.0)), "nearest hour of longitude/15 (no daylight saving)"
 
     def location(self):
         """The site as an :class:`astropy.coordinates.EarthLocation`."""
@@ -291,10 +359,12 @@ _TOP = {"title", "note", "telescope", "camera", "filter", "site"}
 _TELESCOPE = {"name", "aperture_m", "obstruction_m", "mirrors", "mirror_reflectivity", "reflectivity_curve",
               "other_throughput", "note"}
 _CAMERA = {"name", "qe", "qe_curve", "read_noise_e", "gain_e_per_adu", "dark_e_per_s", "full_well_e", "adc_bits",
-           "saturation_adu", "bias_adu", "pixel_scale_arcsec", "binning", "note"}
+           "saturation_adu", "bias_adu", "pixel_scale_arcsec", "binning", "min_exposure_s", "note"}
 _FILTER = {"name", "passband", "curve", "peak_transmission", "sky_mag_arcsec2", "extinction_mag_per_airmass",
-           "curve_includes_detector", "note"}
-_SITE = {"name", "latitude_deg", "longitude_deg", "elevation_m", "seeing_fwhm_arcsec", "note"}
+           "curve_includes_detector", "curve_kind", "reference_qe", "reference_qe_curve", "note"}
+_SITE = {"name", "latitude_deg", "longitude_deg", "elevation_m", "seeing_fwhm_arcsec", "utc_offset_hours", "note"}
+#: what a filter curve may contain (see the module docstring)
+CURVE_KINDS = ("filter", "system")
 
 _HEADER = re.compile(r"^\s*(\[\[?)\s*([A-Za-z0-9_.\-\"' ]+?)\s*\]\]?\s*(#.*)?$")
 _KEYLINE = re.compile(r"^\s*([A-Za-z0-9_\-]+)\s*=")
@@ -515,7 +585,8 @@ def _parse_camera(ctx, data) -> Camera:
         raise t.error("bias_adu", f"'bias_adu' = {bias:g} must be below the saturation level {sat:g} ADU")
     scale = t.number("pixel_scale_arcsec", required=True, lo=0, lo_open=True, hi=3600)
     binning = t.number("binning", default=1, lo=1, hi=64, integer=True)
-    return Camera(qe, rn, gain, dark, fw, bits, sat, bias, scale, binning, t.text("name", ""))
+    t_min = t.number("min_exposure_s", default=1.0, lo=0, lo_open=True, hi=3600)
+    return Camera(qe, rn, gain, dark, fw, bits, sat, bias, scale, binning, t.text("name", ""), t_min)
 
 
 def _parse_filter(ctx, data, index) -> FilterSpec:
@@ -531,7 +602,14 @@ def _parse_filter(ctx, data, index) -> FilterSpec:
     peak = t.number("peak_transmission", default=1.0, lo=0, hi=1, lo_open=True)
     sky = t.number("sky_mag_arcsec2", required=True, lo=5, hi=30, what=" (sky surface brightness)")
     k = t.number("extinction_mag_per_airmass", required=True, lo=0, hi=5)
-    spec = FilterSpec(name, ref, peak, sky, k, t.flag("curve_includes_detector"))
+    system = _curve_kind(ctx, t, name, ref_key)
+    ref_qe = _curve(ctx, t, "reference_qe", "reference_qe_curve", "zero", required=False)
+    if ref_qe is not None and not system:
+        raise t.error("reference_qe_curve" if t.has("reference_qe_curve") else "reference_qe",
+                      f"filter '{name}': a reference detector QE only applies to curve_kind = \"system\"")
+    if ref_qe is not None and not isinstance(ref_qe, Curve):  # one grey number
+        ref_qe = Curve(np.array([1000.0, 30000.0]), np.array([ref_qe, ref_qe]), "zero")
+    spec = FilterSpec(name, ref, peak, sky, k, system, ref_qe)
     try:  # resolve now so a bad key is reported with its line
         spec.passband
     except ImportError:
@@ -539,6 +617,21 @@ def _parse_filter(ctx, data, index) -> FilterSpec:
     except StelltempError as exc:
         raise t.error(ref_key, f"filter '{name}': {exc}") from None
     return spec
+
+
+def _curve_kind(ctx, t: _Table, name: str, ref_key: str) -> bool:
+    """True for a standard-system curve (detector included), from curve_kind / curve_includes_detector."""
+    default = "system" if ref_key == "passband" else "filter"
+    kind = t.text("curve_kind", None)
+    if kind is not None and kind not in CURVE_KINDS:
+        raise t.error("curve_kind", f"filter '{name}': curve_kind must be \"filter\" or \"system\", got {kind!r}")
+    if t.has("curve_includes_detector"):
+        old = "system" if t.flag("curve_includes_detector") else "filter"
+        if kind is not None and kind != old:
+            raise t.error("curve_includes_detector",
+                          f"filter '{name}': curve_includes_detector contradicts curve_kind = \"{kind}\"")
+        kind = old
+    return (kind or default) == "system"
 
 
 def _parse_site(ctx, data) -> Site:
@@ -549,7 +642,8 @@ def _parse_site(ctx, data) -> Site:
         lon -= 360.0
     elev = t.number("elevation_m", default=0.0, lo=-500, hi=9000)
     seeing = t.number("seeing_fwhm_arcsec", required=True, lo=0, lo_open=True, hi=30)
-    return Site(lat, lon, elev, seeing, t.text("name", ""))
+    offset = t.number("utc_offset_hours", default=None, lo=-14, hi=14)
+    return Site(lat, lon, elev, seeing, t.text("name", ""), offset)
 
 
 def parse_instrument(text: str, base_dir=None, source: str = "<instrument>") -> Instrument:

@@ -22,7 +22,7 @@ from __future__ import annotations
 import numpy as np
 
 __all__ = ["nl_from_vmag", "vmag_from_nl", "moon_illuminance", "scattering_function", "ks_airmass",
-           "moon_sky_brightness_nl", "moon_sky_vmag", "MIN_SEPARATION_DEG"]
+           "moon_sky_brightness_nl", "moon_sky_vmag", "moonlight_vmag", "MIN_SEPARATION_DEG"]
 
 #: below this Moon–target separation the scattering fit is not used (deg)
 MIN_SEPARATION_DEG = 10.0
@@ -92,3 +92,15 @@ def moon_sky_vmag(dark_vmag_zenith, phase_angle_deg, separation_deg, zenith_targ
     bm = moon_sky_brightness_nl(phase_angle_deg, separation_deg, zenith_target_deg, zenith_moon_deg, k_v)
     delta = -2.5 * np.log10((bm + b0) / b0)
     return vmag_from_nl(bm + b0), delta
+
+
+def moonlight_vmag(phase_angle_deg, separation_deg, zenith_target_deg, zenith_moon_deg, k_v):
+    """V surface brightness of the scattered moonlight alone, mag arcsec⁻².
+
+    ``inf`` with the Moon below the horizon, NaN within `MIN_SEPARATION_DEG`
+    of it.  Arguments as in `moon_sky_vmag`.
+    """
+    bm = np.asarray(moon_sky_brightness_nl(phase_angle_deg, separation_deg, zenith_target_deg, zenith_moon_deg,
+                                           k_v), float)
+    with np.errstate(divide="ignore"):
+        return np.where(bm > 0, vmag_from_nl(np.where(bm > 0, bm, 1.0)), np.where(np.isnan(bm), np.nan, np.inf))

@@ -184,9 +184,11 @@ class SaturationAdvice:
         ``"ok"``, ``"nonlinear"`` (above the headroom, below the hard limit)
         or ``"saturated"``.
     peak_e : float
-        Electrons in the brightest physical pixel (source + sky + dark).
+        Electrons in the brightest physical pixel (source + sky + dark),
+        clipped at the full well as the detector would hold them.
     peak_adu : float
-        ADU of the brightest read-out (binned) pixel, bias included.
+        ADU of the brightest read-out (binned) pixel, bias included, clipped
+        at the ADC's largest value as the converter would report it.
     limit_s : float
         Longest exposure that stays within the headroom, s.
     n_exposures : int
@@ -197,6 +199,13 @@ class SaturationAdvice:
         n_exposures × exposure_s.
     message : str
         One-line advice ('' when all is well).
+    peak_excess : float
+        Unclipped peak over the hard limit (the larger of e⁻/full well and
+        ADU/ADC maximum); above 1 the pixel is clipped by that factor.
+    light_factor : float
+        Factor by which the peak light must be cut (ND filter, aperture stop
+        or defocus) because even the shortest allowed exposure passes the
+        headroom; 1 when no cut is needed.
     """
 
     status: str
@@ -207,6 +216,8 @@ class SaturationAdvice:
     exposure_s: float
     total_s: float
     message: str
+    peak_excess: float = 0.0
+    light_factor: float = 1.0
 
 
 def _pixel_rates(source_rate, fwhm, pixel_arcsec, binning, sky_rate_binned, dark_rate_binned, profile, beta):
@@ -266,10 +277,24 @@ def time_to_limit(source_rate, fwhm, pixel_arcsec, sky_rate_binned, dark_rate_bi
                        gain_e_per_adu, saturation_adu, bias_adu, binning, headroom, profile, beta))
 
 
+def _frames_for(goal, each_s, args):
+    """Smallest number of ``each_s`` frames whose stack reaches S/N ``goal`` (0 if it never does)."""
+    one = float(ccd.snr(each_s, *args))
+    if not (one > 0):
+        return 0
+    n = max(1, math.ceil((goal / one) ** 2) - 1)
+    while float(ccd.snr(each_s, *args, n_exposures=n)) < goal * (1 - 1e-12):
+        n += 1
+        if n > 10**7:
+            return 0
+    return n
+
+
 def saturation_advice(exposure_s, target_snr, source_rate, aperture_rate, sky_rate_binned, dark_rate_binned,
                       read_noise_e, n_pix, n_background, fwhm, pixel_arcsec, full_well_e, gain_e_per_adu,
                       saturation_adu, bias_adu=0.0, binning=1, scint_coeff=0.0, headroom=DEFAULT_HEADROOM,
-                      profile="moffat", beta=MOFFAT_BETA_TURBULENCE, warn=True):
+                      profile="moffat", beta=MOFFAT_BETA_TURBULENCE, warn=True, min_exposure_s=0.0,
+                      aperture_m=None):
     """Check one planned exposure for saturation and suggest a split if needed.
 
     When the exposure passes the headroom, the advice is the smallest number
@@ -295,6 +320,15 @@ def saturation_advice(exposure_s, target_snr, source_rate, aperture_rate, sky_ra
         Relative scintillation for 1 s (`ccd.scintillation_coefficient`).
     warn : bool
         Also issue a :class:`SaturationWarning` when the plan needs changing.
+    min_exposure_s : float
+        Shortest exposure that may be advised (the camera's
+        ``min_exposure_s``).  When the split frames would have to be
+        shorter, the advice is to cut the light by the factor needed —
+        a neutral-density filter, a smaller aperture stop (``aperture_m``
+        gives the stopped-down diameter) or defocusing — and to take frames
+        of ``min_exposure_s``.
+    aperture_m : float, optional
+        Telescope aperture, m (for the aperture-stop advice).
 
     Returns
     -------
@@ -303,22 +337,43 @@ def saturation_advice(exposure_s, target_snr, source_rate, aperture_rate, sky_ra
     t = _positive("exposure time", exposure_s)
     phys, read = _pixel_rates(source_rate, fwhm, pixel_arcsec, binning, sky_rate_binned, dark_rate_binned,
                               profile, beta)
-    peak_e = phys * t
-    peak_adu = read * t / gain_e_per_adu + bias_adu
+    raw_e = phys * t
+    raw_adu = read * t / gain_e_per_adu + bias_adu
+    excess = max(raw_e / full_well_e, raw_adu / saturation_adu)
+    peak_e, peak_adu = min(raw_e, full_well_e), min(raw_adu, saturation_adu)
     t_fw, t_adc = _limits(source_rate, fwhm, pixel_arcsec, sky_rate_binned, dark_rate_binned, full_well_e,
                           gain_e_per_adu, saturation_adu, bias_adu, binning, headroom, profile, beta)
     limit = min(t_fw, t_adc)
-    hard = peak_e >= full_well_e or peak_adu >= saturation_adu
+    hard = excess >= 1.0
     if t <= limit:
-        return SaturationAdvice("ok", peak_e, peak_adu, limit, 1, t, t, "")
+        return SaturationAdvice("ok", peak_e, peak_adu, limit, 1, t, t, "", excess)
     status = "saturated" if hard else "nonlinear"
+    clip = f" (clipped: the unclipped peak is {excess:.3g} x the limit)" if hard else ""
     args = (aperture_rate, sky_rate_binned, dark_rate_binned, read_noise_e, n_pix, n_background, gain_e_per_adu,
             ccd.SIGMA_F_ADU, scint_coeff)
     goal = float(target_snr) if target_snr is not None else float(ccd.snr(t, *args))
+    where = "the full well" if t_fw <= t_adc else "the ADC range"
+    t_min = float(min_exposure_s)
     if limit <= 0:
         msg = (f"{status}: the bias level alone is above {headroom:.0%} of the ADC range; "
                "no exposure time avoids it")
-        advice = SaturationAdvice(status, peak_e, peak_adu, 0.0, 0, math.nan, math.nan, msg)
+        advice = SaturationAdvice(status, peak_e, peak_adu, 0.0, 0, math.nan, math.nan, msg, excess, math.inf)
+    elif limit < t_min:
+        factor = t_min / limit
+        cut = [f"a neutral-density filter of density {math.log10(factor):.2g} or more"]
+        if aperture_m:
+            cut.append(f"an aperture stop of {aperture_m / math.sqrt(factor):.3g} m or less "
+                       f"(the full {aperture_m:.3g} m passes {factor:.3g} x too much light)")
+        cut.append(f"defocusing until the peak pixel is {factor:.3g} x fainter")
+        dimmed = (aperture_rate / factor, sky_rate_binned / factor) + args[2:]
+        n = _frames_for(goal, t_min, dimmed)
+        frames = (f"; through the filter or stop take {n} x {t_min:.3g} s (total {n * t_min:.3g} s) "
+                  f"for S/N {goal:.3g}" if n else "")
+        msg = (f"{status}: a {t:.3g} s exposure passes {headroom:.0%} of {where} after {limit:.3g} s, "
+               f"shorter than the {t_min:.3g} s minimum exposure{clip}; cut the light by {factor:.3g} x: "
+               + ", or ".join(cut) + frames)
+        advice = SaturationAdvice(status, peak_e, peak_adu, limit, n, t_min, n * t_min if n else math.nan, msg,
+                                  excess, factor)
     else:
         def per_exposure(n):
             return float(ccd.stack_exposure_for_snr(goal, n, *args))
@@ -336,10 +391,12 @@ def saturation_advice(exposure_s, target_snr, source_rate, aperture_rate, sky_ra
                 hi = mid
         n = hi
         each = per_exposure(n)
-        where = "the full well" if t_fw <= t_adc else "the ADC range"
-        msg = (f"{status}: a {t:.3g} s exposure passes {headroom:.0%} of {where} after {limit:.3g} s (peak {peak_e:.3g} e-, {peak_adu:.0f} ADU); "
-               f"take {n} x {each:.3g} s (total {n * each:.3g} s) for the same S/N {goal:.3g}")
-        advice = SaturationAdvice(status, peak_e, peak_adu, limit, n, each, n * each, msg)
+        if each < t_min:  # frames at the minimum, as many as the S/N needs (never shorter than allowed)
+            each = t_min
+            n = _frames_for(goal, t_min, args)
+        msg = (f"{status}: a {t:.3g} s exposure passes {headroom:.0%} of {where} after {limit:.3g} s"
+               f"{clip}; take {n} x {each:.3g} s (total {n * each:.3g} s) for the same S/N {goal:.3g}")
+        advice = SaturationAdvice(status, peak_e, peak_adu, limit, n, each, n * each, msg, excess)
     if warn:
         warnings.warn(advice.message, SaturationWarning, stacklevel=2)
     return advice

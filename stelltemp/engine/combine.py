@@ -1,0 +1,492 @@
+"""Calibrated effective temperature from several colours, with their full covariance.
+
+Each empirical relation i (:mod:`stelltemp.calibrations`) turns one
+dereddened colour X_i = m_blue − m_red − ΔC_i(E) into a temperature T_i.
+The relations of one star are not independent: colours share bands (six of
+the eight Casagrande et al. 2010 colours contain V), they share one
+reddening and one [Fe/H].  Linearised about the nominal inputs,
+
+    T_i = T + v_i (E − E_lin) + s_i D_i·δm + g_i δ[Fe/H] + ε_i
+
+with s_i = ∂T_i/∂X_i, v_i = s_i ∂ΔC_i/∂E (the reddening vector of the
+colour, from a blackbody at the star's colour temperature through the
+passbands), D_i the ±1 row picking the two bands, g_i = ∂T_i/∂[Fe/H] and
+ε_i the relation's published scatter.  The covariance of the T_i is
+
+    C = S D Σ_m Dᵀ S + g gᵀ σ_[Fe/H]² + Σ_scatter  [+ v vᵀ σ_E²  when E(B−V) is given]
+
+where Σ_scatter is diagonal between different relations (independent
+calibrations) but a relation that enters twice keeps its full scatter
+(σ_i σ_j for the same relation key).  The estimate is generalised least
+squares (Aitken 1935, Proc. R. Soc. Edinburgh 55, 42):
+
+* E(B−V) given (with its error): one parameter T, design column of ones;
+  T̂ = (1ᵀC⁻¹y)/(1ᵀC⁻¹1), var T̂ = 1/(1ᵀC⁻¹1).
+* E(B−V) fitted from the calibrations: parameters (T, E), design columns
+  (1, v), with the given E(B−V) ± σ_E as a prior when σ_E > 0 and no prior
+  otherwise (then three or more relations are needed); iterated about the
+  new E so the dereddening stays exact.  This is the reddening that makes
+  the colours agree.
+
+χ² = rᵀC⁻¹r (+ the prior term) with n_used − n_par (+1 with a prior)
+degrees of freedom measures whether the colours of one star agree within
+their errors.
+
+The Monte Carlo path draws the same quantities (magnitudes, E(B−V),
+[Fe/H], one scatter term per relation), evaluates every relation exactly
+at the drawn colour, and applies the same linear estimator; its 68 %
+interval agrees with the analytic one where the relations are close to
+linear over the errors.
+
+Not included: the error of the blackbody colour temperature at which the
+colour excess is evaluated (a second-order effect: ΔC changes by < 0.01
+mag per 1,000 K at E(B−V) = 1), and correlations between the scatters of
+different relations calibrated on the same stars.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .. import bandgrid as bg
+from ..calibrations import coverage_notes, relations
+from . import flags as fl
+
+#: Gauss–Newton iterations: each linearises the relations at the current T_eff (and, when
+#: E(B−V) is fitted, re-evaluates the colour excess exactly at the current E(B−V))
+_ITERATIONS = 6
+#: Newton steps inverting a relation (T_eff → colour) at the current estimate
+_INVERSE_STEPS = 4
+#: relations needed to fit E(B−V) from the calibrations alone (no prior)
+MIN_RELATIONS_FREE_EBV = 3
+
+
+@dataclass
+class CalibratedTeff:
+    """Per-star result of :func:`calibrated_teff` (arrays over stars).
+
+    Attributes
+    ----------
+    teff, teff_err : ndarray
+        GLS T_eff and its 1σ error, K (NaN where no relation applied).
+    teff_lo, teff_hi : ndarray
+        68 % interval, K: teff ∓ teff_err, or the Monte Carlo percentiles.
+    ebv, ebv_err : ndarray
+        E(B−V) fitted from the calibrations and its error, mag (NaN unless fitted).
+    chi2, dof : ndarray
+        Agreement of the relations: χ² of the combination and its degrees of
+        freedom (NaN / 0 when dof = 0).
+    p_value : ndarray
+        P(χ²_dof ≥ chi2); NaN when dof = 0.
+    n_used : ndarray of int
+    used : ndarray of bool, shape (n_stars, n_relations)
+    keys : tuple of str
+        Relation keys of the columns of ``used``, ``teff_each``, ``err_each``.
+    teff_each, err_each : ndarray, shape (n_stars, n_relations)
+        Each relation's own temperature and its total 1σ error (photometry,
+        E(B−V) when given, [Fe/H], scatter), K; NaN where not used.
+    outside : ndarray of bool
+        A relation had the colour but the star is outside its range.
+    notes : ndarray of str
+        Per star, the luminosity class assumed and why no relation applied
+        ('' when there is nothing to say).
+    """
+
+    teff: np.ndarray
+    teff_err: np.ndarray
+    teff_lo: np.ndarray
+    teff_hi: np.ndarray
+    ebv: np.ndarray
+    ebv_err: np.ndarray
+    chi2: np.ndarray
+    dof: np.ndarray
+    p_value: np.ndarray
+    n_used: np.ndarray
+    used: np.ndarray
+    keys: tuple
+    teff_each: np.ndarray
+    err_each: np.ndarray
+    outside: np.ndarray
+    notes: np.ndarray
+
+    @property
+    def flags(self):
+        """OUTSIDE_CALIBRATION and NO_CALIBRATION bits, one integer per star."""
+        mask = np.where(self.outside, fl.OUTSIDE_CALIBRATION, 0).astype(np.int64)
+        mask |= np.where(self.n_used == 0, fl.NO_CALIBRATION, 0)
+        return mask
+
+    def used_names(self):
+        """Comma-separated relation keys used, per star."""
+        keys = np.array(self.keys, dtype=object)
+        return np.array([",".join(keys[row]) for row in self.used], dtype=str) if len(self.keys) \
+            else np.full(len(self.teff), "", dtype=str)
+
+
+def candidate_relations(keys):
+    """Relations whose two passbands are among ``keys`` (in registry order)."""
+    have = set(keys)
+    return tuple(r for r in relations() if r.blue in have and r.red in have)
+
+
+def colour_excess(keys, t_bb, ebv, law, rv):
+    """Per band: excess ΔM = M(T, E) − M(T, 0), ∂M/∂E and ∂ΔM/∂ln T, arrays (n_stars, n_bands)."""
+    n = len(t_bb)
+    lnt = np.log(np.where(np.isfinite(t_bb), t_bb, 5800.0))
+    e_used = np.clip(np.where(np.isfinite(ebv), ebv, 0.0), bg.E_MIN, bg.E_MAX)
+    ex = np.empty((n, len(keys)))
+    de = np.empty((n, len(keys)))
+    dt = np.empty((n, len(keys)))
+    for b, key in enumerate(keys):
+        table = bg.band_table(key, law, rv)
+        reddened, dt_red, de[:, b] = table.evaluate(lnt, e_used)
+        intrinsic, dt_int, _ = table.evaluate(lnt, np.zeros(n), want_de=False)
+        ex[:, b] = reddened - intrinsic
+        dt[:, b] = dt_red - dt_int
+    return ex, de, dt
+
+
+class _Setup:
+    """The relations of a run and the fixed matrices that describe them."""
+
+    def __init__(self, keys):
+        self.rels = candidate_relations(keys)
+        index = {k: i for i, k in enumerate(keys)}
+        r = len(self.rels)
+        self.blue = np.array([index[rel.blue] for rel in self.rels], dtype=np.intp)
+        self.red = np.array([index[rel.red] for rel in self.rels], dtype=np.intp)
+        self.pick = np.zeros((r, len(keys)))  # D: colour = D · m
+        self.pick[np.arange(r), self.blue] += 1.0
+        self.pick[np.arange(r), self.red] -= 1.0
+        # a relation entered twice keeps its full scatter: σ_i σ_j for the same key
+        self.same = np.array([[a.key == b.key for b in self.rels] for a in self.rels],
+                             bool).reshape(r, r)
+        # one scatter draw per distinct relation key (Monte Carlo)
+        unique = {}
+        self.scatter_slot = np.array([unique.setdefault(rel.key, len(unique)) for rel in self.rels],
+                                     dtype=np.intp)
+        self.n_slots = len(unique)
+
+
+def _scatter(setup, t):
+    """Each relation's published scatter at the stars' temperatures, K, shape (n, r)."""
+    t = np.where(np.isfinite(t), t, 5800.0)
+    return np.column_stack([rel.scatter_at(t) for rel in setup.rels])
+
+
+def _evaluate(setup, m, ex, de, dt, feh, logg):
+    """Each relation at the dereddened colours: T_i, slopes, reddening vectors, mask."""
+    n = m.shape[0]
+    r = len(setup.rels)
+    x = m[:, setup.blue] - m[:, setup.red] - (ex[:, setup.blue] - ex[:, setup.red])
+    kx = de[:, setup.blue] - de[:, setup.red]
+    kt = dt[:, setup.blue] - dt[:, setup.red]
+    t = np.full((n, r), np.nan)
+    s = np.full((n, r), np.nan)
+    g = np.full((n, r), np.nan)
+    used = np.zeros((n, r), bool)
+    outside = np.zeros(n, bool)
+    for i, rel in enumerate(setup.rels):
+        cand = rel.applies_to(logg) & np.isfinite(x[:, i])
+        ti, inside = rel.teff(x[:, i], feh, logg)
+        si = rel.dteff_dcolour(x[:, i], feh, logg)
+        gi = rel.dteff_dfeh(x[:, i], feh, logg)
+        ok = cand & inside & np.isfinite(ti) & np.isfinite(si)
+        outside |= cand & ~ok
+        used[:, i] = ok
+        t[:, i] = np.where(ok, ti, np.nan)
+        s[:, i] = np.where(ok, si, 0.0)
+        g[:, i] = np.where(ok & np.isfinite(gi), gi, 0.0)
+    return x, kx, kt, t, s, g, used, outside
+
+
+def _linearise_at(setup, t_hat, x, y, s, g, used, feh, logg):
+    """Relations linearised at the colour each would give at the current T_eff.
+
+    Slopes taken at the observed colour make the weights depend on the
+    noise and bias the combination; taken at the model colour X_m = f⁻¹(T̂)
+    the pseudo-observation ỹ = T̂ + s(X_m)·(X − X_m) is linear in the data
+    (Gauss–Newton in colour space).  Where the inversion leaves the
+    relation's range, the observed-colour values are kept.
+    """
+    y, s, g = y.copy(), s.copy(), g.copy()
+    for i, rel in enumerate(setup.rels):
+        rows = np.nonzero(used[:, i] & np.isfinite(t_hat))[0]
+        if rows.size == 0:
+            continue
+        target = t_hat[rows]
+        z = feh[rows]
+        lg = logg[rows]
+        lo, hi = rel.colour_range
+        xm = np.clip(x[rows, i], lo, hi)
+        for _ in range(_INVERSE_STEPS):
+            ti, _ = rel.teff(xm, z, lg)
+            si = rel.dteff_dcolour(xm, z, lg)
+            with np.errstate(invalid="ignore", divide="ignore"):
+                xm = np.clip(xm + (target - ti) / si, lo, hi)
+        ti, inside = rel.teff(xm, z, lg)
+        si = rel.dteff_dcolour(xm, z, lg)
+        gi = rel.dteff_dfeh(xm, z, lg)
+        good = inside & (np.abs(ti - target) < 0.5) & np.isfinite(si)
+        rows, xm, si, gi = rows[good], xm[good], si[good], gi[good]
+        y[rows, i] = t_hat[rows] + si * (x[rows, i] - xm)
+        s[rows, i] = si
+        g[rows, i] = np.where(np.isfinite(gi), gi, 0.0)
+    return y, s, g
+
+
+def _covariance(setup, s, g, used, sig_m, feh_err, scatter):
+    """C without the reddening term; unused rows and columns replaced by the identity."""
+    var_m = np.where(np.isfinite(sig_m), sig_m, 0.0) ** 2
+    phot = np.einsum("ib,nb,jb->nij", setup.pick, var_m, setup.pick)
+    c = s[:, :, None] * s[:, None, :] * phot
+    c += np.where(setup.same[None], scatter[:, :, None] * scatter[:, None, :], 0.0)
+    c += g[:, :, None] * g[:, None, :] * (feh_err**2)[:, None, None]
+    both = used[:, :, None] & used[:, None, :]
+    eye = np.eye(len(setup.rels))[None]
+    return np.where(both, c, 0.0) + np.where(used[:, :, None], 0.0, eye)
+
+
+def _gls(c, design, y, used, prior_prec, prior_d):
+    """Generalised least squares per star, with an optional Gaussian prior on parameter 1.
+
+    Returns estimate (n, p), covariance (n, p, p), χ², and the linear
+    estimator: estimate = Ly @ y + Lp · prior_d.
+    """
+    n, r, p = design.shape
+    ci = np.linalg.inv(c)
+    a = np.where(used[:, :, None], design, 0.0)
+    yy = np.where(used, y, 0.0)
+    cia = ci @ a
+    info = np.einsum("nri,nrj->nij", a, cia)
+    if p > 1:
+        info[:, 1, 1] += prior_prec
+    ok = np.linalg.det(info) > 0
+    info[~ok] = np.eye(p)
+    cov = np.linalg.inv(info)
+    ly = cov @ np.swapaxes(cia, 1, 2)  # (n, p, r)
+    lp = cov[:, :, 1] * prior_prec[:, None] if p > 1 else np.zeros((n, p))
+    est = np.einsum("npr,nr->np", ly, yy) + lp * prior_d[:, None]
+    resid = np.where(used, yy - np.einsum("nrp,np->nr", a, est), 0.0)
+    chi2 = np.einsum("nr,nrs,ns->n", resid, ci, resid)
+    if p > 1:
+        chi2 = chi2 + prior_prec * (est[:, 1] - prior_d) ** 2
+    est[~ok] = np.nan
+    cov[~ok] = np.nan
+    return est, cov, chi2, ly, lp
+
+
+def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=None, feh_err=None,
+                    logg=None, law="G23", rv=3.1, monte_carlo=0, seed=None):
+    """T_eff from every calibrated colour of each star, combined with their full covariance.
+
+    Parameters
+    ----------
+    m, sig_m : ndarray, shape (n_stars, n_bands)
+        Observed magnitudes (NaN: not measured) and their 1σ errors, mag.
+    keys : sequence of str
+        Passband keys of the columns.
+    t_bb : ndarray (n_stars,)
+        Blackbody colour temperature, K, at which the colour excess of the
+        reddening law is evaluated through the passbands.
+    ebv, ebv_err : ndarray (n_stars,)
+        E(B−V) and its 1σ error, mag.  With ``fit_ebv`` they are the prior
+        (σ_E = 0: no prior).
+    fit_ebv : bool
+        Fit E(B−V) from the calibrations (the reddening that makes the
+        colours agree).
+    feh, feh_err : ndarray or None
+        [Fe/H] and its 1σ error, dex (None/NaN: solar, 0.0, without error).
+    logg : ndarray or None
+        log g (cgs); None/NaN: dwarf relations.
+    law, rv
+        Extinction law and R_V.
+    monte_carlo : int
+        Draws per star for the Monte Carlo interval (0: analytic).
+    seed : int or None
+
+    Returns
+    -------
+    CalibratedTeff
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> m = np.array([[10.64, 10.0, 8.5]])  # B, V, Ks of a solar-type star
+    >>> res = calibrated_teff(m, np.full((1, 3), 0.02), ["B_JC", "V_JC", "Ks_2MASS"],
+    ...                       np.array([5800.0]), np.array([0.0]), np.array([0.0]))
+    >>> res.keys, int(res.n_used[0])
+    (('c10_bv', 'c10_vk'), 2)
+    >>> 5600 < res.teff[0] < 5900 and 20 < res.teff_err[0] < 40
+    True
+    """
+    m = np.asarray(m, float)
+    sig_m = np.asarray(sig_m, float)
+    n = m.shape[0]
+    setup = _Setup(keys)
+    r = len(setup.rels)
+    ebv = np.where(np.isfinite(ebv), ebv, 0.0)
+    ebv_err = np.where(np.isfinite(ebv_err) & (ebv_err > 0), ebv_err, 0.0)
+    feh_err = np.zeros(n) if feh_err is None else np.where(np.isfinite(feh_err), feh_err, 0.0)
+    feh_given = feh
+    feh = np.zeros(n) if feh is None else np.where(np.isfinite(feh), feh, 0.0)
+    logg = np.full(n, np.nan) if logg is None else np.broadcast_to(np.asarray(logg, float), (n,))
+    nan = np.full(n, np.nan)
+    if r == 0:
+        note = "no calibration: no calibrated colour among these passbands"
+        return CalibratedTeff(nan, nan, nan, nan, nan, nan, nan, np.zeros(n, int), nan,
+                              np.zeros(n, int), np.zeros((n, 0), bool), (), np.zeros((n, 0)),
+                              np.zeros((n, 0)), np.zeros(n, bool), np.full(n, note))
+
+    prior_prec = np.where(ebv_err > 0, 1.0 / np.where(ebv_err > 0, ebv_err, 1.0) ** 2, 0.0)
+    e_lin = ebv.copy()
+    t_ref = np.where(np.isfinite(t_bb) & (t_bb > 0), t_bb, 5800.0)
+    free = fit_ebv & (prior_prec == 0)
+    if np.any(free):
+        e_lin = np.where(free, _start_ebv(setup, m, sig_m, keys, t_ref, feh, feh_err, logg, law, rv),
+                         e_lin)
+    t_hat = None
+    for it in range(_ITERATIONS):
+        if it:
+            # the excess of a blackbody at the current T_eff, not at T_bb (which can be far off,
+            # and is noisy: the excess changes by 0.02-0.05 mag per 1,000 K at E(B-V) = 1)
+            t_ref = np.where(np.isfinite(t_hat), t_hat, t_ref)
+        ex, de, dt = colour_excess(keys, t_ref, e_lin, law, rv)
+        x, kx, kt, y, s, g, used, outside = _evaluate(setup, m, ex, de, dt, feh, logg)
+        if t_hat is not None:
+            y, s, g = _linearise_at(setup, t_hat, x, y, s, g, used, feh, logg)
+        sc = _scatter(setup, t_ref)
+        v = s * kx
+        # the excess itself depends on T: ∂T_i/∂T = 1 + s_i ∂ΔC_i/∂T (about t_ref)
+        a = np.where(used, 1.0 + s * kt / t_ref[:, None], 1.0)
+        y = y - (1.0 - a) * t_ref[:, None]
+        c = _covariance(setup, s, g, used, sig_m, feh_err, sc)
+        n_used = used.sum(axis=1)
+        if fit_ebv:
+            design = np.stack([a, v], axis=-1)
+            est, cov, chi2, ly, lp = _gls(c, design, y, used, prior_prec, ebv - e_lin)
+            bad = (n_used == 0) | ((prior_prec == 0) & (n_used < MIN_RELATIONS_FREE_EBV))
+            step_e = np.where(bad | ~np.isfinite(est[:, 1]), 0.0, est[:, 1])
+        else:
+            # the given E(B-V) and its error: one shared term of every relation
+            vv = np.where(used, v, 0.0)
+            c = c + vv[:, :, None] * vv[:, None, :] * (ebv_err**2)[:, None, None]
+            est, cov, chi2, ly, lp = _gls(c, a[:, :, None], y, used, np.zeros(n), np.zeros(n))
+            bad = n_used == 0
+            step_e = np.zeros(n)
+        new_t = np.where(bad, np.nan, est[:, 0])
+        step_t = np.zeros(n) if t_hat is None else np.where(np.isfinite(new_t - t_hat), new_t - t_hat, 0.0)
+        done = t_hat is not None and np.all(np.abs(step_t) < 0.01) and np.all(np.abs(step_e) < 1e-6)
+        if done or it == _ITERATIONS - 1:
+            break
+        t_hat = new_t
+        e_lin = np.clip(e_lin + step_e, bg.E_MIN, bg.E_MAX)
+
+    teff = np.where(bad, np.nan, est[:, 0])
+    teff_err = np.where(bad, np.nan, np.sqrt(cov[:, 0, 0]))
+    n_par = 2 if fit_ebv else 1
+    dof = np.where(bad, 0, n_used - n_par + (fit_ebv & (prior_prec > 0)))
+    dof = np.maximum(dof, 0)
+    chi2 = np.where(dof > 0, chi2, np.nan)
+    from scipy.stats import chi2 as chi2_dist
+
+    with np.errstate(invalid="ignore"):
+        p_value = np.where(dof > 0, chi2_dist.sf(chi2, np.maximum(dof, 1)), np.nan)
+    if fit_ebv:
+        ebv_fit = np.where(bad, np.nan, e_lin + est[:, 1])
+        ebv_fit_err = np.where(bad, np.nan, np.sqrt(cov[:, 1, 1]))
+    else:
+        ebv_fit = ebv_fit_err = nan
+    err_each = np.where(used, np.sqrt(np.einsum("nii->ni", c)), np.nan)
+    teff_each = np.where(used, y, np.nan)
+
+    lo, hi = teff - teff_err, teff + teff_err
+    if monte_carlo and np.any(~bad):
+        lo, hi = _monte_carlo(setup, int(monte_carlo), seed, teff, x, kx, s, used, sig_m, feh,
+                              feh_err, logg, sc, ebv_err, fit_ebv, ly, lp)
+        lo = np.where(bad, np.nan, lo)
+        hi = np.where(bad, np.nan, hi)
+
+    notes = _notes(setup, x, logg, feh_given, fit_ebv, prior_prec, n_used)
+    return CalibratedTeff(teff, teff_err, lo, hi, ebv_fit, ebv_fit_err, chi2, dof, p_value, n_used,
+                          used, tuple(rel.key for rel in setup.rels), teff_each, err_each,
+                          outside, notes)
+
+
+#: E(B−V) grid, mag, scanned for the start of a fit without a prior
+_START_GRID = np.arange(0.0, 3.01, 0.1)
+
+
+def _start_ebv(setup, m, sig_m, keys, t_ref, feh, feh_err, logg, law, rv):
+    """Per star, the grid E(B−V) where the most relations apply and agree best (χ² at fixed E)."""
+    n = m.shape[0]
+    best = np.full(n, -np.inf)
+    start = np.zeros(n)
+    for e in _START_GRID:
+        ex, de, dt = colour_excess(keys, t_ref, np.full(n, e), law, rv)
+        _, _, _, y, s, g, used, _ = _evaluate(setup, m, ex, de, dt, feh, logg)
+        c = _covariance(setup, s, g, used, sig_m, feh_err, _scatter(setup, t_ref))
+        _, _, chi2, _, _ = _gls(c, np.ones(y.shape + (1,)), y, used, np.zeros(n), np.zeros(n))
+        score = used.sum(axis=1) * 1e6 - np.where(np.isfinite(chi2), chi2, 1e5)
+        better = score > best
+        best = np.where(better, score, best)
+        start = np.where(better, e, start)
+    return start
+
+
+def _monte_carlo(setup, samples, seed, teff, x, kx, s, used, sig_m, feh, feh_err, logg, scatter,
+                 ebv_err, fit_ebv, ly, lp):
+    """16th and 84th percentiles of the linear estimator over drawn inputs."""
+    rng = np.random.default_rng(seed)
+    n, r = x.shape
+    nb = sig_m.shape[1]
+    lo = np.full(n, np.nan)
+    hi = np.full(n, np.nan)
+    block = max(1, 200_000 // samples)
+    for start in range(0, n, block):
+        sl = slice(start, min(n, start + block))
+        k = sl.stop - sl.start
+        dm = rng.standard_normal((k, samples, nb)) * np.where(np.isfinite(sig_m[sl]), sig_m[sl], 0)[:, None, :]
+        de = rng.standard_normal((k, samples)) * ebv_err[sl, None]
+        dz = rng.standard_normal((k, samples)) * feh_err[sl, None]
+        eps = rng.standard_normal((k, samples, setup.n_slots))
+        dx = np.einsum("ib,ksb->ksi", setup.pick, dm)
+        if not fit_ebv:
+            dx = dx - kx[sl, None, :] * de[:, :, None]
+        z = feh[sl, None] + dz
+        est = np.zeros((k, samples))  # change of the estimate from the nominal data
+        for i, rel in enumerate(setup.rels):
+            u = used[sl, i]
+            if not u.any():
+                continue
+            x0 = x[sl, i, None]
+            lg = logg[sl, None]
+            t0, _ = rel.teff(x0, feh[sl, None], lg)
+            xi = x0 + dx[:, :, i]
+            ti, inside = rel.teff(xi, z, lg)
+            # a draw past the end of the validity range: the tangent at the nominal colour
+            lin = t0 + s[sl, i, None] * (xi - x0)
+            ti = np.where(inside & np.isfinite(ti), ti, lin) - t0
+            ti = ti + scatter[sl, i, None] * eps[:, :, setup.scatter_slot[i]]
+            est += np.where(u[:, None], ly[sl, 0, i, None] * np.nan_to_num(ti), 0.0)
+        if fit_ebv:
+            est += lp[sl, 0, None] * de
+        q_lo, q_hi = np.percentile(est, [15.865, 84.135], axis=1)
+        lo[sl], hi[sl] = teff[sl] + q_lo, teff[sl] + q_hi
+    return lo, hi
+
+
+def _notes(setup, x, logg, feh, fit_ebv, prior_prec, n_used):
+    """Per star: the class assumed and why no relation applied (`calibrations.coverage_notes`)."""
+    colours = {}
+    for i, rel in enumerate(setup.rels):
+        colours.setdefault(rel.bands, x[:, i])
+    notes = coverage_notes(colours, feh=feh, logg=logg, applied=n_used > 0).astype(object)
+    short = fit_ebv & (prior_prec == 0) & (n_used > 0) & (n_used < MIN_RELATIONS_FREE_EBV)
+    for j in np.nonzero(short)[0]:
+        text = (f"no calibration: E(B-V) from the calibrations needs {MIN_RELATIONS_FREE_EBV} "
+                f"colours or an E(B-V) prior; {n_used[j]} usable")
+        notes[j] = f"{notes[j]}; {text}" if notes[j] else text
+    return notes.astype(str)

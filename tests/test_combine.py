@@ -1,0 +1,138 @@
+"""Calibrated T_eff with the full covariance, flags with severities, recorded assumptions."""
+
+import numpy as np
+import pytest
+
+from stelltemp.engine import estimate
+from stelltemp.engine import flags as fl
+from stelltemp.engine.combine import calibrated_teff
+from stelltemp.engine.notes import RowNotes
+
+from test_coverage import EBV_ERR, FEH_ERR, simulate_calibrated
+
+
+@pytest.fixture(scope="module")
+def stars():
+    teff, obs, errs, ebv, feh = simulate_calibrated(7)
+    sel = slice(0, 100)
+    return (teff[sel], {k: v[sel] for k, v in obs.items()}, {k: v[sel] for k, v in errs.items()},
+            ebv[sel], feh[sel])
+
+
+@pytest.mark.parametrize("kw", [dict(), dict(fit_ebv=True), dict(ebv_err=0.0, cal_ebv=True)],
+                         ids=["ebv_given", "ebv_fitted_prior", "ebv_from_calibrations"])
+def test_monte_carlo_agrees_with_analytic(stars, kw):
+    teff, obs, errs, ebv, feh = stars
+    args = dict(ebv=ebv, ebv_err=EBV_ERR, feh=feh, feh_err=FEH_ERR)
+    args.update(kw)
+    ana = estimate(obs, errs, **args)
+    mc = estimate(obs, errs, monte_carlo=2000, seed=5, **args)
+    half = (mc["teff_cal_hi"] - mc["teff_cal_lo"]).value / 2
+    ratio = half / ana["teff_cal_err"].value
+    ok = np.isfinite(ratio)
+    assert ok.mean() > 0.95
+    # 2,000 draws: the percentile half-width scatters by ~2 % about the analytic 1σ
+    assert abs(np.median(ratio[ok]) - 1) < 0.02
+    assert np.mean(np.abs(ratio[ok] - 1) < 0.06) > 0.9
+    assert np.allclose(mc["teff_cal"], ana["teff_cal"], equal_nan=True)
+
+
+def test_shared_reddening_error_is_propagated(stars):
+    """Moving E(B-V) by its error moves teff_cal by about its error (the issue-11 case)."""
+    teff, obs, errs, ebv, feh = stars
+    row = {k: v[:1] for k, v in obs.items()}
+    e1 = {k: v[:1] for k, v in errs.items()}
+    res = estimate(row, e1, ebv=ebv[:1], ebv_err=0.05, feh=feh[:1])
+    up = estimate(row, e1, ebv=ebv[:1] + 0.05, ebv_err=0.0, feh=feh[:1])
+    down = estimate(row, e1, ebv=ebv[:1] - 0.05, ebv_err=0.0, feh=feh[:1])
+    shift = (up["teff_cal"] - down["teff_cal"]).value[0] / 2
+    assert shift > 50
+    # the colours constrain E(B-V) a little themselves, so the error is somewhat below the
+    # full shift; treating the relations as independent gave less than half of it
+    assert 0.8 * shift < res["teff_cal_err"].value[0] < 1.1 * shift
+
+
+def test_relations_reported_with_detail(stars):
+    teff, obs, errs, ebv, feh = stars
+    res = estimate(obs, errs, ebv=ebv, ebv_err=EBV_ERR, feh=feh, cal_detail=True)
+    assert "c10_vk" in res["cal_used"][0].split(",")
+    each = res["teff_c10_vk"].value
+    assert np.all(res["teff_c10_vk_err"].value[np.isfinite(each)] > 25.0)  # at least its scatter
+    # the combination is at least as precise as its best relation
+    best = np.nanmin(np.column_stack([res[f"teff_{k}_err"].value for k in res["cal_used"][0].split(",")]),
+                     axis=1)
+    assert res["teff_cal_err"].value[0] <= best[0] + 1e-6
+
+
+def test_same_relation_twice_keeps_its_scatter():
+    """A relation entered twice (two copies of the same colour) is not averaged down."""
+    m = np.array([[10.64, 10.0, 8.5, 8.5]])
+    keys = ["B_JC", "V_JC", "Ks_2MASS", "Ks_2MASS"]
+    one = calibrated_teff(m[:, :3], np.full((1, 3), 1e-4), keys[:3], np.array([5800.0]),
+                          np.zeros(1), np.zeros(1))
+    assert one.n_used[0] == 2
+    # with negligible photometric errors the error is the scatters': 1/sqrt(1/73² + 1/25²)
+    assert one.teff_err[0] == pytest.approx(1 / np.sqrt(1 / 73.0**2 + 1 / 25.0**2), rel=0.01)
+
+
+def test_colours_that_disagree_are_flagged():
+    m = {"B_JC": [10.64, 10.64], "V_JC": [10.0, 10.0], "Ic_JC": [9.30, 9.30], "Ks_2MASS": [8.5, 7.9]}
+    res = estimate(m, {k: [0.01, 0.01] for k in m}, feh=0.0, logg=4.4)
+    assert not res["flags"][0] & fl.COLOURS_DISAGREE
+    assert res["flags"][1] & fl.COLOURS_DISAGREE
+    assert res["severity"][1] == "warning"
+
+
+def test_calibration_ebv_recovers_the_reddening(stars):
+    """E(B-V) from the calibrations alone, with its error (no prior)."""
+    teff, obs, errs, ebv, feh = stars
+    res = estimate(obs, errs, ebv=0.0, ebv_err=0.0, cal_ebv=True, feh=feh, feh_err=FEH_ERR)
+    got = res["ebv_cal"].value
+    err = res["ebv_cal_err"].value
+    ok = np.isfinite(err)
+    assert ok.mean() > 0.95  # stars with fewer than three usable colours get none
+    got, err, ebv = got[ok], err[ok], ebv[ok]
+    assert np.all((err > 0.03) & (err < 0.3))
+    # compared with the given (noisy, ±0.05) values: consistent within the combined errors
+    z = (got - ebv) / np.hypot(err, EBV_ERR)
+    assert abs(np.mean(z)) < 0.25 and 0.7 < np.std(z) < 1.3
+
+
+def test_flags_have_severities_and_rules():
+    assert set(fl.SEVERITY) == set(fl.NAMES) == set(fl.RULES)
+    levels = fl.row_severity([0, fl.POOR_FIT, fl.POOR_FIT | fl.RJ_LIMIT, 0], [True, True, True, False])
+    assert list(fl.severity_names(levels)) == ["", "info", "warning", "unusable"]
+    s = fl.summary([0, fl.POOR_FIT, fl.POOR_FIT | fl.RJ_LIMIT, 0], levels)
+    assert (s["clean"], s["info"], s["warning"], s["unusable"]) == (1, 1, 1, 1)
+    assert s["by_flag"] == {"rayleigh_jeans": 1, "not_blackbody": 2}
+
+
+def test_assumptions_are_recorded():
+    m = {"B_JC": [10.64, 10.64], "V_JC": [10.0, 10.0], "Ks_2MASS": [8.5, 8.5]}
+    errs = {"B_JC": [0.02, np.nan], "V_JC": [0.02, 0.02], "Ks_2MASS": [0.02, 0.02]}
+    res = estimate(m, errs, parallax=[10.0, 10.0])
+    notes = list(res["assumed"])
+    assert "B_JC error 0.03 mag assumed" in notes[1] and "B_JC error" not in notes[0]
+    for text in ("E(B-V) = 0 assumed", "[Fe/H] = 0 assumed", "dwarf relations assumed",
+                 "parallax error unknown"):
+        assert all(text in n for n in notes)
+        assert any(text in k for k in res.meta["assumptions"])
+    given = estimate(m, errs, ebv=0.1, ebv_err=0.02, feh=0.0, logg=4.4, parallax=[10, 10],
+                     parallax_err=[0.1, 0.1])
+    assert given["assumed"][0] == ""
+
+
+def test_negative_error_drops_the_band():
+    m = {"B_JC": [10.64], "V_JC": [10.0], "Ks_2MASS": [8.5]}
+    res = estimate(m, {"B_JC": [-0.02], "V_JC": [0.02], "Ks_2MASS": [0.02]}, feh=0.0, logg=4.4)
+    assert res["flags"][0] & fl.ABSURD_VALUE
+    assert res["n_bands"][0] == 2
+    assert res["cal_used"][0] == "c10_vk"
+
+
+def test_row_notes_join_per_row():
+    notes = RowNotes(2)
+    notes.add([True, False], "a")
+    notes.add(True, "b")
+    assert list(notes.texts()) == ["a; b", "b"]
+    assert notes.counts() == {"a": 1, "b": 2}
