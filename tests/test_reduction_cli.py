@@ -91,3 +91,22 @@ def test_refusals_before_any_work(tmp_path, capsys):
     assert main(BASE[:-2] + ["--second-order", "Z", "-o", str(tmp_path / "c.toml")]) == 2
     assert "not observed" in capsys.readouterr().err
     assert not list(tmp_path.glob("*.part")) and not (tmp_path / "c.toml").exists()
+
+
+def test_fallback_to_predicted_colour_term_with_few_standards(tmp_path, capsys):
+    # one standard only (three visits): no filter's colour term can be fitted, the prediction steps in
+    obs = Table.read(DEMO / "night_observations.csv")
+    keep = [s.startswith("demo-N") or s == "std-A1" for s in obs["star"]]
+    few = tmp_path / "few.csv"
+    obs[keep].write(few, format="ascii.csv")
+    args = ["standardise", str(few), "--standards", str(DEMO / "night_standards.csv"), "--instrument",
+            str(DEMO / "instruments" / "quillmere_04m_ccd.toml"), "--json"]
+    code = main(args + ["-o", str(tmp_path / "a.toml")])
+    err = capsys.readouterr().err
+    assert code == 2 and "usable standard measurements, need at least 4" in err
+    assert main(args + ["-o", str(tmp_path / "b.toml"), "--predicted", "fallback"]) == 0
+    s = json.loads(capsys.readouterr().out)
+    for f in s["transformation"]["filters"]:
+        assert any("fallback priors on colour_term" in n for n in f["notes"])
+        assert f["priors"]["colour_term"][0] == s["predicted"][f["filter"]]["coefficients"]["colour_term"]
+        assert f["n_used"] == 3

@@ -29,9 +29,9 @@ def add(subparsers):
     p.add_argument("--second-order", metavar="FILTERS",
                    help="filters that get the colour-dependent extinction term, e.g. B or B,V or all")
     p.add_argument("--clip", type=float, default=3.5, metavar="SIGMA", help="outlier threshold, robust sigma")
-    p.add_argument("--predicted", choices=("check", "prior", "off"), default="check",
-                   help="colour terms predicted from the passbands: compare with the fit, also use as priors, "
-                        "or skip")
+    p.add_argument("--predicted", choices=("check", "fallback", "prior", "off"), default="check",
+                   help="colour terms predicted from the passbands: compare with the fit; also use as priors "
+                        "where too few standards fix a colour term (fallback) or everywhere (prior); or skip")
     p.add_argument("--extinction-prior", action="store_true",
                    help="use the instrument file's extinction coefficients as priors (+-0.05 mag/airmass), "
                         "for nights with standards at one airmass only")

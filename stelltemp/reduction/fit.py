@@ -285,13 +285,17 @@ def fit_filter(obs: Observations, standards: dict, setup: BandSetup, *, priors=N
 
 
 def fit_transformation(obs: Observations, standards: dict, setups, *, priors=None, clip=DEFAULT_CLIP,
-                       scale_errors=True, provenance=None) -> Transformation:
+                       scale_errors=True, provenance=None, fallback=None) -> Transformation:
     """Fit every filter in ``setups`` (see :func:`fit_filter`).
 
     Parameters
     ----------
     priors : dict, optional
         Filter name → {coefficient: (value, σ)}.
+    fallback : dict, optional
+        Filter name → {coefficient: (value, σ)}: priors used only when the
+        filter cannot be fitted without them (too few standards, too narrow
+        a range of colour or airmass); the fit's notes say so.
 
     Returns
     -------
@@ -319,8 +323,19 @@ def fit_transformation(obs: Observations, standards: dict, setups, *, priors=Non
     unknown = set(priors) - {s.filter for s in setups}
     if unknown:
         raise StelltempError(f"priors for filters not being fitted: {', '.join(sorted(unknown))}")
-    fits = {s.filter: fit_filter(obs, standards, s, priors=priors.get(s.filter), clip=clip,
-                                 scale_errors=scale_errors) for s in setups}
+    fallback = fallback or {}
+    fits = {}
+    for s in setups:
+        given = dict(priors.get(s.filter) or {})
+        try:
+            fits[s.filter] = fit_filter(obs, standards, s, priors=given, clip=clip, scale_errors=scale_errors)
+        except StelltempError as exc:
+            extra = {k: v for k, v in (fallback.get(s.filter) or {}).items() if k not in given}
+            if not extra:
+                raise
+            fits[s.filter] = fit_filter(obs, standards, s, priors={**given, **extra}, clip=clip,
+                                        scale_errors=scale_errors)
+            fits[s.filter].notes.append(f"fallback priors on {', '.join(extra)} used because: {exc}")
     prov = {"method": "generalised least squares, Harris, FitzGerald & Reed (1981, PASP 93, 507) form",
             "clip_sigma": clip, "error_scaling": "chi2/dof when > 1" if scale_errors else "none",
             "airmass": obs.airmass_source}

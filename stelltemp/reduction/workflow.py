@@ -16,7 +16,7 @@ from ..errors import StelltempError
 
 __all__ = ["standardise_night", "PREDICTED_MODES", "EXTINCTION_PRIOR_SIGMA"]
 
-PREDICTED_MODES = ("check", "prior", "off")
+PREDICTED_MODES = ("check", "fallback", "prior", "off")
 #: width (mag per airmass) given to the instrument file's extinction when used as a prior
 EXTINCTION_PRIOR_SIGMA = 0.05
 
@@ -82,9 +82,10 @@ def standardise_night(observations, standards, instrument, fit_out, *, targets_o
         Filters that get the colour-dependent extinction term.
     clip : float, optional
         Rejection threshold, robust σ (default 3.5).
-    predicted : {"check", "prior", "off"}
+    predicted : {"check", "fallback", "prior", "off"}
         Compute the colour terms expected from the passbands and compare
-        ("check"), also use them as priors ("prior"), or skip.
+        ("check"); also use them as priors where a filter cannot be fitted
+        without ("fallback"), or for every filter ("prior"); or skip.
     extinction_prior : bool
         Use the instrument file's extinction coefficients as priors (±0.05 mag per airmass).
     ebv, ebv_err, law, rv : optional
@@ -132,8 +133,10 @@ def standardise_night(observations, standards, instrument, fit_out, *, targets_o
         from .predict import predict_colour_terms
 
         predictions = predict_colour_terms(inst, setups)
-    priors = {}
+    priors, fallback = {}, {}
     for s in setups:
+        if predicted == "fallback":
+            fallback[s.filter] = {"colour_term": predictions[s.filter].prior()}
         pr = {}
         if extinction_prior:
             k = inst.filters[s.filter].extinction_mag_per_airmass
@@ -152,7 +155,7 @@ def standardise_night(observations, standards, instrument, fit_out, *, targets_o
             "standards_sha256": file_sha256(standards), "instrument": str(instrument),
             "instrument_sha256": file_sha256(instrument), "instrument_title": inst.title}
     say("fitting the transformation")
-    tr = fit_transformation(obs, stds, setups, priors=priors, clip=clip, provenance=prov)
+    tr = fit_transformation(obs, stds, setups, priors=priors, clip=clip, provenance=prov, fallback=fallback)
     comparison = []
     if predictions is not None:
         from .predict import compare_with_prediction
