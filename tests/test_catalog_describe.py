@@ -115,7 +115,7 @@ def test_record_holds_passbands_flags_and_assumptions(reference):
     assert meta["R_V"] == 3.1 and meta["extinction_law"] == "G23"
     assert "Gordon" in meta["extinction_law_source"] and "CALSPEC" in meta["vega_spectrum"]
     bands = meta["passbands"].split(",")
-    assert len(bands) == 9
+    assert len(bands) == 10  # the demo list: U B V Rc Ic, J H Ks, BP RP
     for key in bands:
         k = key.replace(".", "_")
         assert meta[f"passband_{k}_source"] and meta[f"passband_{k}_magsys"] in ("Vega", "AB")
