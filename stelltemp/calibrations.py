@@ -619,8 +619,10 @@ def coverage_notes(colours, feh=None, logg=None, applied=None):
 
     Returns
     -------
-    ndarray of str
-        One note per star ("" when there is nothing to say), e.g.
+    ndarray of str objects
+        One note per star ("" when there is nothing to say), dtype object
+        (each distinct note one shared str: fixed-width text would take
+        hundreds of bytes a star), e.g.
         ``"log g unknown: dwarf assumed"`` or ``"no calibration: V-Ks 9.80
         mag outside every dwarf relation for it (C10 V-Ks 0.78 to 3.15; …)"``.
 
@@ -642,45 +644,116 @@ def coverage_notes(colours, feh=None, logg=None, applied=None):
         for rel, x in rels:
             applied |= rel.applies_to(g) & rel.teff(x, z, g)[1]
     applied = np.broadcast_to(np.asarray(applied, bool), shape)
-    notes = np.full(shape, "", dtype=object)
-    notes[assumed] = f"log g unknown: {ASSUMED_STAGE} assumed"
-    for idx in zip(*np.nonzero(~applied)):
-        stage = ASSUMED_STAGE if assumed[idx] else None
-        why, measured, skipped = [], False, set()
-        by_colour = {}
-        for rel, x in rels:
-            xi, zi, gi = float(x[idx]), float(z[idx]), float(g[idx])
-            if not np.isfinite(xi):
-                continue
-            measured = True
-            if not bool(rel.applies_to(gi)):
-                if rel.needs_logg and not np.isfinite(gi):
-                    skipped.add(rel.colour_name)
-                continue
-            stage = rel.stage
-            lo, hi = rel.colour_range
-            entry = by_colour.setdefault(rel.colour_name, [xi, []])
-            if lo <= xi <= hi:
-                entry[1].append(f"{rel.label}: [Fe/H] {zi:+.2f} outside "
-                                f"{rel.feh_range[0]:+.1f} to {rel.feh_range[1]:+.1f}")
-            else:
-                entry[1].append(f"{rel.label} {lo:.2f} to {hi:.2f}")
-        for name, (xi, parts) in by_colour.items():
-            why.append(f"{name} = {xi:.2f} mag outside every {stage} relation for it ({'; '.join(parts)})")
-        if not measured:
-            text = "no calibration: none of the calibrated colours was measured"
-        elif not why:
-            cls = "giant" if np.isfinite(g[idx]) and g[idx] < 3.0 else "dwarf"
-            text = (f"no calibration: no relation for a {cls} (log g {g[idx]:.2f}) "
-                    "in the measured colours" if np.isfinite(g[idx]) else
-                    "no calibration: no relation in the measured colours")
-        else:
-            text = "no calibration: " + "; ".join(why)
-        if skipped:
-            text += f"; relations in {', '.join(sorted(skipped))} need log g, which is unknown"
-        notes[idx] = text if not assumed[idx] else f"{text}; log g unknown: {ASSUMED_STAGE} assumed"
-    return notes.astype(str)
+    # each star's note as a code into a short list of texts, turned into text once at the end
+    codes = np.zeros(shape, np.int64)
+    codes[assumed] = 1
+    texts = ["", f"log g unknown: {ASSUMED_STAGE} assumed"]
+    todo = np.flatnonzero(~applied.ravel())
+    if todo.size:
+        # the note depends only on a few per-star facts (what was measured, which
+        # relation fits the class, the numbers as printed): write it once per
+        # distinct set of facts instead of once per star
+        keys = _note_keys(rels, z, g, assumed, todo)
+        _, first, inverse = np.unique(keys, axis=0, return_index=True, return_inverse=True)
+        texts += [_coverage_note(rels, keys[i]) for i in first]
+        codes.ravel()[todo] = 2 + inverse.ravel()
+    return np.array(texts, dtype=object)[codes]
 
+
+def _coverage_note(rels, key):
+    """The `coverage_notes` text for one row of `_note_keys` (a star without a calibrated T_eff)."""
+    assumed, g_fin, giant, g_p, z_p = (int(v) for v in key[:5])
+    states = key[5:5 + len(rels)]
+    printed_x = dict(zip(dict.fromkeys(rel.bands for rel, _ in rels), key[5 + len(rels):]))
+    stage = ASSUMED_STAGE if assumed else None
+    measured = bool(np.any(states > 0))
+    by_colour = {}
+    for (rel, _), state in zip(rels, states):
+        if state < 2:
+            continue
+        stage = rel.stage
+        lo, hi = rel.colour_range
+        entry = by_colour.setdefault(rel.colour_name, [_from_printed(printed_x[rel.bands], "{:.2f}"), []])
+        if state == 2:
+            entry[1].append(f"{rel.label}: [Fe/H] {_from_printed(z_p, '{:+.2f}')} outside "
+                            f"{rel.feh_range[0]:+.1f} to {rel.feh_range[1]:+.1f}")
+        else:
+            entry[1].append(f"{rel.label} {lo:.2f} to {hi:.2f}")
+    why = [f"{name} = {x} mag outside every {stage} relation for it ({'; '.join(parts)})"
+           for name, (x, parts) in by_colour.items()]
+    if not measured:
+        text = "no calibration: none of the calibrated colours was measured"
+    elif not why:
+        cls = "giant" if giant else "dwarf"
+        text = (f"no calibration: no relation for a {cls} (log g {_from_printed(g_p, '{:.2f}')}) "
+                "in the measured colours" if g_fin else
+                "no calibration: no relation in the measured colours")
+    else:
+        text = "no calibration: " + "; ".join(why)
+    skipped = {rel.colour_name for (rel, _), state in zip(rels, states)
+               if state == 1 and rel.needs_logg and not g_fin}
+    if skipped:
+        text += f"; relations in {', '.join(sorted(skipped))} need log g, which is unknown"
+    return text if not assumed else f"{text}; log g unknown: {ASSUMED_STAGE} assumed"
+
+
+def _printed(v, digits=2):
+    """Integers that are equal exactly where f"{v:.{digits}f}" prints the same (finite v).
+
+    The integer is 2 × (v rounded to ``digits`` decimals, scaled to an
+    integer) plus one for a negative value that prints as -0.00.
+    """
+    v = np.asarray(v, float)
+    y = v * 10.0**digits
+    with np.errstate(invalid="ignore"):
+        q = np.rint(y)
+        # near a half the float product may round the other way than printing: ask Python
+        near = np.isfinite(v) & (np.abs(np.abs(y - np.trunc(y)) - 0.5) < 1e-6)
+    for i in np.flatnonzero(near):
+        q[i] = round(float(f"{v[i]:.{digits}f}") * 10.0**digits)
+    q = np.where(np.isfinite(q), q, 0).astype(np.int64)
+    return 2 * q + ((q == 0) & np.signbit(v))
+
+
+def _from_printed(key, fmt, digits=2):
+    """The text `fmt` gives the values behind a `_printed` key."""
+    q, neg_zero = divmod(int(key), 2)
+    text = fmt.format(q / 10.0**digits)
+    return text.replace("0.00", "-0.00", 1).replace("+-", "-") if neg_zero else text
+
+
+def _note_keys(rels, z, g, assumed, todo):
+    """Per star of ``todo`` (flat indices) the integers that fix its coverage note, shape (len(todo), k).
+
+    Columns: log g assumed, log g known, giant (log g < 3), log g and [Fe/H]
+    as printed, one state per relation (0 colour not measured, 1 class does
+    not fit, 2 colour in range but [Fe/H] outside, 3 colour outside), each
+    colour as printed.  Numbers the note does not print are set to 0.
+    """
+    gi, zi, ai = g.ravel()[todo], z.ravel()[todo], assumed.ravel()[todo]
+    g_fin = np.isfinite(gi)
+    states, printed_x = [], {}
+    for rel, x in rels:
+        xi = x.ravel()[todo]
+        fin = np.isfinite(xi)
+        fits = np.broadcast_to(np.asarray(rel.applies_to(gi), bool), xi.shape)
+        lo, hi = rel.colour_range
+        with np.errstate(invalid="ignore"):
+            inside = (xi >= lo) & (xi <= hi)
+        states.append(np.where(~fin, 0, np.where(~fits, 1, np.where(inside, 2, 3))))
+        if rel.bands not in printed_x:
+            printed_x[rel.bands] = (xi, np.zeros(todo.size, bool))
+        printed_x[rel.bands][1][:] |= fin & fits  # printed when some relation of the colour fits the class
+    states = np.stack(states, axis=1) if states else np.zeros((todo.size, 0), np.int64)
+    why = (states >= 2).any(axis=1)
+    measured = (states > 0).any(axis=1)
+    with np.errstate(invalid="ignore"):
+        cols = [ai, g_fin, g_fin & (gi < 3.0),
+                np.where(g_fin & measured & ~why, _printed(gi), 0),
+                np.where((states == 2).any(axis=1), _printed(zi), 0)]
+    cols += [states[:, i] for i in range(states.shape[1])]
+    cols += [np.where(shown, _printed(xi), 0) for xi, shown in printed_x.values()]
+    return np.stack([np.asarray(c, np.int64) for c in cols], axis=1)
 
 # ------------------------------------------------------------ combination
 @dataclass(frozen=True)

@@ -239,7 +239,16 @@ def save_figure(fig, path, replace=False, **savefig_options):
 
 
 def save_table(table, path, fmt, replace=False):
-    """Write an astropy table atomically in astropy format ``fmt``."""
+    """Write an astropy table atomically in astropy format ``fmt``.
+
+    Text columns held as Python str objects (dtype object, as the engine
+    returns them) are written as fixed-width text, which every format takes.
+    """
+    texts = [n for n in table.colnames if getattr(table[n], "dtype", None) == object]
+    if texts:
+        table = table.copy(copy_data=False)
+        for name in texts:
+            table[name] = table[name].astype(str)
     try:
         with atomic_path(path, replace) as tmp:
             table.write(tmp, format=fmt, overwrite=True)

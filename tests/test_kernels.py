@@ -126,3 +126,23 @@ def test_estimate_in_blocks_equals_one_call(monkeypatch, fit):
             assert np.array_equal(a, b, equal_nan=True), name
         else:
             assert list(a) == list(b), name
+
+
+def test_coverage_notes_grouped_equal_star_by_star():
+    """Notes written once per distinct set of facts read as if written for each star alone."""
+    from stelltemp import calibrations as cal
+
+    rng = np.random.default_rng(7)
+    n = 300
+    pairs = {b: rng.uniform(-1.5, 10.0, n) for b in sorted({r.bands for r in cal._registry()})[::3]}
+    for i, v in enumerate(pairs.values()):
+        v[i::4] = np.nan
+        v[i + 1::13] = -0.004  # prints as -0.00
+        v[i + 2::11] = 1.005  # a printed half
+    feh = rng.choice([0.0, -2.5, np.nan, -0.004], n)
+    logg = rng.choice([4.4, 2.0, np.nan, 3.5], n)
+    together = cal.coverage_notes(pairs, feh=feh, logg=logg)
+    alone = [cal.coverage_notes({k: v[i:i + 1] for k, v in pairs.items()}, feh=feh[i:i + 1],
+                                logg=logg[i:i + 1])[0] for i in range(n)]
+    assert list(together) == alone
+    assert len(set(alone)) > 20  # many different notes were exercised

@@ -305,13 +305,18 @@ def merge_arrow(chunk, results, names, types=None):
     if types:
         left = tableio.apply_types(left, types)
     coded = "flag_names" in results.colnames and "flags" in results.colnames
-    right = tableio.results_to_arrow(results[[c for c in results.colnames if c != "flag_names"]] if coded
-                                     else results)
+    # text held as shared str objects goes to Arrow directly (pyarrow reads such arrays in C)
+    texts = [c for c in results.colnames if getattr(results[c], "dtype", None) == object
+             and getattr(results[c], "unit", None) is None]
+    right = tableio.results_to_arrow(results[[c for c in results.colnames if c not in texts]])
     for name in results.colnames:
         if coded and name == "flag_names":
             # the names from their dictionary encoding: one string per distinct mask, taken per row
-            codes, texts = F.encode(np.asarray(results["flags"], dtype=np.int64))
-            col = pa.array(list(texts), pa.string()).take(pa.array(codes))
+            codes, names_ = F.encode(np.asarray(results["flags"], dtype=np.int64))
+            col = pa.array(list(names_), pa.string()).take(pa.array(codes))
+            f = pa.field(name, pa.string())
+        elif name in texts:
+            col = pa.array(np.asarray(results[name]), pa.string(), from_pandas=True)
             f = pa.field(name, pa.string())
         else:
             col = right.column(name)

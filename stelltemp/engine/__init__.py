@@ -110,13 +110,12 @@ def _in_blocks(call, n, per_star):
     blocks = [call(**{k: part(v, slice(i, i + BLOCK_ROWS)) for k, v in per_star.items()})
               for i in range(0, n, BLOCK_ROWS)]
     first = blocks[0]
-    table = QTable(meta=first.meta)
+    columns = {}
     for name in first.colnames:
-        cols = [b[name] for b in blocks]
-        joined = np.concatenate([np.asarray(getattr(c, "value", c)) for c in cols])
-        unit = getattr(first[name], "unit", None)
-        table[name] = joined * unit if isinstance(first[name], u.Quantity) else joined
-    return table
+        joined = np.concatenate([np.asarray(getattr(b[name], "value", b[name])) for b in blocks])
+        columns[name] = u.Quantity(joined, first[name].unit, copy=False) \
+            if isinstance(first[name], u.Quantity) else joined
+    return QTable(columns, meta=first.meta, copy=False)
 
 
 def _whole_table_meta(table):
@@ -188,6 +187,9 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
         relations with their full covariance (:mod:`stelltemp.engine.combine`).
         Metadata: ``flag_summary`` (rows by severity and by flag) and
         ``assumptions`` (each default used, with its number of rows).
+        The text columns (``flag_names``, ``teff_cal_note``) hold str
+        objects (dtype object, one shared str per distinct text);
+        ``.astype(str)`` makes them fixed-width, as some writers (FITS) need.
     """
     if not isinstance(mags, dict) or len(mags) < 2:
         raise StelltempError("need magnitudes in at least two passbands")
@@ -308,7 +310,7 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
         for i, key in enumerate(cal.keys):
             table[f"teff_{key}"] = cal.teff_each[:, i] * u.K
             table[f"teff_{key}_err"] = cal.err_each[:, i] * u.K
-    table["teff_cal_note"] = cal.notes
+    table["teff_cal_note"] = np.asarray(cal.notes, dtype=object)
     table["flags"] = flags
     table["flag_names"] = fl.describe_all(flags)
     table["severity"] = fl.severity_names(level)

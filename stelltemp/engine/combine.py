@@ -489,4 +489,4 @@ def _notes(setup, x, logg, feh, fit_ebv, prior_prec, n_used):
         text = (f"no calibration: E(B-V) from the calibrations needs {MIN_RELATIONS_FREE_EBV} "
                 f"colours or an E(B-V) prior; {n_used[j]} usable")
         notes[j] = f"{notes[j]}; {text}" if notes[j] else text
-    return notes.astype(str)
+    return notes  # str objects: fixed-width text would take hundreds of bytes a star

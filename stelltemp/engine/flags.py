@@ -116,7 +116,7 @@ def encode(masks):
     """Dictionary encoding of the names of many masks: (codes, names) with names[codes] per row.
 
     ``codes`` is an int32 array like ``masks``; ``names`` holds the
-    `describe` text of each distinct mask once (an object array of str).
+    `describe` text of each distinct mask once (a str array).
     O(n) for the usual small masks, built once per distinct mask per run.
     """
     masks = np.asarray(masks, dtype=np.int64)
@@ -129,19 +129,23 @@ def encode(masks):
     else:
         present, codes = np.unique(flat, return_inverse=True)
         codes = codes.astype(np.int32)
-    names = np.empty(present.size, dtype=object)
-    for i, m in enumerate(present.tolist()):
+    names = []
+    for m in present.tolist():
         text = _NAME_CACHE.get(m)
         if text is None:
             text = _NAME_CACHE[m] = describe(m)
-        names[i] = text
-    return codes.reshape(masks.shape), names
+        names.append(text)
+    return codes.reshape(masks.shape), np.array(names, dtype=str)
 
 
 def describe_all(masks):
-    """`describe` over an integer array: one str per row (an object array sharing one str per mask)."""
+    """`describe` over an integer array: one str per row (dtype object, one shared str per distinct mask).
+
+    Object dtype because fixed-width text would take 4 bytes per character
+    of the longest name on every row; ``.astype(str)`` gives fixed width.
+    """
     codes, names = encode(masks)
-    return names[codes.ravel()]
+    return names.astype(object)[codes.ravel()]
 
 
 def reddening_dominates(red_part, phot_part):
