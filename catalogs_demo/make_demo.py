@@ -8,24 +8,47 @@ observatory, person, star or catalogue is described.
 
 How the stars are made (all draws from one seeded generator):
 
-* true temperatures 3,200–25,000 K, log-uniform for the field; cluster
-  dwarfs 5,500–20,000 K plus three cool giants;
+* true effective temperatures 2,900–25,000 K, log-uniform for the field;
+  cluster dwarfs 5,500–20,000 K plus three cool giants; some field stars
+  between 4,000 and 5,200 K are drawn as giants (8–40 R☉);
 * radii from a rough main-sequence scaling R/R☉ ≈ (T/5772 K)^1.45 (a
-  teaching approximation, not a stellar model), with some field stars
-  cooler than 5,200 K drawn as giants (8–40 R☉);
+  teaching approximation, not a stellar model); log g from the radius and a
+  mass of R^1.33 M☉ (dwarfs) or 1.5 M☉ (giants);
+* the star's **intrinsic colours are those of real stars**, not of
+  blackbodies: dwarfs take the mean colours of Pecaut & Mamajek 2013 (ApJS
+  208, 9, Table 5; the maintained online version in
+  ``stelltemp/data/calibrations/pecaut2013_table5.ecsv``), interpolated
+  linearly in T_eff between subtypes; giants take their Gaia and 2MASS
+  colours (BP−Ks, RP−Ks, BP−J, BP−H) from the giant relations of
+  Casagrande et al. 2021 (MNRAS 507, 2684) at their log g and [Fe/H], and —
+  a teaching simplification, there is no giant sequence here — their
+  Johnson–Cousins colours and bolometric correction from the dwarf sequence
+  at the same T_eff;
+* the V magnitude from the bolometric flux σT⁴(θ/2)² (θ = 2R/d) and the
+  sequence's bolometric correction BC_V (m_bol = −2.5 log10 F/(W m⁻²)
+  − 18.997, IAU 2015 Resolution B2);
+* extinction through each passband: A = M(T, E) − M(T, 0) of a blackbody at
+  the star's T_eff reddened by the G23 law, R_V = 3.1
+  (``stelltemp.bandgrid.blackbody_mag``) — the spectrum shape enters only
+  through that weighting;
 * field distances chosen so that V falls near 7.5–13.5 mag; field
   reddening grows with distance, E(B−V) = U(0, 0.3) × (1 − e^(−d / 500 pc));
   the cluster sits at 560 pc with E(B−V) = 0.25 and a 0.012 mag star-to-star
   scatter;
-* angular diameters θ = 2R/d; magnitudes are those of the reddened
-  blackbody through each passband (``stelltemp.bandgrid.blackbody_mag``, G23
-  law, R_V = 3.1), plus Gaussian noise with a brightness-dependent 1σ error
-  of 0.01–0.05 mag;
-* "measured" E(B−V) and parallaxes are the true values plus Gaussian noise
-  of the quoted error; [Fe/H] ~ N(0, 0.2) in the field, −0.05 ± 0.03 in the
-  cluster;
+* Gaussian noise with a brightness-dependent 1σ error of 0.01–0.05 mag;
+  bands the sequence has no colour for (U of the latest M dwarfs, Gaia BP
+  and RP of stars hotter than B9V) are left empty;
+* "measured" E(B−V), parallaxes and log g are the true values plus Gaussian
+  noise of the quoted error (log g ± 0.1 dex; left empty for a quarter of
+  the field dwarfs, whose class the engine then assumes); [Fe/H] ~ N(0, 0.2)
+  in the field, −0.05 ± 0.03 in the cluster (the dwarf sequence has no
+  metallicity term, so [Fe/H] changes only the giants' colours);
 * coordinates are drawn until the star has at least two hours above 30°
   in astronomical darkness at the site on ``DATE``.
+
+Because the colours are those of stars, a blackbody fit recovers a colour
+temperature T_bb that differs from T_eff by hundreds of K; the calibrated
+T_eff of the engine (``teff_cal``) is what should match ``t_true``.
 
 Two rows carry deliberate defects for teaching: one star has the sentinel
 99.999 (error 9.999) in jc.B, as old reductions write for "no measurement";
@@ -55,6 +78,7 @@ if str(HERE.parent) not in sys.path:  # run from a source checkout
     sys.path.insert(0, str(HERE.parent))
 
 from stelltemp.bandgrid import blackbody_mag  # noqa: E402
+from stelltemp.calibrations import CALIBRATION_DIR, get_relation  # noqa: E402
 
 SEED = 20261108
 #: local date of the evening (a night near new Moon at the invented site)
@@ -62,7 +86,7 @@ DATE = "2026-11-08"
 INSTRUMENT = HERE / "instruments" / "quillmere_04m_ccd.toml"
 LAW, RV = "G23", 3.1
 
-OPTICAL = ["jc.B", "jc.V", "jc.Rc", "jc.Ic"]
+OPTICAL = ["jc.U", "jc.B", "jc.V", "jc.Rc", "jc.Ic"]
 INFRARED = ["2mass.J", "2mass.H", "2mass.Ks"]
 GAIA = ["gaia3.BP", "gaia3.RP"]
 BANDS = OPTICAL + INFRARED + GAIA
@@ -73,6 +97,17 @@ CLUSTER = {"ra": 61.25, "dec": 30.67, "radius_deg": 0.08, "distance_pc": 560.0,
            "ebv": 0.25, "ebv_scatter": 0.012, "ebv_quoted_err": 0.02, "feh": -0.05, "feh_scatter": 0.03}
 
 T_SUN = 5772.0
+#: 1σ of the invented spectroscopic log g (dex)
+LOGG_ERR = 0.1
+#: field temperatures are drawn log-uniformly in this range (K)
+T_FIELD = (2900.0, 25000.0)
+#: field stars in this range may be giants (the giant relations' reach)
+T_GIANT = (4000.0, 5200.0)
+#: the dwarf colour sequence (Pecaut & Mamajek 2013, Table 5, online version)
+SEQUENCE = CALIBRATION_DIR / "pecaut2013_table5.ecsv"
+SIGMA_SB = 5.670374419e-8     # W m^-2 K^-4 (CODATA 2018, exact)
+MBOL_ZERO = -18.997351        # m_bol = -2.5 log10(F / W m^-2) + this (IAU 2015 Resolution B2)
+LOGG_SUN = 4.438              # cgs dex, the nominal Sun (common practice)
 RSUN_M = 6.957e8
 PC_M = 3.0856775814913673e16
 MAS_PER_RAD = 180.0 / math.pi * 3600e3
@@ -84,33 +119,106 @@ def main_sequence_radius(t):
     return (np.asarray(t, float) / T_SUN) ** 1.45
 
 
+def surface_gravity(radius_rsun, giant):
+    """log g (cgs dex) from the radius: mass R^1.33 M☉ for dwarfs, 1.5 M☉ for giants (invented)."""
+    r = np.asarray(radius_rsun, float)
+    mass = np.where(giant, 1.5, r ** 1.33)
+    return LOGG_SUN + np.log10(mass) - 2 * np.log10(r)
+
+
 def mag_error(m):
     """1σ error (mag) of a measurement of magnitude m: 0.01 at the bright end to 0.05 at the faint end."""
     return np.clip(0.009 + 0.003 * 10 ** (0.2 * (np.asarray(m, float) - 9.0)), 0.01, 0.05)
 
 
-def magnitudes(t, ebv, theta_rad):
-    """Noise-free magnitudes of reddened blackbodies in every band."""
-    return {b: blackbody_mag(b, t, ebv, LAW, RV, theta_rad) for b in BANDS}
+def _sequence():
+    from astropy.table import Table
+
+    seq = Table.read(SEQUENCE, format="ascii.ecsv")
+    order = np.argsort(np.asarray(seq["teff"], float))
+    return {c: np.asarray(seq[c], float)[order] for c in seq.colnames if c != "spt"}
+
+
+def dwarf_sequence(t):
+    """Intrinsic colours and BC_V of the dwarf sequence at T_eff t, linear in T between subtypes.
+
+    Returns a dict of column name → array (NaN where the sequence has no value).
+    """
+    seq = _sequence()
+    t = np.asarray(t, float)
+    return {c: np.interp(t, seq["teff"], v, left=np.nan, right=np.nan) for c, v in seq.items() if c != "teff"}
+
+
+def _invert(key, t, feh, logg):
+    """The colour at which relation ``key`` gives T_eff t (bisection inside its colour range)."""
+    from scipy.optimize import brentq
+
+    rel = get_relation(key)
+    lo, hi = rel.colour_range
+    out = np.full(np.shape(t), np.nan)
+    for i, (ti, zi, gi) in enumerate(zip(np.atleast_1d(t), np.atleast_1d(feh), np.atleast_1d(logg))):
+        f = lambda x: float(rel.teff(x, zi, gi)[0]) - ti  # noqa: E731
+        if np.isfinite(f(lo)) and np.isfinite(f(hi)) and f(lo) * f(hi) < 0:
+            out[i] = brentq(f, lo, hi, xtol=1e-6)
+    return out
+
+
+def intrinsic_offsets(t, giant, feh, logg):
+    """Intrinsic magnitudes relative to V in every band, and BC_V, for each star."""
+    seq = dwarf_sequence(t)
+    off = {"jc.V": np.zeros(len(t))}
+    off["jc.B"] = seq["B-V"]
+    off["jc.U"] = seq["B-V"] + seq["U-B"]
+    off["jc.Rc"] = -seq["V-Rc"]
+    off["jc.Ic"] = -seq["V-Ic"]
+    off["2mass.Ks"] = -seq["V-Ks"]
+    off["2mass.H"] = off["2mass.Ks"] + seq["H-Ks"]
+    off["2mass.J"] = off["2mass.H"] + seq["J-H"]
+    g = seq["G-V"]
+    off["gaia3.RP"] = g - seq["G-RP"]
+    off["gaia3.BP"] = off["gaia3.RP"] + seq["BP-RP"]
+    if np.any(giant):
+        i = np.flatnonzero(giant)
+        ks = off["2mass.Ks"][i]
+        bp = ks + _invert("c21_bpks_giant", t[i], feh[i], logg[i])
+        off["gaia3.BP"][i] = bp
+        off["gaia3.RP"][i] = ks + _invert("c21_rpks_giant", t[i], feh[i], logg[i])
+        off["2mass.J"][i] = bp - _invert("c21_bpj_giant", t[i], feh[i], logg[i])
+        off["2mass.H"][i] = bp - _invert("c21_bph_giant", t[i], feh[i], logg[i])
+    return off, seq["BC_V"]
+
+
+def magnitudes(t, ebv, theta_rad, giant, feh, logg):
+    """Noise-free apparent magnitudes of each star in every band (NaN where no colour exists)."""
+    t = np.asarray(t, float)
+    off, bc_v = intrinsic_offsets(t, giant, feh, logg)
+    fbol = SIGMA_SB * t**4 * (np.asarray(theta_rad, float) / 2) ** 2
+    v = -2.5 * np.log10(fbol) + MBOL_ZERO - bc_v
+    return {b: v + off[b] + blackbody_mag(b, t, ebv, LAW, RV) - blackbody_mag(b, t, 0.0, LAW, RV) for b in BANDS}
 
 
 def theta_rad(radius_rsun, distance_pc):
     return 2 * radius_rsun * RSUN_M / (distance_pc * PC_M)
 
 
+def _v_at_10pc(p):
+    """V of each star at 10 pc without dust (for choosing distances)."""
+    return magnitudes(p["t"], 0.0, theta_rad(p["radius"], 10.0), p["giant"], p["feh"], p["logg"])["jc.V"]
+
+
 def draw_field(rng):
     """True parameters of the field stars."""
-    t = np.exp(rng.uniform(np.log(3200.0), np.log(25000.0), N_FIELD))
+    t = np.exp(rng.uniform(np.log(T_FIELD[0]), np.log(T_FIELD[1]), N_FIELD))
     radius = main_sequence_radius(t)
-    giant = (t < 5200.0) & (rng.uniform(size=N_FIELD) < 0.4)
+    giant = (t > T_GIANT[0]) & (t < T_GIANT[1]) & (rng.uniform(size=N_FIELD) < 0.4)
     radius[giant] = np.exp(rng.uniform(np.log(8.0), np.log(40.0), giant.sum()))
     v_goal = rng.uniform(7.5, 13.5, N_FIELD)
-    # distance for the goal V without dust, then dust that grows with distance, then V again
-    v10 = blackbody_mag("jc.V", t, 0.0, LAW, RV, theta_rad(radius, 10.0))
-    dist = np.clip(10.0 * 10 ** ((v_goal - v10) / 5), 15.0, 4000.0)
-    ebv = rng.uniform(0.0, 0.3, N_FIELD) * (1 - np.exp(-dist / 500.0))
     feh = rng.normal(0.0, 0.2, N_FIELD)
-    return {"t": t, "radius": radius, "giant": giant, "distance": dist, "ebv": ebv, "feh": feh}
+    p = {"t": t, "radius": radius, "giant": giant, "feh": feh, "logg": surface_gravity(radius, giant)}
+    # distance for the goal V without dust, then dust that grows with distance, then V again
+    dist = np.clip(10.0 * 10 ** ((v_goal - _v_at_10pc(p)) / 5), 15.0, 4000.0)
+    ebv = rng.uniform(0.0, 0.3, N_FIELD) * (1 - np.exp(-dist / 500.0))
+    return {**p, "distance": dist, "ebv": ebv}
 
 
 def draw_cluster(rng):
@@ -126,8 +234,9 @@ def draw_cluster(rng):
     ebv = CLUSTER["ebv"] + rng.normal(0.0, CLUSTER["ebv_scatter"], N_CLUSTER)
     feh = CLUSTER["feh"] + rng.normal(0.0, CLUSTER["feh_scatter"], N_CLUSTER)
     order = np.argsort(-t)  # hottest first: names run down the cluster sequence
-    return {k: v[order] for k, v in
-            {"t": t, "radius": radius, "giant": giant, "distance": dist, "ebv": ebv, "feh": feh}.items()}
+    p = {"t": t, "radius": radius, "giant": giant, "distance": dist, "ebv": ebv, "feh": feh,
+         "logg": surface_gravity(radius, giant)}
+    return {k: v[order] for k, v in p.items()}
 
 
 def night_checker():
@@ -184,7 +293,7 @@ def build(rng=None):
     for group, prefix, p, ras, decs in groups:
         n = len(p["t"])
         th = theta_rad(p["radius"], p["distance"])
-        true_mags = magnitudes(p["t"], p["ebv"], th)
+        true_mags = magnitudes(p["t"], p["ebv"], th, p["giant"], p["feh"], p["logg"])
         has_gaia = rng.uniform(size=n) < 0.7
         plx_true = 1000.0 / p["distance"]
         plx_err = rng.uniform(0.02, 0.08, n)
@@ -198,13 +307,16 @@ def build(rng=None):
             ebv_meas = np.full(n, CLUSTER["ebv"])
             feh_meas = np.full(n, CLUSTER["feh"])
         noise = {b: rng.standard_normal(n) for b in BANDS}
+        logg_meas = p["logg"] + LOGG_ERR * rng.standard_normal(n)
+        # a quarter of the field dwarfs have no log g yet: the engine says which class it assumed
+        logg_known = p["giant"] | (rng.uniform(size=n) >= (0.25 if group == "field" else 0.0))
         for i in range(n):
             name = f"{prefix}{i + 1:02d}"
             row = {"name": name, "group": group, "ra": round(float(ras[i]), 5), "dec": round(float(decs[i]), 5)}
             mags = {}
             for b in BANDS:
-                if b in GAIA and not has_gaia[i]:
-                    mags[b] = (None, None)
+                if (b in GAIA and not has_gaia[i]) or not np.isfinite(true_mags[b][i]):
+                    mags[b] = (None, None)  # not observed, or no colour for it in the sequence
                     continue
                 err = float(mag_error(true_mags[b][i]))
                 mags[b] = (round(float(true_mags[b][i] + err * noise[b][i]), 3), round(err, 3))
@@ -217,7 +329,8 @@ def build(rng=None):
                 row[b], row[b + "_err"] = mags[b]
             row.update({"ebv": round(float(ebv_meas[i]), 3), "ebv_err": round(float(ebv_err[i]), 3),
                         "parallax": round(float(plx[i]), 4), "parallax_err": round(float(plx_err[i]), 4),
-                        "feh": round(float(feh_meas[i]), 2)})
+                        "feh": round(float(feh_meas[i]), 2),
+                        "logg": round(float(logg_meas[i]), 2) if logg_known[i] else None})
             targets.append(row)
             tr = {"name": name, "group": group, "t_true": round(float(p["t"][i]), 1),
                   "theta_true_mas": float(f"{th[i] * MAS_PER_RAD:.6g}"),
@@ -226,9 +339,10 @@ def build(rng=None):
                   "ebv_true": round(float(p["ebv"][i]), 4),
                   "parallax_true": round(float(plx_true[i]), 5),
                   "feh_true": round(float(p["feh"][i]), 3),
+                  "logg_true": round(float(p["logg"][i]), 3),
                   "stage": "giant" if p["giant"][i] else "dwarf"}
             for b in BANDS:
-                tr[f"{b}_true"] = round(float(true_mags[b][i]), 4)
+                tr[f"{b}_true"] = round(float(true_mags[b][i]), 4) if np.isfinite(true_mags[b][i]) else None
             truth.append(tr)
     return targets, truth
 

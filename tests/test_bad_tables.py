@@ -33,8 +33,8 @@ def _lines(n=12):
 
 
 def _rows(path):
-    with open(path, encoding="utf-8", newline="") as fh:
-        return list(csv.DictReader(fh))
+    with open(path, encoding="utf-8", newline="") as fh:  # below the ECSV header of '#' lines
+        return list(csv.DictReader(line for line in fh if not line.startswith("#")))
 
 
 def _run(tmp_path, data, out="out.csv", **kw):
@@ -219,7 +219,7 @@ def test_fits_output_holds_non_ascii_names_lists_and_times_with_notes(tmp_path):
     notes = " | ".join(summary.notes)
     for col in ("name", "tags", "when"):
         assert f"column '{col}'" in notes
-    assert "non-ASCII text" in back.meta["CONVERSI"]
+    assert "non-ASCII text" in back.meta["conversions"]
 
 
 def test_votable_output_holds_unsigned_integers(tmp_path):

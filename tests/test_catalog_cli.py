@@ -33,7 +33,7 @@ def test_json_summary_and_exit_code(tmp_path, capsys):
     assert run_cli(args, engine=fake_estimate) == 0
     summary = json.loads(capsys.readouterr().out)
     assert summary["rows"] == 2 and summary["successes"] == 1 and summary["flag_counts"]["bad_input"] == 1
-    assert json.loads(pq.read_schema(out).metadata[b"stelltemp"])["ebv"] == "0.05"
+    assert json.loads(pq.read_schema(out).metadata[b"stelltemp"])["ebv_source"] == "0.05 mag for every row"
 
 
 def test_existing_output_is_one_line_exit_2(tmp_path, capsys):

@@ -15,8 +15,9 @@ from stelltemp.catalog.tableio import ChunkReader, open_sink, read_table, table_
 from stelltemp.errors import StelltempError
 
 FORMATS = ["parquet", "csv", "ecsv", "fits", "vot"]
-RUN = {"tool": "stelltemp", "tool_version": "9.9", "method": "auto", "passbands": "jc.B,jc.V",
-       "extinction_law": "G23", "r_v": 3.1, "ebv": "0.1", "run_utc": "2026-01-01T00:00:00+00:00"}
+RUN = {"tool_name": "stelltemp", "tool_version": "9.9", "method_requested": "auto", "passbands": "jc.B,jc.V",
+       "extinction_law": "G23", "R_V": 3.1, "ebv_source": "0.1 mag for every row", "flag_1_name": "bad_input",
+       "run_time_utc": "2026-01-01T00:00:00+00:00"}
 
 
 def _table():
@@ -38,18 +39,19 @@ def test_round_trip_keeps_values_units_and_run_record(tmp_path, ext):
     np.testing.assert_array_equal(np.asarray(back["t_bb"], float), [5000.0, 6000.0, np.nan])
     assert back["t_bb"].unit == u.K
     assert list(back["flags"]) == [0, 1, 2]
-    meta = {k.upper(): v for k, v in back.meta.items()}
-    key = "STVERSN" if ext == "fits" else "TOOL_VERSION"
-    assert str(meta[key]) == "9.9"
+    assert back.meta == RUN  # one layout, every format
     assert [p.name for p in tmp_path.iterdir() if p.name.startswith(".")] == []
 
 
-def test_csv_sidecar_holds_units_and_record(tmp_path):
+def test_csv_carries_an_ecsv_header(tmp_path):
     path = tmp_path / "out.csv"
     write_table(_table(), path, run_meta=RUN)
-    side = json.loads((tmp_path / "out.csv.meta.json").read_text())
-    assert side["units"] == {"t_bb": "K"} and side["run"]["extinction_law"] == "G23"
-    assert path.read_text().splitlines()[0] == "name,jc.V,t_bb,flags"
+    lines = path.read_text().splitlines()
+    assert lines[0] == "# %ECSV 1.0"
+    assert [x for x in lines if not x.startswith("#")][0] == "name,jc.V,t_bb,flags"
+    back = Table.read(path, format="ascii.ecsv")
+    assert back["t_bb"].unit == u.K and back.meta["extinction_law"] == "G23"
+    assert not (tmp_path / "out.csv.meta.json").exists()
 
 
 def test_unknown_extension_and_missing_file(tmp_path):

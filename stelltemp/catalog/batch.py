@@ -20,6 +20,7 @@ from datetime import datetime, timezone
 import numpy as np
 
 from stelltemp.catalog import tableio
+from stelltemp.catalog.describe import input_units
 from stelltemp.catalog.hygiene import prepare_inputs
 from stelltemp.catalog.mapping import ColumnMap, default_mapping, load_mapping, mapping_from_dict
 from stelltemp.engine import flags as F
@@ -33,6 +34,10 @@ RESULT_SUFFIX = "_result"
 DEFAULT_CHUNK_ROWS = 50_000
 #: column with the reasons of the flags set before the engine ran
 NOTES_COLUMN = "input_notes"
+#: column naming the method the engine applied to the row
+METHOD_COLUMN = "t_bb_method"
+#: columns whose joint presence marks a table as a stelltemp result
+RESULT_MARKERS = ("t_bb", "t_bb_lo", "t_bb_hi", "flag_names")
 
 
 @dataclass(frozen=True)
@@ -161,25 +166,10 @@ def tool_version():
 
 
 def run_record(cmap, opts):
-    """Run metadata stored with the output (keys listed in `tableio.FITS_KEYS`)."""
-    if "ebv" in cmap.columns:
-        ebv = f"column {cmap.columns['ebv']}"
-    elif "ebv" in cmap.values:
-        ebv = f"{cmap.values['ebv']:g}"
-    else:
-        ebv = "0"
-    if opts.fit_ebv:
-        ebv += " (fitted)"
-    return {
-        "tool": "stelltemp",
-        "tool_version": tool_version(),
-        "method": opts.method,
-        "passbands": ",".join(cmap.bands),
-        "extinction_law": opts.law,
-        "r_v": float(opts.rv),
-        "ebv": ebv,
-        "run_utc": datetime.now(timezone.utc).isoformat(timespec="seconds"),
-    }
+    """Run metadata stored with the output (layout in :mod:`stelltemp.catalog.describe`)."""
+    from stelltemp.catalog.describe import run_record as describe_run
+
+    return describe_run(cmap, opts, tool_version(), datetime.now(timezone.utc).isoformat(timespec="seconds"))
 
 
 def resolve_mapping(colnames, mapping=None, ebv=None, ebv_err=None, vector_columns=()):
@@ -253,6 +243,8 @@ def compute_chunk(chunk, cmap, opts, engine, row_notes=()):
     res["flags"] = masks
     res["flag_names"] = F.describe_all(masks)
     res[NOTES_COLUMN] = clean.notes
+    if "method" in res.meta and METHOD_COLUMN not in res.colnames:  # the method applied, row by row
+        res[METHOD_COLUMN] = np.full(n, str(res.meta["method"]))
     return res
 
 
@@ -297,13 +289,23 @@ def result_names(input_names, result_cols):
     return out
 
 
-def merge_arrow(chunk, results, names, types=None):
-    """Input chunk (any kind) plus renamed results as one pyarrow Table."""
+def merge_arrow(chunk, results, names, types=None, input_info=None):
+    """Input chunk (any kind) plus renamed results as one pyarrow Table.
+
+    ``input_info`` (from `stelltemp.catalog.describe.input_units`) gives
+    input columns without a unit their unit and description; every result
+    column gets its description.
+    """
     import pyarrow as pa
+
+    from stelltemp.catalog.describe import describe_result
 
     left = chunk if isinstance(chunk, pa.Table) else tableio.astropy_to_arrow(chunk)
     if types:
         left = tableio.apply_types(left, types)
+    if input_info:
+        fields = [tableio.with_column_info(f, *input_info.get(f.name, (None, None))) for f in left.schema]
+        left = pa.Table.from_arrays(left.columns, schema=pa.schema(fields, metadata=left.schema.metadata))
     coded = "flag_names" in results.colnames and "flags" in results.colnames
     # text held as shared str objects goes to Arrow directly (pyarrow reads such arrays in C)
     texts = [c for c in results.colnames if getattr(results[c], "dtype", None) == object
@@ -321,24 +323,70 @@ def merge_arrow(chunk, results, names, types=None):
         else:
             col = right.column(name)
             f = right.schema.field(name)
-        left = left.append_column(pa.field(names[f.name], f.type, metadata=f.metadata), col)
+        field = tableio.with_column_info(pa.field(names[f.name], f.type, metadata=f.metadata),
+                                         description=describe_result(f.name))
+        left = left.append_column(field, col)
     return left
 
 
-def merge_astropy(chunk, results, names, types=None):
-    """Input chunk (any kind) plus renamed results as one astropy Table."""
+def merge_astropy(chunk, results, names, types=None, input_info=None):
+    """Input chunk (any kind) plus renamed results as one astropy Table (see `merge_arrow`)."""
     import pyarrow as pa
     from astropy.table import Table
+
+    from stelltemp.catalog.describe import describe_result
 
     if isinstance(chunk, pa.Table):
         left = tableio.arrow_to_astropy(tableio.apply_types(chunk, types) if types else chunk)
     else:
-        left = Table(chunk, copy=False)
+        left = Table(chunk, copy=True)
+    left.meta.clear()  # the output's metadata is the run record alone
+    for name, (unit, text) in (input_info or {}).items():
+        if name in left.colnames:
+            col = left[name]
+            if unit and getattr(col, "unit", None) is None and col.dtype.kind in "fiu":
+                col.unit = unit
+            if text and not col.info.description:
+                col.info.description = text
     for name in results.colnames:
         col = results[name]
         # text held as shared str objects (flag names): fixed-width text for the file writers
         left[names[name]] = col.astype(str) if getattr(col, "dtype", None) == object else col
+        if not left[names[name]].info.description:
+            left[names[name]].info.description = describe_result(name)
     return left
+
+
+def result_columns_in(colnames):
+    """Columns of an earlier stelltemp run among ``colnames`` ([] when it is no result table).
+
+    A table counts as a result when it holds every column of `RESULT_MARKERS`;
+    its result columns are the engine's, the catalogue layer's and their
+    ``_result``-suffixed twins.
+    """
+    from stelltemp.engine import RESULT_COLUMNS
+
+    if not all(m in colnames for m in RESULT_MARKERS):
+        return []
+    known = set(RESULT_COLUMNS) | {NOTES_COLUMN, METHOD_COLUMN}
+    out = []
+    for name in colnames:
+        base = name
+        while base.endswith(RESULT_SUFFIX) and base not in known:
+            base = base[: -len(RESULT_SUFFIX)]
+        if base in known:
+            out.append(name)
+    return out
+
+
+def _without(chunk, drop):
+    """``chunk`` (pyarrow or astropy) without the columns ``drop``."""
+    if not drop:
+        return chunk
+    if hasattr(chunk, "drop_columns"):
+        return chunk.drop_columns(list(drop))
+    keep = [c for c in chunk.colnames if c not in set(drop)]
+    return chunk[keep]
 
 
 def progress_bar(total, quiet):
@@ -362,6 +410,7 @@ def run_catalogue(
     method="auto",
     fit_ebv=False,
     overwrite=False,
+    renew_results=False,
     chunk_rows=DEFAULT_CHUNK_ROWS,
     quiet=False,
     engine=None,
@@ -386,6 +435,10 @@ def run_catalogue(
         Fit E(B−V) instead of taking it as given.
     overwrite : bool
         Allow replacing an existing output file.
+    renew_results : bool
+        The input is itself a stelltemp result table: drop its result
+        columns and compute them again (without this such an input is
+        refused, so results never pile up as ``*_result`` columns).
     chunk_rows : int
         Rows per chunk (memory bound for streaming formats).
     quiet : bool
@@ -408,12 +461,17 @@ def run_catalogue(
     opts.check()
     tableio.check_output(output_path, overwrite, input_path)
     reader = tableio.ChunkReader(input_path, chunk_rows)
-    cmap = resolve_mapping(reader.colnames, mapping, ebv, ebv_err, reader.vector_columns())
+    old = check_old_results(input_path, reader.colnames, renew_results)
+    colnames = [c for c in reader.colnames if c not in set(old)]
+    cmap = resolve_mapping(colnames, mapping, ebv, ebv_err, [c for c in reader.vector_columns() if c not in old])
+    input_info = input_units(colnames, cmap)
     engine = engine or default_engine()
     out_fmt = tableio.table_format(output_path)
-    types, conversions = None, []
+    types, conversions, declared = None, [], None
     if reader.fmt == "csv" and out_fmt != "csv":  # give typed columns to typed formats
         types = tableio.narrowest_types(iter(reader), reader.colnames, conversions)
+    elif reader.fmt == "csv":  # CSV to CSV keeps its text and declares the types in its header
+        declared = tableio.narrowest_types(iter(reader), reader.colnames, [])
     record = run_record(cmap, opts)
     if conversions:
         record["conversions"] = "; ".join(conversions)
@@ -424,18 +482,34 @@ def run_catalogue(
         reader.num_rows, quiet
     ) as bar:
         merge = merge_arrow if sink.kind == "arrow" else merge_astropy
+        if declared:
+            sink.declared_types = declared
         for chunk in _nonempty_or_one_empty(reader):
+            chunk = _without(chunk, old)
             res = compute_chunk(chunk, cmap, opts, engine, reader.row_notes if len(chunk) else ())
             if names is None:
-                names = result_names(reader.colnames, res.colnames)
+                names = result_names(colnames, res.colnames)
             summary.add(res)
-            sink.write(merge(chunk, res, names, types))
+            sink.write(merge(chunk, res, names, types, input_info))
             bar.update(len(chunk))
     summary.notes.extend(reader.notes)
     summary.notes.extend(cmap.notes)
     summary.notes.extend(conversions + list(getattr(sink, "notes", [])))
+    if old:
+        summary.notes.append(f"{len(old)} result columns of an earlier run replaced by this run's")
     summary.wall_time_s = time.perf_counter() - t0
     return summary
+
+
+def check_old_results(source, colnames, renew):
+    """Result columns of an earlier run in the input; refused unless ``renew``."""
+    old = result_columns_in(colnames)
+    if old and not renew:
+        raise StelltempError(
+            f"{source} already holds stelltemp results ({len(old)} columns: {', '.join(old[:3])}, ...); "
+            "run on the original catalogue, or ask to compute them again and replace them "
+            "(--renew-results; renew_results=True in Python)")
+    return old
 
 
 def _nonempty_or_one_empty(reader):
@@ -450,7 +524,7 @@ def _nonempty_or_one_empty(reader):
 
 
 def estimate_table(table, mapping=None, *, ebv=None, ebv_err=None, rv=3.1, law="G23", method="auto",
-                   fit_ebv=False, engine=None):
+                   fit_ebv=False, renew_results=False, engine=None):
     """Run the engine over an in-memory astropy Table; return input plus result columns.
 
     Parameters are those of `run_catalogue` (without files).
@@ -461,10 +535,13 @@ def estimate_table(table, mapping=None, *, ebv=None, ebv_err=None, rv=3.1, law="
     """
     opts = RunOptions(rv=float(rv), law=law, method=method, fit_ebv=bool(fit_ebv))
     opts.check()
+    old = check_old_results("the table", list(table.colnames), renew_results)
+    table = _without(table, old)
     cmap = resolve_mapping(list(table.colnames), mapping, ebv, ebv_err,
                            [n for n in table.colnames if getattr(table[n], "ndim", 1) > 1])
     res = compute_chunk(table, cmap, opts, engine or default_engine())
-    return merge_astropy(table, res, result_names(table.colnames, res.colnames))
+    return merge_astropy(table, res, result_names(table.colnames, res.colnames),
+                         input_info=input_units(list(table.colnames), cmap))
 
 
 __all__ = [

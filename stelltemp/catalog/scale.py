@@ -21,6 +21,7 @@ from stelltemp.catalog import tableio
 from stelltemp.catalog.batch import (
     RunOptions,
     RunSummary,
+    check_old_results,
     progress_bar,
     compute_chunk,
     default_engine,
@@ -29,6 +30,7 @@ from stelltemp.catalog.batch import (
     result_names,
     run_record,
 )
+from stelltemp.catalog.describe import input_units
 from stelltemp.errors import StelltempError
 
 LOCAL_SCHEDULERS = ("threads", "processes", "synchronous")
@@ -122,13 +124,15 @@ def run_catalogue_dask(
     in_schema = reader.schema if reader is not None else pa.Schema.from_pandas(ddf._meta, preserve_index=False)
     if len(set(in_schema.names)) != len(in_schema.names):
         raise StelltempError(f"{input_path}: repeated column names; run locally (it renames them)")
+    check_old_results(input_path, in_schema.names, renew=False)  # a result table: renew it locally
     cmap = resolve_mapping(in_schema.names, mapping, ebv, ebv_err)
     engine = engine or default_engine()
 
     empty = in_schema.empty_table()
     probe = compute_chunk(empty, cmap, opts, engine)
     names = result_names(in_schema.names, probe.colnames)
-    out_schema = merge_arrow(empty, probe, names).schema
+    # units and descriptions ride on the output schema every partition is cast to
+    out_schema = merge_arrow(empty, probe, names, input_info=input_units(in_schema.names, cmap)).schema
     import pandas as pd  # comes with dask.dataframe
 
     meta = out_schema.empty_table().to_pandas(types_mapper=pd.ArrowDtype)

@@ -18,13 +18,25 @@ extension      reading                         writing
 Large runs should use Parquet or CSV on both ends: only they stream, so
 memory stays bounded by the chunk size.
 
-Units and run metadata
-----------------------
-Parquet keeps column units in the field metadata (key ``unit``) and the run
-record as JSON under the schema metadata key ``stelltemp``.  ECSV keeps both
-in its header, FITS in the table header (keys ``ST*``, see `FITS_KEYS`) and
-column ``TUNIT``, VOTable in ``INFO`` elements and ``unit`` attributes.  Plain
-CSV cannot carry them: they go to a sidecar ``<output>.meta.json``.
+Units, descriptions and the run record
+--------------------------------------
+Every format carries the column units and descriptions and the run record
+(one flat mapping, layout in :mod:`stelltemp.catalog.describe`), written so
+that astropy's ``Table.read`` gets them back without a warning:
+
+* ECSV: its YAML header;
+* CSV: the same ECSV header as ``#`` lines above the column names, comma
+  delimited (``Table.read(path, format="ascii.ecsv")`` reads it all; plain
+  CSV readers skip ``#`` lines, e.g. pandas with ``comment="#"``);
+* FITS: ``TUNIT``/``TCOMM`` per column, the record as header cards (long
+  keys as HIERARCH cards, which keep their case; long text continued);
+* VOTable: ``unit`` (VOUnit: a flux in erg s⁻¹ cm⁻² is written in the equal
+  mW m⁻²) and ``DESCRIPTION`` per field, the record as ``INFO`` elements and,
+  for astropy, as ``key = value`` lines of the table description
+  (`describe.record_from_text` parses them);
+* Parquet: units and descriptions in the field metadata, astropy's
+  ``table_meta_yaml`` schema entry (with the string lengths it expects) and
+  the record as JSON under the key ``stelltemp``.
 
 Safety
 ------
@@ -67,18 +79,7 @@ STREAMING = ("parquet", "csv")
 #: astropy registry names of the accumulated formats
 _ASTROPY_FORMAT = {"ecsv": "ascii.ecsv", "fits": "fits", "votable": "votable"}
 
-#: run-record key -> FITS header keyword (8 characters at most)
-FITS_KEYS = {
-    "tool": "STTOOL",
-    "tool_version": "STVERSN",
-    "method": "STMETHOD",
-    "passbands": "STBANDS",
-    "extinction_law": "STEXTLAW",
-    "r_v": "STRV",
-    "ebv": "STEBV",
-    "run_utc": "STRUNUTC",
-}
-
+#: CSV outputs of earlier versions kept their record beside them in ``<output>.meta.json``
 SIDECAR_SUFFIX = ".meta.json"
 
 
@@ -106,6 +107,22 @@ def unit_of_field(field):
     return unit.decode() if unit else None
 
 
+def description_of_field(field):
+    """Description stored in an arrow field's metadata, or None."""
+    text = (field.metadata or {}).get(b"description")
+    return text.decode() if text else None
+
+
+def with_column_info(field, unit=None, description=None):
+    """``field`` with a unit and a description added where it has none."""
+    meta = dict(field.metadata or {})
+    if unit and not meta.get(b"unit"):
+        meta[b"unit"] = str(unit).encode()
+    if description and not meta.get(b"description"):
+        meta[b"description"] = str(description).encode()
+    return field.with_metadata(meta) if meta else field
+
+
 def astropy_to_arrow(table):
     """An astropy Table as a pyarrow Table (units into field metadata)."""
     arrays, fields = [], []
@@ -129,8 +146,13 @@ def astropy_to_arrow(table):
             arr = pa.array(data)
         if mask is not None and mask.any():
             arr = pc.if_else(pa.array(mask), pa.scalar(None, arr.type), arr)
-        meta = {b"unit": str(unit).encode()} if unit is not None and str(unit) else None
+        meta = {}
+        if unit is not None and str(unit):
+            meta[b"unit"] = str(unit).encode()
+        if getattr(col.info, "description", None):
+            meta[b"description"] = str(col.info.description).encode()
         arrays.append(arr)
+        meta = meta or None
         fields.append(pa.field(name, arr.type, metadata=meta))
     return pa.Table.from_arrays(arrays, schema=pa.schema(fields))
 
@@ -157,10 +179,11 @@ def arrow_to_astropy(table):
         else:
             filled = col if not nulls.any() else pc.fill_null(col, pa.scalar(_zero_of(typ), typ))
             data = np.asarray(filled.to_numpy())
+        description = description_of_field(field)
         if nulls.any():
-            out[field.name] = MaskedColumn(data, mask=nulls, unit=unit)
+            out[field.name] = MaskedColumn(data, mask=nulls, unit=unit, description=description)
         else:
-            out[field.name] = Column(data, unit=unit)
+            out[field.name] = Column(data, unit=unit, description=description)
     return out
 
 
@@ -370,6 +393,8 @@ class ChunkReader:
             raise StelltempError(f"{self.path}: not a readable {self.fmt.upper()} table ({_first_line(exc)})") from None
         if self.fmt == "votable":
             self._table.meta.update(_votable_infos(self.path))
+            if "tool_name" in self._table.meta:  # the description held our run record, now unpacked
+                self._table.meta.pop("description", None)
         self.num_rows = len(self._table)
         self.colnames = list(self._table.colnames)
         self.schema = None
@@ -411,10 +436,14 @@ def _votable_infos(path):
 
     from astropy.io.votable import parse
 
+    from stelltemp.catalog.describe import record_from_text
+
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         table = parse(str(path)).get_first_table()
-    return {info.name: info.value for info in table.infos}
+    infos = {info.name: info.value for info in table.infos}
+    typed = record_from_text(table.description or "")  # our outputs: the record with its types
+    return {**infos, **typed} if typed else infos
 
 
 def _dedupe(names, notes):
@@ -560,17 +589,69 @@ def read_table(path):
     out = arrow_to_astropy(table)
     if reader.fmt == "parquet":
         raw = reader._pq.schema_arrow.metadata or {}
+        if b"table_meta_yaml" in raw:
+            _apply_header(out, _header_info(raw[b"table_meta_yaml"].decode("utf-8", "replace").splitlines()))
         if b"stelltemp" in raw:
             out.meta.update(json.loads(raw[b"stelltemp"]))
     elif reader.fmt == "csv":
-        side = Path(str(path) + SIDECAR_SUFFIX)
-        if side.is_file():
-            record = json.loads(side.read_text())
-            out.meta.update(record.get("run", {}))
-            for name, unit in record.get("units", {}).items():
-                if name in out.colnames:
-                    out[name].unit = unit
+        _apply_csv_header(path, out)
     return out
+
+
+def csv_header_info(path):
+    """Column attributes and table metadata of an ECSV header above a CSV table (None without one).
+
+    Returns
+    -------
+    (dict, dict) or None
+        Column name -> {"unit", "description"} and the table metadata.
+    """
+    lines = []
+    with open(path, encoding="utf-8", errors="replace") as fh:
+        first = fh.readline()
+        if not first.startswith("# %ECSV"):
+            return None
+        for line in fh:
+            if not line.startswith("#"):
+                break
+            line = line.rstrip("\r\n")
+            lines.append(line[2:] if line.startswith("# ") else line[1:])
+    return _header_info(lines)
+
+
+def _header_info(lines):
+    """(column attributes, metadata) of astropy's YAML header lines; None if they do not parse."""
+    from astropy.table import meta as astropy_meta
+
+    try:
+        header = astropy_meta.get_header_from_yaml(lines)
+    except Exception:  # a damaged header: the data are still readable
+        return None
+    cols = {c["name"]: {k: c[k] for k in ("unit", "description") if k in c} for c in header.get("datatype", [])}
+    return cols, dict(header.get("meta", {}))
+
+
+def _apply_csv_header(path, table):
+    """Units, descriptions and metadata of a CSV's ECSV header onto ``table`` (or of an old sidecar)."""
+    info = csv_header_info(path)
+    side = Path(str(path) + SIDECAR_SUFFIX)
+    if info is None and side.is_file():  # outputs of earlier versions
+        record = json.loads(side.read_text())
+        info = ({n: {"unit": v} for n, v in record.get("units", {}).items()}, record.get("run", {}))
+    _apply_header(table, info)
+
+
+def _apply_header(table, info):
+    if info is None:
+        return
+    cols, meta = info
+    table.meta.update(meta)
+    for name, attrs in cols.items():
+        if name in table.colnames:
+            if attrs.get("unit") and table[name].dtype.kind in "fiu":
+                table[name].unit = attrs["unit"]
+            if attrs.get("description"):
+                table[name].info.description = attrs["description"]
 
 
 # --------------------------------------------------------------------- CSV text -> types
@@ -656,7 +737,7 @@ def apply_types(chunk, types):
 def check_output(path, overwrite=False, input_path=None):
     """Refuse to replace an existing output (or the input) before any work starts."""
     path = Path(path)
-    fmt = table_format(path)
+    table_format(path)
     if input_path is not None:
         try:
             same = Path(input_path).resolve() == path.resolve()
@@ -664,8 +745,7 @@ def check_output(path, overwrite=False, input_path=None):
             same = False
         if same:
             raise StelltempError(f"{path}: the output would replace the input")
-    for p in (path, Path(str(path) + SIDECAR_SUFFIX)) if fmt == "csv" else (path,):
-        check_output_path(p, overwrite)
+    check_output_path(path, overwrite)
 
 
 # --------------------------------------------------------------------- sinks
@@ -693,25 +773,70 @@ class Sink:
 
 
 class ParquetSink(Sink):
+    """Streams chunks to Parquet; the metadata goes into the file's footer at close.
+
+    The footer then holds astropy's ``table_meta_yaml`` (units, descriptions,
+    the run record), the text-column lengths astropy's reader expects
+    (``table::len::<name>``, known only once every chunk is written) and the
+    record as JSON under ``stelltemp``.  The arrow schema is not stored
+    separately, so these footer entries are the schema metadata every reader
+    sees.
+    """
+
     def __init__(self, tmp, run_meta):
         self.tmp, self.run_meta, self.writer, self.schema = tmp, run_meta, None, None
+        self.text_lengths = {}
+        self.header = None
 
     def write(self, chunk):
         import pyarrow.parquet as pq
 
         if self.writer is None:
-            meta = dict(chunk.schema.metadata or {})
-            meta.pop(b"pandas", None)
-            meta[b"stelltemp"] = json.dumps(self.run_meta).encode()
-            self.schema = chunk.schema.with_metadata(meta)
+            self.header = astropy_header(chunk.schema, self.run_meta, delimiter=None)
+            self.schema = chunk.schema.remove_metadata()
             # dictionary pages only for text: on float columns they cost time and save nothing
-            text = [f.name for f in self.schema if pa.types.is_string(f.type) or pa.types.is_large_string(f.type)]
-            self.writer = pq.ParquetWriter(self.tmp, self.schema, use_dictionary=text or False)
-        self.writer.write_table(chunk.cast(self.schema))
+            text = [f.name for f in self.schema if _is_text(f.type)]
+            self.text_lengths = dict.fromkeys(text, 1)
+            self.writer = pq.ParquetWriter(self.tmp, self.schema, use_dictionary=text or False, store_schema=False)
+        chunk = chunk.cast(self.schema)
+        for name in self.text_lengths:
+            longest = pc.max(pc.utf8_length(chunk[name])).as_py() if chunk.num_rows else None
+            self.text_lengths[name] = max(self.text_lengths[name], longest or 0)
+        self.writer.write_table(chunk)
 
     def close(self):
         if self.writer is not None:
+            footer = {"stelltemp": json.dumps(self.run_meta), "table_meta_yaml": self.header}
+            footer.update({f"table::len::{n}": str(k) for n, k in self.text_lengths.items()})
+            self.writer.add_key_value_metadata(footer)
             self.writer.close()
+
+
+def _is_text(typ):
+    return pa.types.is_string(typ) or pa.types.is_large_string(typ)
+
+
+def astropy_header(schema, run_meta, delimiter=","):
+    """astropy's YAML header (as ECSV writes it) for an arrow schema and a run record.
+
+    With ``delimiter`` the ECSV header lines (``#``-prefixed) and the column
+    names line of a comma-delimited ECSV; with None the bare YAML that
+    astropy keeps in Parquet's ``table_meta_yaml``.
+    """
+    import io
+
+    from astropy.table import meta as astropy_meta
+
+    empty = arrow_to_astropy(schema.empty_table())
+    for field in schema:
+        if pa.types.is_nested(field.type) and delimiter:  # written as JSON text in CSV
+            empty[field.name] = empty[field.name].astype(str)
+    empty.meta.update(run_meta)
+    if delimiter is None:
+        return "\n".join(astropy_meta.get_yaml_from_table(empty))
+    buf = io.StringIO()
+    empty.write(buf, format="ascii.ecsv", delimiter=delimiter)
+    return buf.getvalue()
 
 
 class CsvSink(Sink):
@@ -724,15 +849,18 @@ class CsvSink(Sink):
 
     def __init__(self, tmp, run_meta):
         self.tmp, self.run_meta, self.writer, self.schema = tmp, run_meta, None, None
-        self.units = {}
+        #: column -> arrow type declared in the header for text columns whose every cell parses as
+        #: that type (the text itself is written as read)
+        self.declared_types = {}
 
     def write(self, chunk):
         if self.writer is None:
             self.schema = chunk.schema
-            self.units = {f.name: unit_of_field(f) for f in chunk.schema if unit_of_field(f)}
             self.writer = open(self.tmp, "wb")
-            header = ",".join(_csv_quote(n) for n in self.schema.names) + "\n"
-            self.writer.write(header.encode())
+            declared = pa.schema([f.with_type(self.declared_types.get(f.name, f.type)) if _is_text(f.type) else f
+                                  for f in self.schema])
+            # the ECSV header (units, descriptions, run record) as '#' lines, then the names line
+            self.writer.write(astropy_header(declared, self.run_meta).encode())
         chunk = chunk.cast(self.schema)
         if chunk.num_rows:
             self.writer.write(_csv_text(chunk))
@@ -740,15 +868,6 @@ class CsvSink(Sink):
     def close(self):
         if self.writer is not None:
             self.writer.close()
-
-    def sidecar(self):
-        return json.dumps({"run": self.run_meta, "units": self.units}, indent=1)
-
-
-def _csv_quote(text):
-    if any(c in text for c in ',"\r\n'):
-        return '"' + text.replace('"', '""') + '"'
-    return text
 
 
 def _csv_text(chunk):
@@ -811,22 +930,56 @@ class AstropySink(Sink):
         if not self.parts:
             raise StelltempError("nothing to write")
         table = vstack(self.parts, metadata_conflicts="silent") if len(self.parts) > 1 else self.parts[0]
+        table = table.copy(copy_data=False)  # the caller's table stays as it was
         self.notes = storable_columns(table, self.fmt)
         if self.notes:
             self.run_meta = {**self.run_meta, "conversions": "; ".join(self.notes)}
+        record = {**table.meta, **self.run_meta}
+        table.meta.clear()
+        table.meta.update(record)
         with warnings.catch_warnings():
-            warnings.simplefilter("ignore")  # HIERARCH / unit-string chatter
+            # writing long keys as HIERARCH cards is intended: they keep their case on reading
+            warnings.simplefilter("ignore")
             if self.fmt == "fits":
-                for key, val in self.run_meta.items():
+                for key, val in record.items():
                     if isinstance(val, str):  # FITS header text is ASCII
-                        val = val.encode("ascii", "backslashreplace").decode("ascii")
-                    table.meta[FITS_KEYS.get(key, key[:8].upper())] = val
+                        table.meta[key] = val.encode("ascii", "backslashreplace").decode("ascii")
                 table.write(self.tmp, format="fits", overwrite=True)
             elif self.fmt == "votable":
-                _write_votable(table, self.tmp, self.run_meta)
+                _write_votable(table, self.tmp, record)
             else:
-                table.meta.update(self.run_meta)
                 table.write(self.tmp, format="ascii.ecsv", overwrite=True)
+
+
+def vounit_column(col):
+    """A column whose unit VOUnit accepts: erg s⁻¹ cm⁻² becomes the equal mW m⁻²; others kept.
+
+    A unit VOUnit cannot express at all is dropped and named in the description.
+    """
+    import warnings
+
+    import astropy.units as u
+
+    unit = getattr(col, "unit", None)
+    if unit is None:
+        return col
+    flux = u.erg / u.s / u.cm**2
+    if unit.is_equivalent(flux) and "erg" in str(unit):
+        factor = (1 * unit).to_value(u.mW / u.m**2)
+        new = col * factor if factor != 1 else col.copy()
+        new.unit = u.mW / u.m**2
+        new.info.description = col.info.description
+        return new
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("error")
+            unit.to_string("vounit")
+    except (ValueError, UserWarning):
+        new = col.copy()
+        new.unit = None
+        new.info.description = f"{col.info.description or col.info.name} [{unit}]"
+        return new
+    return col
 
 
 def storable_columns(table, fmt):
@@ -896,7 +1049,15 @@ def _json_cell(value):
 def _write_votable(table, path, run_meta):
     from astropy.io.votable import from_table
     from astropy.io.votable.tree import Info
+    from astropy.table import Table
 
+    from stelltemp.catalog.describe import record_to_text
+
+    table = Table(table, copy=False)
+    for name in table.colnames:
+        table[name] = vounit_column(table[name])
+    table.meta.clear()
+    table.meta["description"] = record_to_text(run_meta)
     vot = from_table(table)
     for key, val in run_meta.items():
         vot.resources[0].tables[0].infos.append(Info(name=key, value=str(val)))
@@ -912,7 +1073,8 @@ def open_sink(path, run_meta, overwrite=False):
     path : path-like
         Final output file; its extension selects the format.
     run_meta : dict
-        Run record (see `FITS_KEYS` for the keys) stored with the table.
+        Run record stored with the table: flat, text keys, plain values
+        (layout in :mod:`stelltemp.catalog.describe`).
     overwrite : bool
         Allow replacing an existing file.
 
@@ -923,9 +1085,6 @@ def open_sink(path, run_meta, overwrite=False):
     fmt = table_format(path)
     with contextlib.ExitStack() as stack:
         tmp = stack.enter_context(atomic_path(path, overwrite))
-        side_tmp = None
-        if fmt == "csv":
-            side_tmp = stack.enter_context(atomic_path(Path(str(path) + SIDECAR_SUFFIX), overwrite))
         if fmt == "parquet":
             sink = ParquetSink(tmp, run_meta)
         elif fmt == "csv":
@@ -940,8 +1099,6 @@ def open_sink(path, run_meta, overwrite=False):
             sink.abort()
             raise
         sink.close()
-        if side_tmp is not None:
-            side_tmp.write_text(sink.sidecar())
 
 
 def write_table(table, path, run_meta=None, overwrite=False):

@@ -1,6 +1,7 @@
 """``stelltemp catalogue``: temperatures for every row of a table file."""
 
 import argparse
+import json
 import sys
 from pathlib import Path
 
@@ -30,6 +31,9 @@ def add(subparsers):
     p.add_argument("--fit-ebv", action="store_true", help="fit E(B-V) from the photometry")
     p.add_argument("--method", default="auto", choices=["auto", "colour", "fit"], help="engine method")
     options.add_replace(p)
+    p.add_argument("--renew-results", action="store_true",
+                   help="the input is a stelltemp results table: drop its result columns and compute them again "
+                        "(without this such an input is refused)")
     p.add_argument("--chunk-rows", type=int, default=DEFAULT_CHUNK_ROWS, metavar="N",
                    help="rows per chunk; memory grows with it")
     p.add_argument("--quiet", action="store_true", help="no progress bar and no closing summary text")
@@ -73,21 +77,31 @@ def run(args, out=None, err=None, engine=None):
         if args.dask or args.scheduler:
             from ..catalog.scale import run_catalogue_dask
 
+            if args.renew_results:
+                raise StelltempError("--renew-results works on local runs (leave out --dask)")
+
             summary = run_catalogue_dask(args.input, target, scheduler=args.scheduler, workers=args.workers,
                                          local=args.dask_local, **common)
         else:
             from ..catalog.batch import run_catalogue
 
-            summary = run_catalogue(args.input, target, chunk_rows=args.chunk_rows, **common)
+            summary = run_catalogue(args.input, target, chunk_rows=args.chunk_rows,
+                                    renew_results=args.renew_results, **common)
     except StelltempError as exc:
         text = str(exc).replace("(allow replacing it explicitly, e.g. with --replace)", "(add --replace to replace it)")
         raise StelltempError(text) from None
+    figure = None
     if args.plot:
         from ..catalog.figure import plot_results
 
-        plot_results(target, args.plot, args.law, args.rv, replace=args.replace)
+        figure = str(plot_results(target, args.plot, args.law, args.rv, replace=args.replace))
     if args.json:
-        print(summary.to_json(), file=out)
+        record = summary.to_dict()
+        if figure:
+            record["figure"] = figure
+        print(json.dumps(record, indent=1), file=out)
     elif not args.quiet:
         print(summary, file=out)
+        if figure:
+            print(f"figure: {figure}", file=out)
     return 0
