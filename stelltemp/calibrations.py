@@ -399,6 +399,16 @@ class Relation:
             in_range = (g >= self.logg_range[0]) & (g < self.logg_range[1])
         return np.where(known, in_range, unknown_ok)
 
+    def scatter_text(self):
+        """The scatter in words: ``'25 K'``, ``'4 % of T_eff'`` or both.
+
+        >>> get_relation("pm13_ub_hot").scatter_text()
+        '4 % of T_eff'
+        """
+        parts = ([f"{self.scatter:.0f} K"] if self.scatter > 0 else []) + (
+            [f"{100 * self.scatter_frac:.0f} % of T_eff"] if self.scatter_frac > 0 else [])
+        return " + ".join(parts)
+
     def range_text(self):
         """The validity ranges in words, e.g. ``'V-Ks 0.78–3.15 mag, [Fe/H] −5.0…0.4, dwarf'``."""
         lo, hi = self.colour_range
@@ -930,4 +940,6 @@ def relation_summary(relation):
     r = relation
     return {"key": r.key, "colour": r.colour_name, "blue": r.blue, "red": r.red, "stage": r.stage,
             "colour_range_mag": list(r.colour_range), "feh_range_dex": list(r.feh_range),
-            "scatter_K": r.scatter, "citation": str(r.citation)}
+            "logg_range_dex": list(r.logg_range), "needs_logg": r.needs_logg, "form": r.form,
+            "scatter_K": r.scatter, "scatter_fraction": r.scatter_frac, "scatter": r.scatter_text(),
+            "citation": str(r.citation)}

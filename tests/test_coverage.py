@@ -33,14 +33,14 @@ RELATIONS = ("c10_bv", "c10_vi", "c10_vh", "c10_vk", "mbm21_bprp_dwarf")
 
 
 def _inverse_relation(rel, teff, feh):
-    """Intrinsic colour that the relation maps to ``teff`` (dense grid, per star)."""
-    x = np.linspace(*rel.colour_range, 4001)
-    t, _ = rel.teff(x[None, :], feh[:, None])
-    # T decreases along x; interpolate each star's row
-    out = np.empty(teff.size)
-    for j in range(teff.size):
-        out[j] = np.interp(teff[j], t[j, ::-1], x[::-1], left=np.nan, right=np.nan)
-    return out
+    """Intrinsic colour that the relation maps to ``teff`` (Newton from mid-range, per star)."""
+    lo, hi = rel.colour_range
+    x = np.full(teff.size, (lo + hi) / 2)
+    for _ in range(30):
+        t, _ = rel.teff(x, feh)
+        x = np.clip(x + (teff - t) / rel.dteff_dcolour(x, feh), lo, hi)
+    t, inside = rel.teff(x, feh)
+    return np.where(inside & (np.abs(t - teff) < 0.01), x, np.nan)
 
 
 def _redden(mags, t, ebv):

@@ -40,7 +40,8 @@ def run(args, out=None, err=None):
             print(f"{r.key:18s} {r.colour_name:7s} {r.stage:5s} "
                   f"X in [{r.colour_range[0]:.2f}, {r.colour_range[1]:.2f}] mag  "
                   f"[Fe/H] in [{r.feh_range[0]:.1f}, {r.feh_range[1]:.1f}]  "
-                  f"scatter {r.scatter:.0f} K  ({r.citation})", file=out)
+                  f"scatter {r.scatter_text()}{'  needs log g' if r.needs_logg else ''}  ({r.citation})",
+                  file=out)
         return 0
     if args.colour is None:
         raise StelltempError("--use needs --colour")

@@ -21,6 +21,11 @@ def add(subparsers):
     p.add_argument("--parallax", type=float, metavar="MAS", help="parallax, mas (for radius and luminosity)")
     p.add_argument("--parallax-err", type=float, metavar="MAS", help="1-sigma error of the parallax, mas")
     p.add_argument("--feh", type=float, metavar="DEX", help="[Fe/H], dex, for the calibrations (default: solar)")
+    p.add_argument("--feh-err", type=float, metavar="DEX", help="1-sigma error of [Fe/H], dex")
+    p.add_argument("--cal-ebv", action="store_true",
+                   help="fit E(B-V) from the calibrated colours themselves (3+ colours, or --ebv-err as prior)")
+    p.add_argument("--each-relation", action="store_true",
+                   help="also show each calibrated relation's own temperature and error")
     p.add_argument("--logg", type=float, metavar="DEX",
                    help="log g, cgs dex, for the calibrations: dwarf or giant (default: dwarf)")
     p.add_argument("--method", default="auto", choices=["auto", "colour", "fit"],
@@ -63,7 +68,8 @@ def run(args, out=None, err=None):
     row, meta, table = estimate_star(
         typed, ebv=args.ebv, ebv_err=args.ebv_err, av=args.av, av_err=args.av_err, rv=args.rv, law=args.law,
         fit_ebv=args.fit_ebv, parallax=args.parallax, parallax_err=args.parallax_err, feh=args.feh,
-        logg=args.logg, method=args.method, monte_carlo=args.monte_carlo, seed=args.seed)
+        logg=args.logg, method=args.method, monte_carlo=args.monte_carlo, seed=args.seed,
+        feh_err=args.feh_err, cal_ebv=args.cal_ebv, cal_detail=args.each_relation)
     if args.plot:
         from ..plots import plot_star_fit
 
@@ -83,6 +89,18 @@ def run(args, out=None, err=None):
     cal = m(r["teff_cal"], r["teff_cal_err"], "K", reason=_reason_no_teff(r))
     print(f"  effective temperature          T_eff = {cal}   (calibrated, {plural(r['n_cal'], 'relation')})",
           file=out)
+    if r["cal_used"]:
+        agree = (f"; colours agree to chi2 = {number(r['cal_chi2'], '', 3)} for "
+                 f"{plural(r['cal_dof'], 'degree of freedom', 'degrees of freedom')}"
+                 if r["cal_dof"] and r["cal_dof"] > 0 else "")
+        print(f"    relations used: {r['cal_used'].replace(',', ', ')}{agree}", file=out)
+    if args.each_relation:
+        fitted = r["ebv_cal"]["value"] == r["ebv_cal"]["value"]
+        for key in r["cal_used"].split(",") if r["cal_used"] else []:
+            print(f"    {key:28s} T_eff = {m(r['teff_' + key], r['teff_' + key + '_err'], 'K')}"
+                  + ("   (at the fitted E(B-V); its error not included)" if fitted else ""), file=out)
+    if r["ebv_cal"]["value"] == r["ebv_cal"]["value"]:  # not NaN: fitted from the calibrations
+        print(f"  E(B-V) from the calibrations   {m(r['ebv_cal'], r['ebv_cal_err'], 'mag')}", file=out)
     print(f"  E(B-V) used                    {m(r['ebv_used'], r['ebv_used_err'], 'mag')}", file=out)
     if r["dof"] and r["dof"] > 0:
         print(f"  fit                            chi2 = {number(r['chi2'], '', 3)} for "
@@ -95,7 +113,14 @@ def run(args, out=None, err=None):
     print(f"  radius                         {m(r['radius'], r['radius_err'], 'R_sun', reason=why)}", file=out)
     print(f"  luminosity                     {m(r['luminosity'], r['luminosity_err'], 'L_sun', reason=why)}",
           file=out)
-    print(f"  flags: {r['flag_names'] or 'none'}", file=out)
+    severity = f" ({r['severity']})" if r["severity"] else ""
+    print(f"  flags: {r['flag_names'] or 'none'}{severity}", file=out)
+    if r["assumed"]:
+        print(f"  assumed: {r['assumed']}", file=out)
+    # the class assumed is already listed under 'assumed'
+    cal_note = "; ".join(x for x in r["teff_cal_note"].split("; ") if not x.startswith("log g unknown"))
+    if cal_note:
+        print(f"  calibration note: {cal_note}", file=out)
     print(f"  note: {meta['note']}", file=out)
     if args.plot:
         print(f"  figure: {args.plot}", file=out)

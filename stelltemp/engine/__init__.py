@@ -75,7 +75,8 @@ def _clean_photometry(mags, errs, keys, n, notes=None):
     e = np.empty((n, len(keys)))
     for b, k in enumerate(keys):
         m[:, b] = _column(mags[k], n, f"magnitudes in {k}")
-        e[:, b] = _column(errs.get(k), n, f"errors in {k}", DEFAULT_MAG_ERR)
+        # a band without an error column: NaN here, the default below (and noted)
+        e[:, b] = _column(errs.get(k), n, f"errors in {k}", np.nan)
     with np.errstate(invalid="ignore"):
         absurd = (np.abs(m) > ABSURD_MAG) | (e < 0) | (e > MAX_MAG_ERR)
         flags[np.any(absurd & np.isfinite(m), axis=1)] |= fl.ABSURD_VALUE
@@ -241,8 +242,8 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
     flags |= np.where(bad_red, fl.BAD_INPUT, 0)
     m[bad_red] = np.nan  # no result without a usable reddening (never that of E(B-V) = 0)
     ebv_err = np.where(np.isfinite(ebv_err), ebv_err, 0.0)
-    if not ebv_given and not fit_ebv and not cal_ebv:
-        notes.add(True, "E(B-V) = 0 assumed")
+    if not ebv_given and not fit_ebv:
+        notes.add(True, "E(B-V) = 0 assumed" + (" for t_bb" if cal_ebv else ""))
 
     use_colour = method == "colour" or (method == "auto" and len(keys) == 2)
     if use_colour:

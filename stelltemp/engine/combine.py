@@ -59,6 +59,8 @@ from . import flags as fl
 _ITERATIONS = 6
 #: Newton steps inverting a relation (T_eff → colour) at the current estimate
 _INVERSE_STEPS = 4
+#: convergence: largest change of T_eff (K) and E(B−V) (mag) between iterations
+_TOL_T, _TOL_E = 0.1, 1e-5
 #: relations needed to fit E(B−V) from the calibrations alone (no prior)
 MIN_RELATIONS_FREE_EBV = 3
 
@@ -151,8 +153,9 @@ def colour_excess(keys, t_bb, ebv, law, rv):
 class _Setup:
     """The relations of a run and the fixed matrices that describe them."""
 
-    def __init__(self, keys):
-        self.rels = candidate_relations(keys)
+    def __init__(self, keys, rels=None):
+        self.keys = tuple(keys)
+        self.rels = candidate_relations(keys) if rels is None else tuple(rels)
         index = {k: i for i, k in enumerate(keys)}
         r = len(self.rels)
         self.blue = np.array([index[rel.blue] for rel in self.rels], dtype=np.intp)
@@ -169,6 +172,10 @@ class _Setup:
                                      dtype=np.intp)
         self.n_slots = len(unique)
 
+    def subset(self, keep):
+        """The same run restricted to the relations where ``keep`` is True."""
+        return _Setup(self.keys, [rel for rel, k in zip(self.rels, keep) if k])
+
 
 def _scatter(setup, t):
     """Each relation's published scatter at the stars' temperatures, K, shape (n, r)."""
@@ -176,8 +183,11 @@ def _scatter(setup, t):
     return np.column_stack([rel.scatter_at(t) for rel in setup.rels])
 
 
-def _evaluate(setup, m, ex, de, dt, feh, logg):
-    """Each relation at the dereddened colours: T_i, slopes, reddening vectors, mask."""
+def _evaluate(setup, m, ex, de, dt, feh, logg, allowed=None):
+    """Each relation at the dereddened colours: T_i, slopes, reddening vectors, mask.
+
+    ``allowed`` (n, r), when given, limits the relations each star may use.
+    """
     n = m.shape[0]
     r = len(setup.rels)
     x = m[:, setup.blue] - m[:, setup.red] - (ex[:, setup.blue] - ex[:, setup.red])
@@ -195,6 +205,8 @@ def _evaluate(setup, m, ex, de, dt, feh, logg):
         gi = rel.dteff_dfeh(x[:, i], feh, logg)
         ok = cand & inside & np.isfinite(ti) & np.isfinite(si)
         outside |= cand & ~ok
+        if allowed is not None:
+            ok &= allowed[:, i]
         used[:, i] = ok
         t[:, i] = np.where(ok, ti, np.nan)
         s[:, i] = np.where(ok, si, 0.0)
@@ -240,7 +252,7 @@ def _linearise_at(setup, t_hat, x, y, s, g, used, feh, logg):
 def _covariance(setup, s, g, used, sig_m, feh_err, scatter):
     """C without the reddening term; unused rows and columns replaced by the identity."""
     var_m = np.where(np.isfinite(sig_m), sig_m, 0.0) ** 2
-    phot = np.einsum("ib,nb,jb->nij", setup.pick, var_m, setup.pick)
+    phot = (setup.pick[None] * var_m[:, None, :]) @ setup.pick.T
     c = s[:, :, None] * s[:, None, :] * phot
     c += np.where(setup.same[None], scatter[:, :, None] * scatter[:, None, :], 0.0)
     c += g[:, :, None] * g[:, None, :] * (feh_err**2)[:, None, None]
@@ -252,29 +264,50 @@ def _covariance(setup, s, g, used, sig_m, feh_err, scatter):
 def _gls(c, design, y, used, prior_prec, prior_d):
     """Generalised least squares per star, with an optional Gaussian prior on parameter 1.
 
+    Stars are solved in groups that use the same relations, each with only
+    those rows and columns, so a star's numbers do not depend on the other
+    stars of the call (a file run in chunks equals one call).
+
     Returns estimate (n, p), covariance (n, p, p), χ², and the linear
     estimator: estimate = Ly @ y + Lp · prior_d.
     """
     n, r, p = design.shape
-    ci = np.linalg.inv(c)
-    a = np.where(used[:, :, None], design, 0.0)
-    yy = np.where(used, y, 0.0)
-    cia = ci @ a
-    info = np.einsum("nri,nrj->nij", a, cia)
-    if p > 1:
-        info[:, 1, 1] += prior_prec
-    ok = np.linalg.det(info) > 0
-    info[~ok] = np.eye(p)
-    cov = np.linalg.inv(info)
-    ly = cov @ np.swapaxes(cia, 1, 2)  # (n, p, r)
-    lp = cov[:, :, 1] * prior_prec[:, None] if p > 1 else np.zeros((n, p))
-    est = np.einsum("npr,nr->np", ly, yy) + lp * prior_d[:, None]
-    resid = np.where(used, yy - np.einsum("nrp,np->nr", a, est), 0.0)
-    chi2 = np.einsum("nr,nrs,ns->n", resid, ci, resid)
-    if p > 1:
-        chi2 = chi2 + prior_prec * (est[:, 1] - prior_d) ** 2
-    est[~ok] = np.nan
-    cov[~ok] = np.nan
+    est = np.full((n, p), np.nan)
+    cov = np.full((n, p, p), np.nan)
+    chi2 = np.full(n, np.nan)
+    ly = np.zeros((n, p, r))
+    lp = np.zeros((n, p))
+    if n == 0:
+        return est, cov, chi2, ly, lp
+    patterns, inverse = np.unique(used, axis=0, return_inverse=True)
+    inverse = np.asarray(inverse).reshape(-1)
+    for k, pattern in enumerate(patterns):
+        cols = np.flatnonzero(pattern)
+        rows = np.flatnonzero(inverse == k)
+        if cols.size == 0:
+            continue
+        ci = np.linalg.inv(c[np.ix_(rows, cols, cols)])
+        a = design[np.ix_(rows, cols, np.arange(p))]
+        yy = y[np.ix_(rows, cols)]
+        cia = ci @ a
+        info = np.einsum("nri,nrj->nij", a, cia)
+        prec = prior_prec[rows]
+        if p > 1:
+            info[:, 1, 1] += prec
+        ok = np.linalg.det(info) > 0
+        info[~ok] = np.eye(p)
+        cv = np.linalg.inv(info)
+        l_y = cv @ np.swapaxes(cia, 1, 2)  # (rows, p, cols)
+        l_p = cv[:, :, 1] * prec[:, None] if p > 1 else np.zeros((rows.size, p))
+        e = np.einsum("npr,nr->np", l_y, yy) + l_p * prior_d[rows, None]
+        resid = yy - np.einsum("nrp,np->nr", a, e)
+        x2 = np.einsum("nr,nrs,ns->n", resid, ci, resid)
+        if p > 1:
+            x2 = x2 + prec * (e[:, 1] - prior_d[rows]) ** 2
+        e[~ok] = np.nan
+        cv[~ok] = np.nan
+        est[rows], cov[rows], chi2[rows], lp[rows] = e, cv, x2, l_p
+        ly[np.ix_(rows, np.arange(p), cols)] = l_y
     return est, cov, chi2, ly, lp
 
 
@@ -335,10 +368,8 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
     logg = np.full(n, np.nan) if logg is None else np.broadcast_to(np.asarray(logg, float), (n,))
     nan = np.full(n, np.nan)
     if r == 0:
-        note = "no calibration: no calibrated colour among these passbands"
-        return CalibratedTeff(nan, nan, nan, nan, nan, nan, nan, np.zeros(n, int), nan,
-                              np.zeros(n, int), np.zeros((n, 0), bool), (), np.zeros((n, 0)),
-                              np.zeros((n, 0)), np.zeros(n, bool), np.full(n, note))
+        return _nothing(n, setup, np.zeros(n, bool),
+                        np.full(n, "no calibration: no calibrated colour among these passbands"))
 
     prior_prec = np.where(ebv_err > 0, 1.0 / np.where(ebv_err > 0, ebv_err, 1.0) ** 2, 0.0)
     e_lin = ebv.copy()
@@ -348,13 +379,29 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
         e_lin = np.where(free, _start_ebv(setup, m, sig_m, keys, t_ref, feh, feh_err, logg, law, rv),
                          e_lin)
     t_hat = None
+    allowed = None
     for it in range(_ITERATIONS):
         if it:
             # the excess of a blackbody at the current T_eff, not at T_bb (which can be far off,
             # and is noisy: the excess changes by 0.02-0.05 mag per 1,000 K at E(B-V) = 1)
             t_ref = np.where(np.isfinite(t_hat), t_hat, t_ref)
         ex, de, dt = colour_excess(keys, t_ref, e_lin, law, rv)
-        x, kx, kt, y, s, g, used, outside = _evaluate(setup, m, ex, de, dt, feh, logg)
+        x, kx, kt, y, s, g, used, outside = _evaluate(setup, m, ex, de, dt, feh, logg, allowed)
+        if it == 0:
+            setup0, x0, outside0 = setup, x, outside
+            # relations no star can use drop out of the matrices; with E(B-V) given, a star keeps
+            # the relations of this first pass (so each row's result is independent of the others)
+            keep = used.any(axis=0) if not fit_ebv else np.column_stack(
+                [rel.applies_to(logg) & np.isfinite(x[:, i]) for i, rel in enumerate(setup.rels)]
+            ).reshape(n, -1).any(axis=0)
+            if not keep.all():
+                setup = setup.subset(keep)
+                r = len(setup.rels)
+                x, kx, kt, y, s, g, used = (q[:, keep] for q in (x, kx, kt, y, s, g, used))
+            allowed = None if fit_ebv else used.copy()
+            if r == 0:
+                notes = _notes(setup0, x0, logg, feh_given, fit_ebv, prior_prec, np.zeros(n, int))
+                return _nothing(n, setup0, outside0, notes)
         if t_hat is not None:
             y, s, g = _linearise_at(setup, t_hat, x, y, s, g, used, feh, logg)
         sc = _scatter(setup, t_ref)
@@ -377,12 +424,18 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
             bad = n_used == 0
             step_e = np.zeros(n)
         new_t = np.where(bad, np.nan, est[:, 0])
-        step_t = np.zeros(n) if t_hat is None else np.where(np.isfinite(new_t - t_hat), new_t - t_hat, 0.0)
-        done = t_hat is not None and np.all(np.abs(step_t) < 0.01) and np.all(np.abs(step_e) < 1e-6)
-        if done or it == _ITERATIONS - 1:
+        if t_hat is None:
+            t_hat = new_t
+            moving = np.ones(n, bool)
+        else:
+            step_t = np.where(np.isfinite(new_t - t_hat), new_t - t_hat, 0.0)
+            # a star that has converged keeps its linearisation point from then on, so its
+            # result does not depend on how long the other stars of the call need
+            moving &= (np.abs(step_t) >= _TOL_T) | (np.abs(step_e) >= _TOL_E)
+            t_hat = np.where(moving, new_t, t_hat)
+        if not moving.any() or it == _ITERATIONS - 1:
             break
-        t_hat = new_t
-        e_lin = np.clip(e_lin + step_e, bg.E_MIN, bg.E_MAX)
+        e_lin = np.where(moving, np.clip(e_lin + step_e, bg.E_MIN, bg.E_MAX), e_lin)
 
     teff = np.where(bad, np.nan, est[:, 0])
     teff_err = np.where(bad, np.nan, np.sqrt(cov[:, 0, 0]))
@@ -390,17 +443,23 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
     dof = np.where(bad, 0, n_used - n_par + (fit_ebv & (prior_prec > 0)))
     dof = np.maximum(dof, 0)
     chi2 = np.where(dof > 0, chi2, np.nan)
-    from scipy.stats import chi2 as chi2_dist
+    from scipy.special import chdtrc  # the chi-squared survival function (scipy.stats is slow to import)
 
     with np.errstate(invalid="ignore"):
-        p_value = np.where(dof > 0, chi2_dist.sf(chi2, np.maximum(dof, 1)), np.nan)
+        p_value = np.where(dof > 0, chdtrc(np.maximum(dof, 1), chi2), np.nan)
     if fit_ebv:
         ebv_fit = np.where(bad, np.nan, e_lin + est[:, 1])
         ebv_fit_err = np.where(bad, np.nan, np.sqrt(cov[:, 1, 1]))
     else:
         ebv_fit = ebv_fit_err = nan
-    err_each = np.where(used, np.sqrt(np.einsum("nii->ni", c)), np.nan)
-    teff_each = np.where(used, y, np.nan)
+    # per relation, over every candidate of the run (the same columns in every block of rows)
+    cols = np.flatnonzero(keep)
+    err_each = np.full((n, len(setup0.rels)), np.nan)
+    teff_each = np.full((n, len(setup0.rels)), np.nan)
+    used_all = np.zeros((n, len(setup0.rels)), bool)
+    err_each[:, cols] = np.where(used, np.sqrt(np.einsum("nii->ni", c)), np.nan)
+    teff_each[:, cols] = np.where(used, y, np.nan)
+    used_all[:, cols] = used
 
     lo, hi = teff - teff_err, teff + teff_err
     if monte_carlo and np.any(~bad):
@@ -409,10 +468,19 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
         lo = np.where(bad, np.nan, lo)
         hi = np.where(bad, np.nan, hi)
 
-    notes = _notes(setup, x, logg, feh_given, fit_ebv, prior_prec, n_used)
+    notes = _notes(setup0, x0, logg, feh_given, fit_ebv, prior_prec, n_used)
     return CalibratedTeff(teff, teff_err, lo, hi, ebv_fit, ebv_fit_err, chi2, dof, p_value, n_used,
-                          used, tuple(rel.key for rel in setup.rels), teff_each, err_each,
-                          outside, notes)
+                          used_all, tuple(rel.key for rel in setup0.rels), teff_each, err_each,
+                          outside | outside0, notes)
+
+
+def _nothing(n, setup, outside, notes):
+    """A result without any calibrated temperature."""
+    nan = np.full(n, np.nan)
+    r = len(setup.rels)
+    return CalibratedTeff(nan, nan, nan, nan, nan, nan, nan, np.zeros(n, int), nan, np.zeros(n, int),
+                          np.zeros((n, r), bool), tuple(rel.key for rel in setup.rels),
+                          np.full((n, r), np.nan), np.full((n, r), np.nan), outside, notes)
 
 
 #: E(B−V) grid, mag, scanned for the start of a fit without a prior
