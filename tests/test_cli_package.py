@@ -143,24 +143,6 @@ def test_python_dash_m_stelltemp_runs_the_command():
     assert done.returncode == 0 and done.stdout.startswith("stelltemp ")
 
 
-def test_exposure_takes_repeated_magnitudes_each_filter_its_own(capsys):
-    demo = Path(__file__).resolve().parents[1] / "catalogs_demo" / "instruments" / "quillmere_04m_ccd.toml"
-    assert main(["exposure", "--instrument", str(demo), "--mag", "V_JC=12", "--mag", "B_JC=12.8,0.02",
-                 "--teff", "4500", "--snr", "100", "--json"]) == 0
-    captured = capsys.readouterr()
-    import json
-
-    rows = {r["filter"]: r for r in json.loads(captured.out)["rows"]}
-    assert rows["B"]["mag"] == 12.8 and rows["B"]["mag_band"] == "B_JC"
-    assert rows["V"]["mag"] == 12.0 and rows["I"]["mag_band"] == "V_JC"  # no I magnitude: the first one, scaled
-    assert "not used by exposure planning" in captured.err
-    # the same B row as planning B alone from its own magnitude
-    assert main(["exposure", "--instrument", str(demo), "--mag", "B_JC=12.8", "--teff", "4500", "--snr", "100",
-                 "--filters", "B", "--json"]) == 0
-    alone = json.loads(capsys.readouterr().out)["rows"][0]
-    assert alone["exposure"] == rows["B"]["exposure"]
-
-
 def test_old_passband_keys_on_the_command_line_give_a_note(capsys):
     assert main(["star", "--mag", "jc.B=10.65,0.01", "--mag", "V=10.00,0.01", "--json"]) == 0
     err = capsys.readouterr().err.strip().splitlines()
