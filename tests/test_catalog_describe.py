@@ -115,7 +115,7 @@ def test_record_holds_passbands_flags_and_assumptions(reference):
     assert meta["R_V"] == 3.1 and meta["extinction_law"] == "G23"
     assert "Gordon" in meta["extinction_law_source"] and "CALSPEC" in meta["vega_spectrum"]
     bands = meta["passbands"].split(",")
-    assert len(bands) == 9
+    assert len(bands) == 10  # the demo bands: U B V Rc Ic J H Ks BP RP
     for key in bands:
         k = key.replace(".", "_")
         assert meta[f"passband_{k}_source"] and meta[f"passband_{k}_magsys"] in ("Vega", "AB")
@@ -135,7 +135,7 @@ def test_record_holds_passbands_flags_and_assumptions(reference):
 
 def test_method_and_relations_per_row(reference):
     t = reference
-    assert set(t["t_bb_method"]) == {"fit"}  # nine bands: the multi-band fit
+    assert set(t["t_bb_method"]) == {"fit"}  # ten bands: the multi-band fit
     rel = [_text(x) for x in t["cal_used"]]
     n_cal = np.asarray(t["n_cal"])
     assert [len(r.split(",")) if r else 0 for r in rel] == list(n_cal)
