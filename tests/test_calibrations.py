@@ -552,7 +552,7 @@ def test_engine_calibrates_across_the_hr_diagram_or_says_why():
     from stelltemp.engine import estimate
 
     v = np.array([10.0, 10.0, 10.0])
-    mags = {"jc.B": v + [1.60, 0.000, 1.00], "jc.V": v, "2mass.Ks": v - [5.00, 0.041, 2.50]}
+    mags = {"B_JC": v + [1.60, 0.000, 1.00], "V_JC": v, "Ks_2MASS": v - [5.00, 0.041, 2.50]}
     res = estimate(mags, {k: np.full(3, 0.01) for k in mags}, logg=[5.0, 4.3, 2.5], feh=0.0)
     t = np.asarray(res["teff_cal"].value)
     assert t[0] == pytest.approx(3270.0, abs=3 * 0.03 * 3270.0)  # M3.5V: 3270 K

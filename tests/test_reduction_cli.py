@@ -124,7 +124,7 @@ def test_stored_transformation_applied_to_another_night(night, tmp_path, capsys)
     first = Table.read(d / "targets.ecsv")
     again = Table.read(tmp_path / "all.ecsv")
     again = again[[str(n).startswith("demo-N") for n in again["star"]]]
-    assert np.allclose(first["jc.V"], again["jc.V"]) and np.allclose(first["jc.V_err"], again["jc.V_err"])
+    assert np.allclose(first["V_JC"], again["V_JC"]) and np.allclose(first["V_JC_err"], again["V_JC_err"])
     assert main(args + ["--targets", str(tmp_path / "x.ecsv"), "--standards", "s.csv"]) == 2
     assert "belong(s) to a fit" in capsys.readouterr().err
     assert main(args) == 2
