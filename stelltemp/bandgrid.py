@@ -25,7 +25,7 @@ from functools import cached_property, lru_cache
 
 import numpy as np
 
-from . import kernels
+from . import cache, kernels
 from .errors import StelltempError
 from .extinction import DEFAULT_LAW, DEFAULT_RV, check_law, relative_extinction
 from .passbands import get_passband
@@ -205,16 +205,62 @@ def blackbody_band_terms(band, temperature_k, ebv, law=DEFAULT_LAW, rv=DEFAULT_R
     return m, m_t, m_e, m_te
 
 
+#: modules whose code decides a table's numbers: their source is part of the disk-cache key
+_SOURCES = ("bandgrid.py", "photometry.py", "planck.py", "passbands.py", "extinction.py", "reference.py")
+
+
+@lru_cache(maxsize=1)
+def _code_digest():
+    from pathlib import Path
+
+    here = Path(__file__).resolve().parent
+    return cache.digest(*(cache.file_digest(here / name) for name in _SOURCES))
+
+
+@lru_cache(maxsize=1)
+def _vega_digest():
+    from .reference import VEGA_FILE, sedpy_data_file
+
+    return cache.file_digest(sedpy_data_file(VEGA_FILE))
+
+
 @lru_cache(maxsize=256)
-def _band_table(key, law, rv):
+def table_key(band, law, rv):
+    """Disk-cache key of a band table: the curve's content, the law, R_V, the grid and the code."""
+    from importlib.metadata import version
+
+    band = get_passband(band)
+    parts = [_code_digest(), band.key, band.detector, band.magsys, float(band.vega_mag),
+             np.asarray(band.wave, float), np.asarray(band.response, float), law, float(rv),
+             T_MIN, T_MAX, N_T, E_MIN, E_MAX, E_STEP, version("dust_extinction")]
+    if band.magsys == "Vega":
+        parts.append(_vega_digest())
+    return cache.digest(*parts)
+
+
+def _grid():
     lnt = np.linspace(np.log(T_MIN), np.log(T_MAX), N_T)
     n_e = int(round((E_MAX - E_MIN) / E_STEP)) + 1
-    e = np.linspace(E_MIN, E_MAX, n_e)
+    return lnt, np.linspace(E_MIN, E_MAX, n_e)
+
+
+def _build_coef(key, law, rv):
+    lnt, e = _grid()
     h_t, h_e = lnt[1] - lnt[0], e[1] - e[0]
     m, m_t, m_e, m_te = blackbody_band_terms(key, np.exp(lnt), e, law, rv)
-    coef = np.stack([m, h_t * m_t, h_e * m_e, h_t * h_e * m_te], axis=-1)
+    return np.stack([m, h_t * m_t, h_e * m_e, h_t * h_e * m_te], axis=-1)
+
+
+@lru_cache(maxsize=256)
+def _band_table(key, law, rv):
+    lnt, e = _grid()
+    shape = (lnt.size, e.size, 4)
+    coef = cache.load_or_build("band", table_key(key, law, rv),
+                               lambda: {"coef": _build_coef(key, law, rv)})["coef"]
+    if coef.shape != shape or not np.all(np.isfinite(coef)):  # not what this code builds: build it here
+        coef = _build_coef(key, law, rv)
     coef.flags.writeable = False
-    table = HermiteTable(coef, float(lnt[0]), float(h_t), float(e[0]), float(h_e))
+    table = HermiteTable(coef, float(lnt[0]), float(lnt[1] - lnt[0]), float(e[0]), float(e[1] - e[0]))
     table.patches  # noqa: B018 - build the cell polynomials once, with the table
     return table
 

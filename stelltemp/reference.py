@@ -20,7 +20,6 @@ from functools import lru_cache
 from importlib import resources
 
 import numpy as np
-from astropy.io import fits
 
 from .planck import C_CGS
 
@@ -28,8 +27,26 @@ AB_FNU_CGS = 3631e-23  # erg s^-1 cm^-2 Hz^-1
 ST_FLAM_CGS = 10 ** (-0.4 * 21.10)  # erg s^-1 cm^-2 Å^-1
 
 
+def sedpy_data_file(name):
+    """Path of a data file of the astro-sedpy package, found without importing the package.
+
+    (Importing sedpy loads its compiler-backed filter code; the spectra are plain files.)
+    """
+    from importlib.util import find_spec
+    from pathlib import Path
+
+    spec = find_spec("sedpy")
+    if spec is not None and spec.submodule_search_locations:
+        path = Path(next(iter(spec.submodule_search_locations))) / "data" / name
+        if path.is_file():
+            return path
+    return resources.files("sedpy") / "data" / name
+
+
 def _read_sedpy_spectrum(name):
-    path = resources.files("sedpy") / "data" / name
+    from astropy.io import fits
+
+    path = sedpy_data_file(name)
     with resources.as_file(path) as p, fits.open(p) as hdul:
         data = hdul[1].data
         wave = np.array(data["WAVELENGTH"], dtype=float)
@@ -46,10 +63,13 @@ def _frozen(name):
     return w, f
 
 
+VEGA_FILE = "alpha_lyr_stis_011.fits"
+
+
 @lru_cache(maxsize=1)
 def vega_spectrum():
     """CALSPEC Vega spectrum: (wavelength Å, F_λ erg s⁻¹ cm⁻² Å⁻¹), read-only arrays."""
-    return _frozen("alpha_lyr_stis_011.fits")
+    return _frozen(VEGA_FILE)
 
 
 @lru_cache(maxsize=1)

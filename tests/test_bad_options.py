@@ -23,7 +23,7 @@ from stelltemp.validation import RANGES, SIZE_LIMITS, check_number, check_size
 
 ROOT = Path(__file__).resolve().parents[1]
 INSTRUMENT = ROOT / "catalogs_demo" / "instruments" / "quillmere_04m_ccd.toml"
-STAR = ["star", "--mag", "jc.B=10.6", "--mag", "jc.V=10.0"]
+STAR = ["star", "--mag", "B_JC=10.6", "--mag", "V_JC=10.0"]
 
 
 def _err_line(capsys):
@@ -51,30 +51,30 @@ def test_star_option_refused_with_the_api_message(capsys, argv, api):
     assert main(STAR + argv) == 2
     line = _err_line(capsys)
     with pytest.raises(StelltempError) as exc:
-        estimate({"jc.B": 10.6, "jc.V": 10.0}, **api)
+        estimate({"B_JC": 10.6, "V_JC": 10.0}, **api)
     assert line == str(exc.value)
 
 
 def test_monte_carlo_bounded_by_memory_before_work():
     t0 = time.perf_counter()
     with pytest.raises(StelltempError, match=r"would need about .* GiB of memory \(limit 2 GiB\)"):
-        estimate({"jc.B": np.full(1000, 10.6), "jc.V": np.full(1000, 10.0)}, monte_carlo=500_000)
+        estimate({"B_JC": np.full(1000, 10.6), "V_JC": np.full(1000, 10.0)}, monte_carlo=500_000)
     assert time.perf_counter() - t0 < 5  # refused, not attempted
 
 
 def test_per_star_arrays_are_flagged_not_refused():
-    res = estimate({"jc.B": [10.6, 10.6], "jc.V": [10.0, 10.0]}, parallax=np.array([np.inf, 5.0]),
+    res = estimate({"B_JC": [10.6, 10.6], "V_JC": [10.0, 10.0]}, parallax=np.array([np.inf, 5.0]),
                    ebv_err=np.array([-0.1, 0.01]))
     assert res["flags"][0] != 0 and np.isnan(res["t_bb"][0].value)
 
 
 @pytest.mark.parametrize("argv, message", [
-    (["exposure", "--mag", "jc.V=inf", "--snr", "50"], "magnitude in 'jc.V=inf' (magnitude) must be a finite number in [-40, 40] mag, got inf"),
-    (["exposure", "--mag", "jc.V=12", "--snr", "50", "--seeing", "0"],
+    (["exposure", "--mag", "V_JC=inf", "--snr", "50"], "magnitude in 'V_JC=inf' (magnitude) must be a finite number in [-40, 40] mag, got inf"),
+    (["exposure", "--mag", "V_JC=12", "--snr", "50", "--seeing", "0"],
      "seeing (seeing FWHM) must be a finite number in (0, 30] arcsec, got 0"),
-    (["exposure", "--mag", "jc.V=12", "--snr", "nan"],
+    (["exposure", "--mag", "V_JC=12", "--snr", "nan"],
      "snr (signal-to-noise ratio) must be a finite number in (0, 1e+06], got nan"),
-    (["exposure", "--mag", "jc.V=12", "--snr", "50", "--airmass", "0.5"],
+    (["exposure", "--mag", "V_JC=12", "--snr", "50", "--airmass", "0.5"],
      "airmass must be a finite number in [1, 40], got 0.5"),
 ])
 def test_exposure_options(capsys, argv, message):
@@ -85,7 +85,7 @@ def test_exposure_options(capsys, argv, message):
 def test_exposure_api_same_message():
     inst = load_instrument(INSTRUMENT)
     with pytest.raises(StelltempError, match=r"^seeing \(seeing FWHM\) must be a finite number in \(0, 30\]"):
-        plan_target(inst, 12.0, "jc.V", snr=50, seeing_arcsec=0.0)
+        plan_target(inst, 12.0, "V_JC", snr=50, seeing_arcsec=0.0)
 
 
 @pytest.mark.parametrize("extra, message", [
@@ -105,16 +105,16 @@ def test_nightplan_options_refused_before_work(capsys, extra, message):
 
 def test_night_plan_memory_estimate():
     inst = load_instrument(INSTRUMENT)
-    targets = [{"name": f"t{i}", "ra_deg": 10.0, "dec_deg": 10.0, "mag": 12.0, "band": "jc.V", "error": ""}
+    targets = [{"name": f"t{i}", "ra_deg": 10.0, "dec_deg": 10.0, "mag": 12.0, "band": "V_JC", "error": ""}
                for i in range(300_000)]
     with pytest.raises(StelltempError, match="a night plan of 300000 targets every 0.5 min would need"):
         plan_night(inst, targets, "2026-03-01", snr=50, step_min=0.5)
 
 
 @pytest.mark.parametrize("argv, message", [
-    (["colourgrid", "jc.B", "jc.V", "--steps", "99999999999999999999"],
+    (["colourgrid", "B_JC", "V_JC", "--steps", "99999999999999999999"],
      "--steps (number of temperatures) must be a whole number from 2 to 100000, got 99999999999999999999"),
-    (["colourgrid", "jc.B", "jc.V", "--tmin", "nan"],
+    (["colourgrid", "B_JC", "V_JC", "--tmin", "nan"],
      "--tmin (temperature) must be a finite number in [1000, 100000] K, got nan"),
     (["blackbody", "5000", "--radius", "inf"], "radius must be a finite number in (0, 100000] R_sun, got inf"),
     (["blackbody", "1e300"], "temperature must be a finite number in (0, 1e+09] K, got 1e+300"),
@@ -126,7 +126,7 @@ def test_other_commands(capsys, argv, message):
 
 def test_catalogue_sizes(tmp_path, capsys):
     inp = tmp_path / "in.csv"
-    inp.write_text("jc.B,jc.V\n10.6,10.0\n")
+    inp.write_text("B_JC,V_JC\n10.6,10.0\n")
     assert main(["catalogue", str(inp), "-o", str(tmp_path / "o.csv"), "--chunk-rows", "100000000000000000000"]) == 2
     assert _err_line(capsys).startswith("--chunk-rows (rows per chunk) must be a whole number from 1 to 10000000")
     with pytest.raises(SystemExit) as stop:  # argparse's own refusal, one line, exit 2
@@ -153,7 +153,7 @@ def test_documented_ranges_match_the_kernel_and_the_limits_are_sane():
 def test_passband_curve_extent_is_bounded(tmp_path, capsys):
     curve = tmp_path / "wide.dat"
     curve.write_text("# unit: nm\n400 0\n500 1\n1e10 0\n")
-    assert main(["star", "--mag", f"{curve}=10", "--mag", "jc.V=9"]) == 2
+    assert main(["star", "--mag", f"{curve}=10", "--mag", "V_JC=9"]) == 2
     assert _err_line(capsys).endswith("curve wavelengths must lie in [10, 100000] nm (got 1e+10 nm); "
                                       "beyond it no reference spectrum or extinction law is defined")
 
@@ -168,7 +168,7 @@ def test_instrument_number_with_400_digits(tmp_path, capsys):
     path.write_text(_instrument_text().replace("read_noise_e = 9.0", "read_noise_e = " + "9" * 400))
     with pytest.raises(StelltempError, match=r"'read_noise_e' is too large to be a number \(400 digits\)"):
         parse_instrument(path.read_text(), base_dir=INSTRUMENT.parent)
-    assert main(["exposure", "--instrument", str(path), "--mag", "jc.V=12", "--snr", "50"]) == 2
+    assert main(["exposure", "--instrument", str(path), "--mag", "V_JC=12", "--snr", "50"]) == 2
     assert len(_err_line(capsys)) < 200
 
 
@@ -183,27 +183,27 @@ def test_instrument_without_filters_is_refused():
 def test_non_utf8_instrument_target_and_mapping_files_are_plain_lines(tmp_path, capsys):
     bad_inst = tmp_path / "inst.toml"
     bad_inst.write_bytes(_instrument_text().encode().replace(b"# e- rms", b"# e- \xff rms"))
-    assert main(["exposure", "--instrument", str(bad_inst), "--mag", "jc.V=12", "--snr", "50"]) == 2
+    assert main(["exposure", "--instrument", str(bad_inst), "--mag", "V_JC=12", "--snr", "50"]) == 2
     line = _err_line(capsys)
     assert line.startswith(f"instrument file {bad_inst}: line ") and line.endswith("not UTF-8 text (byte 0xff)")
 
     targets = tmp_path / "t.csv"
-    targets.write_bytes(b"name,ra,dec,mag,band\nx\xff,10,10,12,jc.V\n")
+    targets.write_bytes(b"name,ra,dec,mag,band\nx\xff,10,10,12,V_JC\n")
     assert main(["nightplan", str(targets), "--instrument", str(INSTRUMENT), "--date", "2026-03-01",
                  "--snr", "50"]) == 2
     assert _err_line(capsys) == f"target list {targets}: line 2, column 2: not UTF-8 text (byte 0xff)"
 
     cmap = tmp_path / "m.toml"
-    cmap.write_bytes(b'[bands]\n"jc.B" = "B\xff"\n')
+    cmap.write_bytes(b'[bands]\n"B_JC" = "B\xff"\n')
     inp = tmp_path / "in.csv"
-    inp.write_text("B,jc.V\n10.6,10.0\n")
+    inp.write_text("B,V_JC\n10.6,10.0\n")
     assert main(["catalogue", str(inp), "-o", str(tmp_path / "o.csv"), "--columns", str(cmap)]) == 2
     assert _err_line(capsys) == f"column map {cmap}: line 2, column 12: not UTF-8 text (byte 0xff)"
 
 
 @pytest.mark.parametrize("key", ["x" * 300, "x" * 300 + ".csv"])
 def test_300_character_passband_key(capsys, key):
-    assert main(["star", "--mag", f"{key}=10", "--mag", "jc.V=9"]) == 2
+    assert main(["star", "--mag", f"{key}=10", "--mag", "V_JC=9"]) == 2
     line = _err_line(capsys)
     assert "OSError" not in line and "Errno" not in line
 
@@ -220,7 +220,7 @@ def test_a_legal_250_character_output_name_works(tmp_path):
     name = "r" * 242 + ".parquet"
     assert len(name) == 250
     inp = tmp_path / "in.csv"
-    inp.write_text("jc.B,jc.V\n10.6,10.0\n11.0,10.2\n")
+    inp.write_text("B_JC,V_JC\n10.6,10.0\n11.0,10.2\n")
     assert main(["catalogue", str(inp), "-o", str(tmp_path / name), "--quiet"]) == 0
     assert (tmp_path / name).is_file()
     assert len(temporary_name(name, tmp_path).encode()) <= 255
@@ -231,7 +231,7 @@ def test_a_legal_250_character_output_name_works(tmp_path):
 
 def test_an_output_name_beyond_the_limit_is_refused_first(tmp_path, capsys):
     inp = tmp_path / "in.csv"
-    inp.write_text("jc.B,jc.V\n10.6,10.0\n")
+    inp.write_text("B_JC,V_JC\n10.6,10.0\n")
     out = tmp_path / ("r" * 256 + ".csv")
     assert main(["catalogue", str(inp), "-o", str(out)]) == 2
     assert _err_line(capsys).endswith("the file name is longer than the file system allows")
@@ -246,7 +246,7 @@ def test_an_output_name_beyond_the_limit_is_refused_first(tmp_path, capsys):
 ])
 def test_catalogue_plot_refused_before_the_table_is_written(tmp_path, capsys, plot, reason):
     inp = tmp_path / "in.csv"
-    inp.write_text("jc.B,jc.V\n10.6,10.0\n")
+    inp.write_text("B_JC,V_JC\n10.6,10.0\n")
     out = tmp_path / "o.csv"
     assert main(["catalogue", str(inp), "-o", str(out), "--plot", str(tmp_path / plot)]) == 2
     assert reason in _err_line(capsys)
@@ -286,7 +286,7 @@ def _dead_pid():
 
 def test_leftover_temporary_files_are_reported_then_swept(tmp_path, capsys):
     inp = tmp_path / "in.csv"
-    inp.write_text("jc.B,jc.V\n10.6,10.0\n")
+    inp.write_text("B_JC,V_JC\n10.6,10.0\n")
     stale = tmp_path / f".o.csv.{_dead_pid()}-0123abcd{PART_SUFFIX}"
     stale.write_text("partial")
     other = tmp_path / ".someone-else.part"
@@ -307,7 +307,7 @@ def test_sigterm_removes_the_temporary_file(tmp_path):
     rng = np.random.default_rng(1)
     b = rng.uniform(10, 14, 400_000)
     with open(inp, "w") as fh:
-        fh.write("jc.B,jc.V,jc.Ic\n")
+        fh.write("B_JC,V_JC,Ic_JC\n")
         np.savetxt(fh, np.column_stack([b, b - 0.5, b - 1.0]), fmt="%.3f", delimiter=",")
     out = tmp_path / "o.parquet"
     proc = subprocess.Popen([sys.executable, "-m", "stelltemp.cli", "catalogue", str(inp), "-o", str(out),

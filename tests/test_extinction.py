@@ -95,3 +95,13 @@ def test_wavelength_outside_law(law, wave):
     with pytest.raises(StelltempError, match=f"law {law} is defined from") as err:
         ext.transmission(wave, 0.5, law)
     assert "\n" not in str(err.value)
+
+
+@pytest.mark.parametrize("law", sorted(ext.LAWS))
+def test_rv_ranges_kept_here_match_the_package(law):
+    # the ranges are kept beside the names so that checking a law needs no import of dust_extinction
+    assert tuple(ext.LAWS[law][2]) == tuple(ext.law_class(law).Rv_range)
+
+
+def test_a_law_model_is_built_once_per_run():
+    assert ext.law_model("G23", 3.1) is ext.law_model("G23", 3.1)

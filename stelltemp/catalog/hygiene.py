@@ -111,6 +111,15 @@ def _strings_to_arrow(data, mask):
     return arr
 
 
+def _numpy(arr):
+    """A pyarrow (chunked) array as numpy; chunks joined first (ChunkedArray.to_numpy imports pandas)."""
+    import pyarrow as pa
+
+    if isinstance(arr, pa.ChunkedArray):
+        arr = arr.combine_chunks()
+    return arr.to_numpy(zero_copy_only=False)
+
+
 def _arrow_to_float(col):
     typ = col.type
     n = len(col)
@@ -120,7 +129,7 @@ def _arrow_to_float(col):
     if pa.types.is_null(typ):
         return np.full(n, np.nan), np.zeros(n, bool)
     if pa.types.is_integer(typ) or pa.types.is_floating(typ) or pa.types.is_decimal(typ):
-        values = pc.cast(col, pa.float64()).to_numpy(zero_copy_only=False)
+        values = _numpy(pc.cast(col, pa.float64()))
         return np.array(values, dtype=np.float64), np.zeros(n, bool)
     if pa.types.is_binary(typ) or pa.types.is_large_binary(typ):
         col = col.cast(pa.string())
@@ -129,7 +138,7 @@ def _arrow_to_float(col):
         return np.full(n, np.nan), ~np.asarray(pc.is_null(col), dtype=bool)
     s = pc.utf8_trim_whitespace(col)
     try:  # fast path: every cell is a number or null
-        values = pc.cast(s, pa.float64()).to_numpy(zero_copy_only=False)
+        values = _numpy(pc.cast(s, pa.float64()))
         return np.array(values, dtype=np.float64), np.zeros(n, bool)
     except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
         pass
@@ -139,8 +148,8 @@ def _arrow_to_float(col):
     values = pc.cast(pc.if_else(number, s, pa.scalar(None, s.type)), pa.float64())
     text = pc.and_(pc.invert(missing), pc.invert(number))
     return (
-        np.array(values.to_numpy(zero_copy_only=False), dtype=np.float64),
-        np.asarray(text.to_numpy(zero_copy_only=False), dtype=bool),
+        np.array(_numpy(values), dtype=np.float64),
+        np.asarray(_numpy(text), dtype=bool),
     )
 
 

@@ -164,7 +164,8 @@ def arrow_to_astropy(table):
     out = Table()
     for field, col in zip(table.schema, table.columns):
         unit = unit_of_field(field)
-        nulls = np.asarray(pc.is_null(col).to_numpy(zero_copy_only=False), dtype=bool)
+        nulls = np.asarray(pc.is_null(col.combine_chunks() if isinstance(col, pa.ChunkedArray) else col)
+                           .to_numpy(zero_copy_only=False), dtype=bool)  # ChunkedArray.to_numpy imports pandas
         typ = field.type
         if pa.types.is_string(typ) or pa.types.is_large_string(typ):
             data = np.array(pc.fill_null(col, "").to_pylist(), dtype=str)

@@ -47,9 +47,10 @@ No module outside this package imports from it.
 import argparse
 import os
 import sys
+import warnings
 
 from .. import __version__
-from ..errors import StelltempError
+from ..errors import RenamedWarning, StelltempError
 from . import blackbody, catalogue, colourgrid, exposure, nightplan, passbands, relations, standardise, star, tour
 from .options import HelpWithDefaults
 from .output import emit_json
@@ -134,7 +135,17 @@ def run_parsed(args, **run_options):
 
     try:
         mode = "remove" if getattr(args, "sweep_leftovers", False) else "report"
-        with terminate_as_interrupt(), leftover_mode(mode) as leftovers:
+        with warnings.catch_warnings(), terminate_as_interrupt(), leftover_mode(mode) as leftovers:
+            warnings.simplefilter("once", RenamedWarning)
+            shown = warnings.showwarning
+
+            def note(message, category, *rest, **kw):
+                if issubclass(category, RenamedWarning):
+                    print(f"stelltemp: note: {message}", file=sys.stderr)
+                else:
+                    shown(message, category, *rest, **kw)
+
+            warnings.showwarning = note
             check_written_paths(args)
             code = int(args.run(args, **run_options) or 0)
         for line in describe_leftovers(leftovers):

@@ -23,6 +23,7 @@ from functools import lru_cache
 import numpy as np
 
 from .. import bandgrid as bg
+from .. import cache
 from ..errors import StelltempError
 from ..extinction import DEFAULT_LAW, DEFAULT_RV, relative_extinction
 from ..photometry import mag_offset
@@ -43,7 +44,9 @@ def _pair(blue, red, law, rv):
             f"colour {blue}−{red} does not decrease monotonically with temperature; "
             "pick a pair with the bluer band first")
     e_fine = np.linspace(bg.E_MIN, bg.E_MAX, 651)
-    rj = _rayleigh_jeans_mag(blue, e_fine, law, rv) - _rayleigh_jeans_mag(red, e_fine, law, rv)
+    key = cache.digest("rayleigh-jeans", bg.table_key(blue, law, rv), bg.table_key(red, law, rv), e_fine)
+    rj = cache.load_or_build("rj", key, lambda: {"rj": _rayleigh_jeans_mag(blue, e_fine, law, rv)
+                                                 - _rayleigh_jeans_mag(red, e_fine, law, rv)})["rj"]
     return table, e_fine, rj
 
 

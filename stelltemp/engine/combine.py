@@ -348,7 +348,7 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
     --------
     >>> import numpy as np
     >>> m = np.array([[10.64, 10.0, 8.5]])  # B, V, Ks of a solar-type star
-    >>> res = calibrated_teff(m, np.full((1, 3), 0.02), ["jc.B", "jc.V", "2mass.Ks"],
+    >>> res = calibrated_teff(m, np.full((1, 3), 0.02), ["B_JC", "V_JC", "Ks_2MASS"],
     ...                       np.array([5800.0]), np.array([0.0]), np.array([0.0]))
     >>> res.keys, int(res.n_used[0])
     (('c10_bv', 'c10_vk'), 2)
@@ -443,10 +443,10 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
     dof = np.where(bad, 0, n_used - n_par + (fit_ebv & (prior_prec > 0)))
     dof = np.maximum(dof, 0)
     chi2 = np.where(dof > 0, chi2, np.nan)
-    from scipy.stats import chi2 as chi2_dist
+    from scipy.special import chdtrc  # the chi-squared survival function (scipy.stats is slow to import)
 
     with np.errstate(invalid="ignore"):
-        p_value = np.where(dof > 0, chi2_dist.sf(chi2, np.maximum(dof, 1)), np.nan)
+        p_value = np.where(dof > 0, chdtrc(np.maximum(dof, 1), chi2), np.nan)
     if fit_ebv:
         ebv_fit = np.where(bad, np.nan, e_lin + est[:, 1])
         ebv_fit_err = np.where(bad, np.nan, np.sqrt(cov[:, 1, 1]))

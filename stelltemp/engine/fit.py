@@ -17,7 +17,6 @@ reduced χ²; a poor fit is flagged instead (p < 0.001).
 """
 
 import numpy as np
-from scipy.stats import chi2 as chi2_dist
 
 from .. import bandgrid as bg
 from ..extinction import DEFAULT_LAW, DEFAULT_RV
@@ -233,8 +232,10 @@ def fit_blackbody(mags, errs, keys, ebv=0.0, ebv_err=np.inf, fit_ebv=False,
     # with E(B−V) fixed: how the best ln T moves per unit E, −[N⁻¹ Jᵀ W ∂M/∂E]_lnT
     dlnt_de = -np.einsum("np,nbp,nb->n", cov[:, 0, :], jac * w[..., None], d_e) if not fit_ebv else np.zeros(n)
     dof = n_bands - n_par + (1 if fit_ebv else 0) * (prior_w > 0)
+    from scipy.special import chdtrc  # chi-squared survival function (scipy.stats is slow to import)
+
     with np.errstate(invalid="ignore"):
-        p_value = np.where(dof > 0, chi2_dist.sf(current, np.maximum(dof, 1)), np.nan)
+        p_value = np.where(dof > 0, chdtrc(np.maximum(dof, 1), current), np.nan)  # p(χ² ≥ current)
     edge = (lnt <= lnt_lo + 1e-9) | (lnt >= lnt_hi - 1e-9)
     flags[edge & ~too_few] |= fl.AT_GRID_EDGE
     flags[(p_value < POOR_FIT_P) & ~too_few] |= fl.POOR_FIT

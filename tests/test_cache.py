@@ -1,0 +1,115 @@
+"""The disk cache of band tables: same numbers as a fresh build, keyed by content, safe to share."""
+
+import os
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from stelltemp import bandgrid as bg
+from stelltemp import cache
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def _arrays():
+    return {"a": np.arange(5.0), "b": np.eye(2)}
+
+
+def test_entry_is_built_once_then_read(tmp_path, monkeypatch):
+    monkeypatch.setenv(cache.ENV_VAR, str(tmp_path))
+    calls = []
+
+    def build():
+        calls.append(1)
+        return _arrays()
+
+    key = cache.digest("x", np.arange(3))
+    first = cache.load_or_build("t", key, build)
+    again = cache.load_or_build("t", key, build)
+    assert len(calls) == 1
+    for name in first:
+        np.testing.assert_array_equal(first[name], again[name])
+    assert [p.suffix for p in tmp_path.iterdir()] == [".npz"]  # no temporary file left behind
+
+
+def test_key_follows_content_not_names():
+    assert cache.digest("a", np.arange(3.0)) == cache.digest("a", np.arange(3.0))
+    assert cache.digest("a", np.arange(3.0)) != cache.digest("a", np.arange(3.0) + 1e-12)
+    assert cache.digest("a", 1) != cache.digest("a", 1.0)
+    assert cache.digest("ab", "c") != cache.digest("a", "bc")
+
+
+def test_damaged_entry_is_rebuilt(tmp_path, monkeypatch):
+    monkeypatch.setenv(cache.ENV_VAR, str(tmp_path))
+    key = cache.digest("damaged")
+    cache.load_or_build("t", key, _arrays)
+    (entry,) = tmp_path.iterdir()
+    entry.write_bytes(b"not a zip file")
+    out = cache.load_or_build("t", key, _arrays)
+    np.testing.assert_array_equal(out["a"], np.arange(5.0))
+    np.load(entry)  # rewritten whole
+
+
+def test_unwritable_folder_or_switched_off_runs_without_cache(tmp_path, monkeypatch):
+    blocker = tmp_path / "file"
+    blocker.write_text("a file where the folder should be")
+    monkeypatch.setenv(cache.ENV_VAR, str(blocker / "sub"))
+    np.testing.assert_array_equal(cache.load_or_build("t", cache.digest(1), _arrays)["a"], np.arange(5.0))
+    monkeypatch.setenv(cache.ENV_VAR, "off")
+    assert cache.cache_dir() is None
+    np.testing.assert_array_equal(cache.load_or_build("t", cache.digest(1), _arrays)["a"], np.arange(5.0))
+
+
+def test_default_folder_is_the_users_cache(monkeypatch, tmp_path):
+    monkeypatch.delenv(cache.ENV_VAR, raising=False)
+    monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path))
+    if sys.platform not in ("win32", "darwin"):
+        assert cache.cache_dir() == tmp_path / "stelltemp"
+
+
+def test_cached_band_table_equals_a_fresh_build(tmp_path, monkeypatch):
+    monkeypatch.setenv(cache.ENV_VAR, str(tmp_path))
+    bg._band_table.cache_clear()
+    try:
+        built = bg.band_table("V_JC").coef  # built, stored
+        bg._band_table.cache_clear()
+        read = bg.band_table("V_JC").coef  # read back
+        assert any(p.name.startswith("band-") for p in tmp_path.iterdir())
+        np.testing.assert_array_equal(built, read)
+        np.testing.assert_array_equal(read, bg._build_coef("V_JC", "G23", 3.1))
+    finally:
+        bg._band_table.cache_clear()
+
+
+def test_changed_curve_gets_a_new_entry(tmp_path, monkeypatch):
+    """A user curve edited between runs is a new key (content, not file name)."""
+    monkeypatch.setenv(cache.ENV_VAR, str(tmp_path / "cache"))
+    curve = tmp_path / "band.dat"
+    lam = np.linspace(4000.0, 6000.0, 41)
+    curve.write_text("\n".join(f"{w} {np.exp(-((w - 5000) / 400) ** 2)}" for w in lam))
+    from stelltemp.passbands import load_passband_file
+
+    key1 = bg.table_key(load_passband_file(curve, wave_unit="AA"), "G23", 3.1)
+    curve.write_text("\n".join(f"{w} {np.exp(-((w - 5100) / 400) ** 2)}" for w in lam))
+    key2 = bg.table_key(load_passband_file(curve, wave_unit="AA"), "G23", 3.1)
+    assert key1 != key2
+    assert bg.table_key("V_JC", "G23", 3.1) != bg.table_key("V_JC", "G23", 3.2)
+    assert bg.table_key("V_JC", "G23", 3.1) != bg.table_key("V_JC", "F99", 3.1)
+
+
+def test_two_processes_building_at_once_both_get_the_table(tmp_path):
+    env = dict(os.environ, PYTHONPATH=str(ROOT), **{cache.ENV_VAR: str(tmp_path)})
+    code = ("from stelltemp import bandgrid as bg; import numpy as np; "
+            "c = bg.band_table('B_JC').coef; print(float(np.sum(c)))")
+    procs = [subprocess.Popen([sys.executable, "-c", code], env=env, stdout=subprocess.PIPE, text=True)
+             for _ in range(2)]
+    sums = [float(p.communicate(timeout=300)[0]) for p in procs]
+    assert all(p.returncode == 0 for p in procs)
+    assert sums[0] == sums[1]
+    entries = [p for p in tmp_path.iterdir()]
+    assert all(p.suffix == ".npz" for p in entries)  # whole files only, no temporary left
+    with np.load(next(p for p in entries if p.name.startswith("band-"))) as z:
+        assert float(np.sum(z["coef"])) == pytest.approx(sums[0], rel=0, abs=0)
