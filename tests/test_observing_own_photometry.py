@@ -280,3 +280,58 @@ def test_plan_target_needs_the_band_of_its_magnitude(ccd):
         plan.plan_target(ccd, 12.0, snr=10)
     with pytest.raises(StelltempError, match="not both"):
         plan.plan_target(ccd, 12.0, "V", photometry={"jc.V": 12.0}, snr=10)
+
+
+# ---------------------------------------------------------------- command line
+def _cli(*argv):
+    import contextlib
+    import io
+    import json
+
+    from stelltemp.cli import main
+
+    out, err = io.StringIO(), io.StringIO()
+    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
+        code = main(list(argv))
+    return code, out.getvalue(), err.getvalue(), (json.loads(out.getvalue()) if "--json" in argv and code == 0
+                                                  else None)
+
+
+def test_cli_exposure_needs_bands_and_takes_several():
+    code, _, err, _ = _cli("exposure", "--instrument", str(CCD_FILE), "--mag", "12", "--snr", "50")
+    assert code == 2 and "--mag BAND=MAG" in err and "Traceback" not in err
+    code, _, _, doc = _cli("exposure", "--instrument", str(CCD_FILE), "--mag", "V=12.0,0.02", "--mag", "jc.Ic=10.9",
+                           "--snr", "50", "--json")
+    assert code == 0
+    src = {r["filter"]: r["rate_source"] for r in doc["rows"]}
+    assert src == {"B": "extrapolated", "V": "measured", "R": "interpolated", "I": "measured"}
+    assert doc["rows"][0]["spectrum"] == "engine"
+
+
+def test_cli_exposure_moon_at_a_time_and_no_moon():
+    base = ("exposure", "--instrument", str(CCD_FILE), "--mag", "V=17", "--snr", "50", "--time", "2026-11-24T23:00",
+            "--ra", "08:00:00", "--dec", "20", "--json")
+    _, _, _, lit = _cli(*base)
+    _, _, _, dark = _cli(*base, "--no-moon")
+    assert lit["meta"]["moon"]["moon_illuminated"] > 0.95
+    for a, b in zip(lit["rows"], dark["rows"]):
+        assert a["moon_sky_rate"] > 0 == b["moon_sky_rate"] and a["exposure"] > b["exposure"]
+    code, _, err, _ = _cli(*base[:-1], "--time", "2026-11-25T05:50")  # morning, Sun between -18 and -12 deg
+    assert code == 0 and "TWILIGHT" in err
+
+
+def test_cli_nightplan_prints_a_summary_then_the_filters(tmp_path):
+    p = tmp_path / "t.csv"
+    p.write_text("name,ra,dec,jc.B,jc.V,jc.Ic,ebv\nInvented-1,03:00:00,+20:00:00,12.9,12.0,11.0,0.1\n"
+                 "Invented-2,05:00:00,+10:00:00,,13.0,,\n")
+    code, out, _, _ = _cli("nightplan", str(p), "--date", "2026-11-08", "--instrument", str(CCD_FILE), "--snr", "50")
+    assert code == 0
+    lines = out.splitlines()
+    assert "local time = UTC+1 h" in lines[0]
+    assert lines[1].startswith("target") and "best_time_local" in lines[1] and "window_local" in lines[1]
+    assert lines[2].startswith("Invented-1") and lines[3].startswith("Invented-2") and lines[4] == ""
+    assert "rate_source" in lines[5]
+    code, _, _, doc = _cli("nightplan", str(p), "--date", "2026-11-08", "--instrument", str(CCD_FILE), "--snr", "50",
+                           "--json")
+    assert [r["target"] for r in doc["summary"]["rows"]] == ["Invented-1", "Invented-2"]
+    assert len(doc["rows"]) == 8

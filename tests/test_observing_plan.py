@@ -133,16 +133,16 @@ def test_cli_exposure_text_plot_and_sun(tmp_path):
     assert text.splitlines()[0].startswith("filter") and "exposure [s]" in text
     assert "saturated" in text and "take" in err.getvalue()
     assert (tmp_path / "snr.png").stat().st_size > 1000
-    # pointing at the Sun's position at noon: daylight and Sun warnings with the caution
+    # pointing at the Sun's position at noon: daylight is refused, with the Sun warnings and the caution
     args = p.parse_args(["exposure", "--instrument", str(CCD_FILE), "--mag", "3", "--band", "V", "--exposure", "1",
                          "--json", "--time", "2025-06-21T12:00", "--ra", "06:00:00", "--dec", "23.4"])
     out, err = io.StringIO(), io.StringIO()
-    run_cli(args, out, err)
-    doc = json.loads(out.getvalue())
-    assert any("SUN NEARBY" in w for w in doc["meta"]["sun_warnings"])
-    assert "certified solar filter" in err.getvalue()
+    with pytest.raises(StelltempError, match="daylight") as exc:
+        run_cli(args, out, err)
+    assert "SUN NEARBY" in str(exc.value) and "certified solar filter" in str(exc.value)
+    assert "\n" not in str(exc.value)
     with pytest.raises(StelltempError, match="--snr, --exposure"):
-        run_cli(p.parse_args(["exposure", "--instrument", str(CCD_FILE), "--mag", "3"]), out, err)
+        run_cli(p.parse_args(["exposure", "--instrument", str(CCD_FILE), "--mag", "V=3"]), out, err)
     with pytest.raises(StelltempError, match="no filter 'Q'"):
         run_cli(p.parse_args(["exposure", "--instrument", str(CCD_FILE), "--mag", "3", "--band", "V", "--snr", "5",
                               "--filters", "V,Q"]), out, err)

@@ -110,3 +110,24 @@ def test_fallback_to_predicted_colour_term_with_few_standards(tmp_path, capsys):
         assert any("fallback priors on colour_term" in n for n in f["notes"])
         assert f["priors"]["colour_term"][0] == s["predicted"][f["filter"]]["coefficients"]["colour_term"]
         assert f["n_used"] == 3
+
+
+def test_stored_transformation_applied_to_another_night(night, tmp_path, capsys):
+    # the night's own fit, written to a file, gives every star (standards too) from --use-fit;
+    # the targets agree with the first run exactly
+    d, _ = night
+    args = ["standardise", str(DEMO / "night_observations.csv"), "--instrument",
+            str(DEMO / "instruments" / "quillmere_04m_ccd.toml"), "--use-fit", str(d / "fit.toml")]
+    assert main(args + ["--targets", str(tmp_path / "all.ecsv"), "--json"]) == 0
+    s = json.loads(capsys.readouterr().out)
+    assert s["targets"]["rows"] == 20 + 24 * 3  # targets' two visits and standards' three
+    first = Table.read(d / "targets.ecsv")
+    again = Table.read(tmp_path / "all.ecsv")
+    again = again[[str(n).startswith("demo-N") for n in again["star"]]]
+    assert np.allclose(first["jc.V"], again["jc.V"]) and np.allclose(first["jc.V_err"], again["jc.V_err"])
+    assert main(args + ["--targets", str(tmp_path / "x.ecsv"), "--standards", "s.csv"]) == 2
+    assert "belong(s) to a fit" in capsys.readouterr().err
+    assert main(args) == 2
+    assert "nothing to write" in capsys.readouterr().err
+    assert main(args[:-2] + ["--targets", str(tmp_path / "y.ecsv")]) == 2
+    assert "needs --standards" in capsys.readouterr().err

@@ -61,7 +61,38 @@ def test_matched_passbands_have_no_colour_term():
         assert p.nonlinearity_max < 1e-6
 
 
-def test_typical_ccd_with_standard_like_glass_filters():
+def glass_on_ccd():
+    """The demo CCD with its filters taken as bare glass transmissions (curve_kind = "filter").
+
+    Each filter's transmission has the shape of Bessell's response and is multiplied by the demo's
+    typical front-illuminated CCD QE: a typical CCD + glass filter set, whose QE slope across each band
+    makes the natural system differ from the standard one.
+    """
+    text = (DEMO / "quillmere_04m_ccd.toml").read_text(encoding="utf-8")
+    assert text.count('curve_kind = "system"') == 4
+    return parse_instrument(text.replace('curve_kind = "system"', 'curve_kind = "filter"'), base_dir=DEMO)
+
+
+def test_typical_ccd_with_glass_filters_has_colour_terms_of_a_few_hundredths():
+    # Common practice: for a CCD with glass UBVRI-type filters the V colour term in B−V is a few
+    # hundredths of a magnitude per magnitude, the B term (in B−V) a few hundredths to ~0.1, and the
+    # R and I terms (in V−R, R−I) a few hundredths.
+    inst = glass_on_ccd()
+    pred = predict_colour_terms(inst, setups_of(inst))
+    v, b = pred["V"], pred["B"]
+    assert v.setup.colour == ("jc.B", "jc.V")
+    assert 0.005 < abs(v.coefficients["colour_term"]) < 0.06
+    assert 0.01 < abs(b.coefficients["colour_term"]) < 0.15
+    for f in ("R", "I"):
+        assert 0.005 < abs(pred[f].coefficients["colour_term"]) < 0.08
+    # the QE rises towards the red across V (0.52 at 500 nm, 0.60 at 600 nm): red stars look
+    # brighter in the natural V than in standard V, so the term is negative in this equation's sign
+    assert v.coefficients["colour_term"] < 0
+    for p in pred.values():
+        assert p.nonlinearity_max < 0.01
+
+
+def test_demo_instrument_with_system_curves():
     # Demo instrument: its B, V, R, I use Bessell's standard-system responses, which already contain a
     # detector (curve_kind = "system", the camera QE not applied again), so its natural bands are the
     # standard ones times the atmosphere: no colour term above the atmosphere, only the second-order

@@ -8,16 +8,23 @@ from . import options
 from .observing import add_goal_options, exposure_seconds, report
 
 NAME = "nightplan"
-COLUMNS = [("target", "{}"), ("filter", "{}"), ("window_start", "{}"), ("window_end", "{}"),
-           ("min_airmass", "{:.2f}"), ("star_rate", "{:.4g}"), ("exposure", "{:.3g}"), ("snr", "{:.1f}"),
-           ("saturation", "{}"), ("flags", "{}")]
+COLUMNS = [("target", "{}"), ("filter", "{}"), ("rate_source", "{}"), ("mag_band", "{}"), ("min_airmass", "{:.2f}"),
+           ("star_rate", "{:.4g}"), ("sky_rate", "{:.3g}"), ("exposure", "{:.3g}"), ("snr", "{:.1f}"),
+           ("n_exposures", "{:.0f}"), ("saturation", "{}"), ("flags", "{}")]
+#: the per-target summary printed above the per-filter table
+SUMMARY_COLUMNS = [("target", "{}"), ("best_time", "{}"), ("best_time_local", "{}"), ("window_local", "{}"),
+                   ("max_altitude", "{:.1f}"), ("min_airmass", "{:.2f}"), ("moon_separation", "{:.0f}"),
+                   ("moon_delta_v", "{:.2f}"), ("spectrum", "{}"), ("teff", "{:.0f}"), ("ebv", "{:.3f}"),
+                   ("total_time", "{:.3g}"), ("flags", "{}")]
 
 
 def add(subparsers):
     p = subparsers.add_parser(
         NAME, help="best windows, airmass and exposures for a target list in one night",
-        description="For a target list (CSV/ECSV with columns name, ra, dec, mag, band and optional teff, ebv), "
-                    "find each target's best dark-time window at the instrument's site and plan its exposures.")
+        description="For a target list (CSV/ECSV with columns name, ra, dec, the star's magnitudes as columns named "
+                    "by passband key (with _err) and/or mag, band, and optional teff, ebv, ebv_err), find each "
+                    "target's best dark-time window at the instrument's site and plan its exposures from its own "
+                    "photometry, with the Moon in the sky.")
     p.add_argument("targets", help="target list file (.csv or .ecsv)")
     p.add_argument("--date", required=True, help="local date of the evening, YYYY-MM-DD")
     p.add_argument("--min-alt", type=float, default=30.0, dest="min_alt", metavar="DEG",
@@ -48,7 +55,7 @@ def _save(table, path, replace):
 
 def run(args, out=None, err=None):
     from ..observing.instrument import load_instrument
-    from ..observing.plan import night_tracks, plan_night, read_targets
+    from ..observing.plan import night_summary, night_tracks, plan_night, read_targets
 
     out, err = out or sys.stdout, err or sys.stderr
     exposure_s = exposure_seconds(args, err)
@@ -69,6 +76,10 @@ def run(args, out=None, err=None):
     if args.output:
         _save(table, args.output, args.replace)
     m = table.meta
+    sign = "+" if m["utc_offset_hours"] >= 0 else "-"
     header = (f"{m['date']} at {m['site'] or 'site'}: dark ({m['sun_limit']}) "
-              f"{m['dark_start'] or '-'} to {m['dark_end'] or '-'} UTC")
-    return report(table, NAME, COLUMNS, args, out, err, header=header)
+              f"{m['dark_start'] or '-'} to {m['dark_end'] or '-'} UTC; local time = UTC{sign}"
+              f"{abs(m['utc_offset_hours']):g} h ({m['utc_offset_from']}); Moon: "
+              f"{'in the sky brightness' if not args.no_moon else 'left out (--no-moon)'}")
+    return report(table, NAME, COLUMNS, args, out, err, header=header, summary=night_summary(table),
+                  summary_columns=SUMMARY_COLUMNS)

@@ -37,17 +37,24 @@ def exposure_seconds(args, err=None):
     return args.exposure
 
 
-def report(table, which, columns, args, out, err, header=None):
-    """Warnings on stderr; the table as JSON or text on stdout; advice on stderr."""
+def report(table, which, columns, args, out, err, header=None, summary=None, summary_columns=None):
+    """Warnings on stderr; the table (after an optional per-target summary) as JSON or text on stdout;
+    advice on stderr."""
     from ..jsonable import table_ready
 
     for w in table.meta.get("sun_warnings", []):
         print(f"WARNING: {w}", file=err)
     if args.json:
-        emit_json(table_ready(table), out)
+        doc = table_ready(table)
+        if summary is not None:
+            doc["summary"] = table_ready(summary)
+        emit_json(doc, out)
         return 0
     if header:
         print(header, file=out)
+    if summary is not None:
+        print_table(summary, summary_columns, out)
+        print(file=out)
     print_table(table, columns, out)
     for row in table:
         if row["advice"]:

@@ -160,7 +160,7 @@ def _filter_row(instrument, fname, rate_top, airmass, snr, exposure_s, seeing_ar
     adv = psf.saturation_advice(t_plan, snr, rate, ap_rate, sky, dark, cam.read_noise_e, n_pix, n_b, fwhm,
                                 cam.pixel_scale_arcsec, cam.full_well_e, cam.gain_e_per_adu, cam.saturation_adu,
                                 cam.bias_adu, cam.binning, scint, headroom, profile, beta, warn=False,
-                                min_exposure_s=t_min, aperture_m=tel.aperture_m)
+                                min_exposure_s=t_min, aperture_m=tel.aperture_m, obstruction_m=tel.obstruction_m)
     if adv.message:
         notes.append(adv.message)
     return {

@@ -294,7 +294,7 @@ def saturation_advice(exposure_s, target_snr, source_rate, aperture_rate, sky_ra
                       read_noise_e, n_pix, n_background, fwhm, pixel_arcsec, full_well_e, gain_e_per_adu,
                       saturation_adu, bias_adu=0.0, binning=1, scint_coeff=0.0, headroom=DEFAULT_HEADROOM,
                       profile="moffat", beta=MOFFAT_BETA_TURBULENCE, warn=True, min_exposure_s=0.0,
-                      aperture_m=None):
+                      aperture_m=None, obstruction_m=0.0):
     """Check one planned exposure for saturation and suggest a split if needed.
 
     When the exposure passes the headroom, the advice is the smallest number
@@ -327,8 +327,10 @@ def saturation_advice(exposure_s, target_snr, source_rate, aperture_rate, sky_ra
         a neutral-density filter, a smaller aperture stop (``aperture_m``
         gives the stopped-down diameter) or defocusing — and to take frames
         of ``min_exposure_s``.
-    aperture_m : float, optional
-        Telescope aperture, m (for the aperture-stop advice).
+    aperture_m, obstruction_m : float, optional
+        Telescope aperture and central obstruction diameters, m (for the
+        aperture-stop advice: a concentric stop of diameter d passes
+        (d² − o²)/(D² − o²) of the light).
 
     Returns
     -------
@@ -362,7 +364,9 @@ def saturation_advice(exposure_s, target_snr, source_rate, aperture_rate, sky_ra
         factor = t_min / limit
         cut = [f"a neutral-density filter of density {math.log10(factor):.2g} or more"]
         if aperture_m:
-            cut.append(f"an aperture stop of {aperture_m / math.sqrt(factor):.3g} m or less "
+            o2 = float(obstruction_m) ** 2
+            stop = math.sqrt((aperture_m**2 - o2) / factor + o2)
+            cut.append(f"an aperture stop of {stop:.3g} m or less "
                        f"(the full {aperture_m:.3g} m passes {factor:.3g} x too much light)")
         cut.append(f"defocusing until the peak pixel is {factor:.3g} x fainter")
         dimmed = (aperture_rate / factor, sky_rate_binned / factor) + args[2:]
