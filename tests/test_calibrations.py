@@ -543,3 +543,23 @@ def test_cli_relations(capsys):
     assert main(["relations", "--use", "c10_vk", "--colour", "1.56"]) == 0
     assert "Teff = 5755" in capsys.readouterr().out
     assert main(["relations", "--use", "c10_vk", "--colour", "5.0"]) == 1
+
+# ----------------------------------------------------- through the engine
+def test_engine_calibrates_across_the_hr_diagram_or_says_why():
+    # The three cases of issue 11: an M dwarf with V-Ks = 5, an A star and a giant
+    # with B-V only. Colours of the M3.5V and A0V rows of Pecaut & Mamajek 2013
+    # (ApJS 208, 9, Table 5, online version 2021.03.02); no reddening.
+    from stelltemp.engine import estimate
+
+    v = np.array([10.0, 10.0, 10.0])
+    mags = {"jc.B": v + [1.60, 0.000, 1.00], "jc.V": v, "2mass.Ks": v - [5.00, 0.041, 2.50]}
+    res = estimate(mags, {k: np.full(3, 0.01) for k in mags}, logg=[5.0, 4.3, 2.5], feh=0.0)
+    t = np.asarray(res["teff_cal"].value)
+    assert t[0] == pytest.approx(3270.0, abs=3 * 0.03 * 3270.0)  # M3.5V: 3270 K
+    assert t[1] == pytest.approx(9700.0, abs=3 * 0.04 * 9700.0)  # A0V: 9700 K
+    assert np.isnan(t[2])
+    note = str(res["teff_cal_note"][2])
+    assert note.startswith("no calibration") and "giant" in note
+    # without log g the class is assumed, and said so
+    res = estimate(mags, {k: np.full(3, 0.01) for k in mags}, feh=0.0)
+    assert all("log g unknown: dwarf assumed" in str(n) for n in res["teff_cal_note"])

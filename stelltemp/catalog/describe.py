@@ -221,6 +221,9 @@ def assumptions(cmap, opts):
         out.append("rows with an empty [Fe/H] are calibrated at solar metallicity ([Fe/H] = 0.0)")
     if "logg" not in cmap.columns:
         out.append("no log g column: every star is calibrated as a dwarf")
+    else:
+        out.append("rows with an empty log g are calibrated as dwarfs, without the relations that need log g "
+                   "(each such row says so in teff_cal_note)")
     out.append(f"extinction law {opts.law} with R_V = {float(opts.rv):g}, applied through each passband "
                "to the blackbody spectrum")
     return {f"assumption_{i + 1}": text for i, text in enumerate(out)}
