@@ -50,14 +50,14 @@ def test_demo_targets_two_visits_agree_and_match_truth(night):
     t = Table.read(d / "targets.ecsv")
     truth = Table.read(DEMO / "night_truth.csv")
     assert s["targets"]["rows"] == len(t) == 20 and np.all(np.ma.filled(t["note"], "") == "")
-    for band in ("jc.B", "jc.V", "jc.Rc", "jc.Ic"):
+    for band in ("B_JC", "V_JC", "Rc_JC", "Ic_JC"):
         true = {r["star"]: r[f"{band}_true"] for r in truth}
         z = (t[band] - [true[n] for n in t["star"]]) / t[f"{band}_err"]
         assert np.all(np.abs(z) < 4), (band, z)
     v1, v2 = t[t["visit"] == "v1"], t[t["visit"] == "v2"]
     assert list(v1["star"]) == list(v2["star"])
-    diff = v1["jc.V"] - v2["jc.V"]
-    assert np.all(np.abs(diff) < 4 * np.hypot(v1["jc.V_err"], v2["jc.V_err"]))
+    diff = v1["V_JC"] - v2["V_JC"]
+    assert np.all(np.abs(diff) < 4 * np.hypot(v1["V_JC_err"], v2["V_JC_err"]))
     assert t["cov"].shape == (20, 4, 4)
     temps = Table.read(d / "temps.ecsv")
     assert len(temps) == 20 and "t_bb" in temps.colnames
@@ -124,7 +124,7 @@ def test_stored_transformation_applied_to_another_night(night, tmp_path, capsys)
     first = Table.read(d / "targets.ecsv")
     again = Table.read(tmp_path / "all.ecsv")
     again = again[[str(n).startswith("demo-N") for n in again["star"]]]
-    assert np.allclose(first["jc.V"], again["jc.V"]) and np.allclose(first["jc.V_err"], again["jc.V_err"])
+    assert np.allclose(first["V_JC"], again["V_JC"]) and np.allclose(first["V_JC_err"], again["V_JC_err"])
     assert main(args + ["--targets", str(tmp_path / "x.ecsv"), "--standards", "s.csv"]) == 2
     assert "belong(s) to a fit" in capsys.readouterr().err
     assert main(args) == 2

@@ -115,10 +115,10 @@ def input_units(colnames, cmap):
     Examples
     --------
     >>> from stelltemp.catalog.mapping import ColumnMap, BandColumns
-    >>> cmap = ColumnMap(bands={"jc.V": BandColumns("Vmag", "e_Vmag")}, columns={"parallax": "plx"})
+    >>> cmap = ColumnMap(bands={"V_JC": BandColumns("Vmag", "e_Vmag")}, columns={"parallax": "plx"})
     >>> info = input_units(["Vmag", "e_Vmag", "plx", "ra", "name"], cmap)
     >>> info["Vmag"], info["plx"][0], info["ra"]
-    (('mag', 'jc.V magnitude (input)'), 'mas', ('deg', None))
+    (('mag', 'V_JC magnitude (input)'), 'mas', ('deg', None))
     """
     out = {}
     for key, spec in cmap.bands.items():
@@ -174,7 +174,7 @@ def flag_record():
 
 
 def record_key(name):
-    """A passband key as part of a record key: no dots (``jc.V`` -> ``jc_V``).
+    """A passband key as part of a record key: no dots (a user curve ``file:my.band`` -> ``file:my_band``).
 
     FITS reads a keyword holding a dot and a number as a record-valued card,
     so the record keeps dots out of its keys.
