@@ -51,7 +51,7 @@ temperature T_bb that differs from T_eff by hundreds of K; the calibrated
 T_eff of the engine (``teff_cal``) is what should match ``t_true``.
 
 Two rows carry deliberate defects for teaching: one star has the sentinel
-99.999 (error 9.999) in jc.B, as old reductions write for "no measurement";
+99.999 (error 9.999) in B_JC, as old reductions write for "no measurement";
 another was measured in V only.
 
 Run from the repository root::
@@ -86,9 +86,9 @@ DATE = "2026-11-08"
 INSTRUMENT = HERE / "instruments" / "quillmere_04m_ccd.toml"
 LAW, RV = "G23", 3.1
 
-OPTICAL = ["jc.U", "jc.B", "jc.V", "jc.Rc", "jc.Ic"]
-INFRARED = ["2mass.J", "2mass.H", "2mass.Ks"]
-GAIA = ["gaia3.BP", "gaia3.RP"]
+OPTICAL = ["U_JC", "B_JC", "V_JC", "Rc_JC", "Ic_JC"]
+INFRARED = ["J_2MASS", "H_2MASS", "Ks_2MASS"]
+GAIA = ["BP_GDR3", "RP_GDR3"]
 BANDS = OPTICAL + INFRARED + GAIA
 
 N_FIELD, N_CLUSTER = 40, 20
@@ -166,25 +166,25 @@ def _invert(key, t, feh, logg):
 def intrinsic_offsets(t, giant, feh, logg):
     """Intrinsic magnitudes relative to V in every band, and BC_V, for each star."""
     seq = dwarf_sequence(t)
-    off = {"jc.V": np.zeros(len(t))}
-    off["jc.B"] = seq["B-V"]
-    off["jc.U"] = seq["B-V"] + seq["U-B"]
-    off["jc.Rc"] = -seq["V-Rc"]
-    off["jc.Ic"] = -seq["V-Ic"]
-    off["2mass.Ks"] = -seq["V-Ks"]
-    off["2mass.H"] = off["2mass.Ks"] + seq["H-Ks"]
-    off["2mass.J"] = off["2mass.H"] + seq["J-H"]
+    off = {"V_JC": np.zeros(len(t))}
+    off["B_JC"] = seq["B-V"]
+    off["U_JC"] = seq["B-V"] + seq["U-B"]
+    off["Rc_JC"] = -seq["V-Rc"]
+    off["Ic_JC"] = -seq["V-Ic"]
+    off["Ks_2MASS"] = -seq["V-Ks"]
+    off["H_2MASS"] = off["Ks_2MASS"] + seq["H-Ks"]
+    off["J_2MASS"] = off["H_2MASS"] + seq["J-H"]
     g = seq["G-V"]
-    off["gaia3.RP"] = g - seq["G-RP"]
-    off["gaia3.BP"] = off["gaia3.RP"] + seq["BP-RP"]
+    off["RP_GDR3"] = g - seq["G-RP"]
+    off["BP_GDR3"] = off["RP_GDR3"] + seq["BP-RP"]
     if np.any(giant):
         i = np.flatnonzero(giant)
-        ks = off["2mass.Ks"][i]
+        ks = off["Ks_2MASS"][i]
         bp = ks + _invert("c21_bpks_giant", t[i], feh[i], logg[i])
-        off["gaia3.BP"][i] = bp
-        off["gaia3.RP"][i] = ks + _invert("c21_rpks_giant", t[i], feh[i], logg[i])
-        off["2mass.J"][i] = bp - _invert("c21_bpj_giant", t[i], feh[i], logg[i])
-        off["2mass.H"][i] = bp - _invert("c21_bph_giant", t[i], feh[i], logg[i])
+        off["BP_GDR3"][i] = bp
+        off["RP_GDR3"][i] = ks + _invert("c21_rpks_giant", t[i], feh[i], logg[i])
+        off["J_2MASS"][i] = bp - _invert("c21_bpj_giant", t[i], feh[i], logg[i])
+        off["H_2MASS"][i] = bp - _invert("c21_bph_giant", t[i], feh[i], logg[i])
     return off, seq["BC_V"]
 
 
@@ -203,7 +203,7 @@ def theta_rad(radius_rsun, distance_pc):
 
 def _v_at_10pc(p):
     """V of each star at 10 pc without dust (for choosing distances)."""
-    return magnitudes(p["t"], 0.0, theta_rad(p["radius"], 10.0), p["giant"], p["feh"], p["logg"])["jc.V"]
+    return magnitudes(p["t"], 0.0, theta_rad(p["radius"], 10.0), p["giant"], p["feh"], p["logg"])["V_JC"]
 
 
 def draw_field(rng):
@@ -321,10 +321,10 @@ def build(rng=None):
                 err = float(mag_error(true_mags[b][i]))
                 mags[b] = (round(float(true_mags[b][i] + err * noise[b][i]), 3), round(err, 3))
             if group == "field" and i == 6:  # deliberate defect: a "no measurement" sentinel in B
-                mags["jc.B"] = (99.999, 9.999)
+                mags["B_JC"] = (99.999, 9.999)
             if group == "field" and i == 22:  # deliberate defect: observed in V only so far
-                mags = {b: (mags[b] if b == "jc.V" else (None, None)) for b in BANDS}
-            row["mag"], row["band"] = mags["jc.V"][0], "jc.V"  # for the night plan
+                mags = {b: (mags[b] if b == "V_JC" else (None, None)) for b in BANDS}
+            row["mag"], row["band"] = mags["V_JC"][0], "V_JC"  # for the night plan
             for b in BANDS:
                 row[b], row[b + "_err"] = mags[b]
             row.update({"ebv": round(float(ebv_meas[i]), 3), "ebv_err": round(float(ebv_err[i]), 3),

@@ -52,6 +52,7 @@ from pathlib import Path
 import numpy as np
 
 from stelltemp.errors import StelltempError
+from stelltemp.passbands import is_builtin_name, resolve_key
 
 #: θ_eff · T_eff (K): the usual scaling of the reciprocal temperature.
 THETA_SCALE = 5040.0
@@ -165,7 +166,7 @@ class Relation:
     colour_name : str
         The colour as the paper writes it, e.g. ``"V-Ks"``.
     blue, red : str
-        Passband keys (``jc.B``, ``2mass.Ks``, ``gaia3.BP`` ...); the colour
+        Passband keys (``B_JC``, ``Ks_2MASS``, ``BP_GDR3`` ...); the colour
         is ``m(blue) − m(red)``.
     coeffs : tuple of float
         Polynomial coefficients, one per entry of ``terms`` (empty for a
@@ -500,7 +501,7 @@ def load_relations(path):
         n = int(row["n_stars"]) if "n_stars" in table.colnames else None
         rel = Relation(
             key=str(row["key"]), label=str(row["label"]), colour_name=str(row["colour"]),
-            blue=str(row["blue"]), red=str(row["red"]),
+            blue=resolve_key(str(row["blue"])), red=resolve_key(str(row["red"])),
             coeffs=tuple(float(row[cols[i]]) for i in order),
             colour_range=(float(row["colour_min"]), float(row["colour_max"])),
             feh_range=(float(row["feh_min"]), float(row["feh_max"])),
@@ -537,7 +538,7 @@ def _load_sequence(table, citation, name):
                                  f"between {t_lo:g} and {t_hi:g} K; narrow teff_range")
         rel = Relation(
             key=str(spec["key"]), label=str(spec.get("label", spec["key"])), colour_name=col,
-            blue=str(spec["blue"]), red=str(spec["red"]), coeffs=(),
+            blue=resolve_key(str(spec["blue"])), red=resolve_key(str(spec["red"])), coeffs=(),
             colour_range=(float(xs[0]), float(xs[-1])),
             feh_range=tuple(float(v) for v in spec["feh_range"]), feh_floor=None,
             logg_range=tuple(float(v) for v in spec["logg_range"]), stage=str(spec["stage"]),
@@ -581,7 +582,7 @@ def relations_for(available_bands, stage=None):
     Parameters
     ----------
     available_bands : iterable of str
-        Passband keys the star(s) have, e.g. ``{"jc.V", "2mass.Ks"}``.
+        Passband keys the star(s) have, e.g. ``{"V_JC", "Ks_2MASS"}``.
     stage : {"dwarf", "giant", None}
         Keep only relations calibrated on this stage (None keeps all).
 
@@ -591,11 +592,16 @@ def relations_for(available_bands, stage=None):
     """
     if isinstance(available_bands, str):
         available_bands = [available_bands]
-    have = set(available_bands)
+    have = {_band_key(b) for b in available_bands}
     if stage not in (None, "dwarf", "giant"):
         raise StelltempError(f"stage must be 'dwarf', 'giant' or None, got {stage!r}")
     return tuple(r for r in _registry()
                  if r.blue in have and r.red in have and (stage is None or r.stage == stage))
+
+
+def _band_key(name):
+    """A built-in passband name as its key (old keys and plain band names resolved); others unchanged."""
+    return resolve_key(name) if is_builtin_name(name) else str(name)
 
 
 def _resolve(colour_key):
@@ -603,7 +609,8 @@ def _resolve(colour_key):
     if isinstance(colour_key, str):
         return (get_relation(colour_key),)
     if isinstance(colour_key, tuple) and len(colour_key) == 2:
-        found = tuple(r for r in _registry() if r.bands == tuple(colour_key))
+        pair = tuple(_band_key(b) for b in colour_key)
+        found = tuple(r for r in _registry() if r.bands == pair)
         if not found:
             raise StelltempError(
                 f"no calibrated relation for colour {colour_key[0]} - {colour_key[1]}")
@@ -638,7 +645,7 @@ def coverage_notes(colours, feh=None, logg=None, applied=None):
 
     Examples
     --------
-    >>> coverage_notes({("jc.V", "2mass.Ks"): [1.6, 12.0]}, feh=0.0, logg=[4.4, 4.4]).tolist()
+    >>> coverage_notes({("V_JC", "Ks_2MASS"): [1.6, 12.0]}, feh=0.0, logg=[4.4, 4.4]).tolist()
     ['', 'no calibration: V-Ks = 12.00 mag outside every dwarf relation for it (C10 V-Ks 0.78 to 3.15; PM13 V-Ks hot dwarfs -1.00 to 0.73; PM13 V-Ks M dwarfs 3.35 to 9.00)']
     """
     pairs = {k: _float_array(v, f"colour {k}") for k, v in colours.items()}
@@ -830,7 +837,7 @@ def combine_teff(colours, errors=None, feh=None, logg=None):
     ----------
     colours : dict
         Dereddened colours, mag.  Keys are relation keys (``"c10_vk"``) or
-        ``(blue, red)`` passband pairs (``("jc.V", "2mass.Ks")``; a pair
+        ``(blue, red)`` passband pairs (``("V_JC", "Ks_2MASS")``; a pair
         selects every relation for that colour, e.g. both the dwarf and the
         giant Gaia relation, and log g decides which applies).  Values are
         arrays over stars, broadcast against each other; NaN = not measured.

@@ -41,8 +41,8 @@ def colour_grid(bands, temperatures, ebv=0.0, law=DEFAULT_LAW, rv=DEFAULT_RV):
 
     Examples
     --------
-    >>> mags, colours = colour_grid(["jc.B", "jc.V"], [5772.0])
-    >>> 4.5 < float(mags["jc.V"][0]) < 5.1 and 0.5 < float(colours["jc.B-jc.V"][0]) < 0.8
+    >>> mags, colours = colour_grid(["B_JC", "V_JC"], [5772.0])
+    >>> 4.5 < float(mags["V_JC"][0]) < 5.1 and 0.5 < float(colours["B_JC-V_JC"][0]) < 0.8
     True
     """
     from .bandgrid import blackbody_mag, inside

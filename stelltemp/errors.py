@@ -5,6 +5,10 @@ class StelltempError(ValueError):
     """Bad input: the message is one line that names the problem."""
 
 
+class RenamedWarning(DeprecationWarning):
+    """An old name (a passband key, an option) still works for one release; the message gives the new one."""
+
+
 def shorten(text, limit=60):
     """`text` (any object) as one short line for a message: long text keeps its two ends.
 

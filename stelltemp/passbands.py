@@ -13,6 +13,21 @@ bands and R/λ for energy bands.
 Built-in curves come from the data files of the ``speclite`` package; the
 registry of keys, systems and adopted Vega magnitudes with citations is the
 package data file ``data/passbands.ecsv``.
+
+Names
+-----
+Built-in keys are ``<band>_<SYSTEM>``: ``U_JC B_JC V_JC Rc_JC Ic_JC``
+(Johnson–Cousins), ``u_SDSS … z_SDSS``, ``g_PS1 … y_PS1`` (Pan-STARRS1),
+``J_2MASS H_2MASS Ks_2MASS``, ``G_GDR3 BP_GDR3 RP_GDR3`` (Gaia DR3).  Keys
+are case-sensitive.  :func:`resolve_key` is the one place a name becomes a
+key, used by every layer (API, column maps, command line):
+
+* a band name alone is accepted where only one built-in band has it
+  (``B V Rc Ic J H Ks G BP RP y``);
+* ``g r i z`` (SDSS and Pan-STARRS1) and ``U``/``u`` (too easily confused)
+  need the system; the error lists the choices;
+* the keys of earlier releases (``jc.V``, ``2mass.Ks``, ``sdss.g``,
+  ``gaia3.BP`` …) still work for one release, with a DeprecationWarning.
 """
 
 from dataclasses import dataclass, field
@@ -24,9 +39,12 @@ import numpy as np
 from astropy import units as u
 from astropy.table import Table
 
-from .errors import StelltempError
+from .errors import RenamedWarning, StelltempError
 
-__all__ = ["Passband", "get_passband", "builtin_keys", "load_passband_file", "registry_table"]
+import warnings
+
+__all__ = ["Passband", "get_passband", "builtin_keys", "load_passband_file", "registry_table", "resolve_key",
+           "is_builtin_name"]
 
 DETECTORS = ("energy", "photon")
 MAGSYSTEMS = ("Vega", "AB", "ST")
@@ -41,7 +59,7 @@ class Passband:
     Parameters
     ----------
     key : str
-        Unique key, ``<system>.<band>`` for built-ins (e.g. ``jc.V``).
+        Unique key, ``<band>_<SYSTEM>`` for built-ins (e.g. ``V_JC``).
     system, band : str
         Photometric system and the band's usual name.
     magsys : {'Vega', 'AB', 'ST'}
@@ -210,15 +228,88 @@ def builtin_keys():
     return list(_registry()["key"])
 
 
+#: band names that need their system even though only one built-in band has each
+#: spelling: Johnson U and SDSS u differ only in case and are easily confused
+CASE_CONFUSED = ("u",)
+
+
+@lru_cache(maxsize=1)
+def _names():
+    """(old key → key, plain band name → key, ambiguous name → keys) from the registry."""
+    reg = _registry()
+    old = {str(o): str(k) for o, k in zip(reg["old_key"], reg["key"])} if "old_key" in reg.colnames else {}
+    by_band = {}
+    for k, b in zip(reg["key"], reg["band"]):
+        group = b.lower() if b.lower() in CASE_CONFUSED else b
+        by_band.setdefault(group, []).append(str(k))
+    plain, ambiguous = {}, {}
+    for k, b in zip(reg["key"], reg["band"]):
+        group = by_band[b.lower() if b.lower() in CASE_CONFUSED else b]
+        if len(group) == 1:
+            plain[str(b)] = str(k)
+        else:
+            ambiguous[str(b)] = tuple(group)
+    return old, plain, ambiguous
+
+
+def is_builtin_name(name):
+    """True if ``name`` is a built-in key, an old key or an unambiguous band name (never raises).
+
+    >>> is_builtin_name("Ks"), is_builtin_name("g"), is_builtin_name("obs.date")
+    (True, False, False)
+    """
+    old, plain, _ = _names()
+    text = str(name)
+    return text in set(builtin_keys()) or text in old or text in plain
+
+
+def resolve_key(name):
+    """The built-in key a name stands for.
+
+    Parameters
+    ----------
+    name : str
+        A key (``"V_JC"``), an unambiguous band name (``"V"``, ``"Ks"``,
+        ``"BP"``) or an old key (``"jc.V"``: DeprecationWarning).
+
+    Returns
+    -------
+    str
+        The key, e.g. ``"V_JC"``.
+
+    Raises
+    ------
+    StelltempError
+        For an ambiguous band name (the message lists the choices) or an
+        unknown name.
+
+    Examples
+    --------
+    >>> resolve_key("Ks"), resolve_key("g_PS1"), resolve_key("y")
+    ('Ks_2MASS', 'g_PS1', 'y_PS1')
+    """
+    text = str(name)
+    if text in set(builtin_keys()):
+        return text
+    old, plain, ambiguous = _names()
+    if text in plain:
+        return plain[text]
+    if text in old:
+        warnings.warn(f"passband key {text!r} is now {old[text]!r} (the old key goes in the next release)",
+                      RenamedWarning, stacklevel=3)
+        return old[text]
+    if text in ambiguous:
+        raise StelltempError(f"passband {text!r} is ambiguous: give its system, one of "
+                             f"{', '.join(ambiguous[text])}")
+    close = [k for k in builtin_keys() if k.lower() == text.lower() or k.lower().startswith(text.lower() + "_")]
+    hint = f" (did you mean {', '.join(close)}?)" if close else ""
+    raise StelltempError(f"unknown passband {text!r}{hint}; `stelltemp passbands` lists them")
+
+
 @lru_cache(maxsize=None)
 def _builtin(key):
     reg = _registry()
-    rows = reg[reg["key"] == key]
-    if len(rows) == 0:
-        close = [k for k in reg["key"] if k.lower() == key.lower() or k.split(".")[-1] == key]
-        hint = f" (did you mean {', '.join(close)}?)" if close else ""
-        raise StelltempError(f"unknown passband {key!r}{hint}; `stelltemp passbands` lists them")
-    row = rows[0]
+    row = reg[reg["key"] == key][0]
     curve = resources.files("speclite") / "data" / "filters" / f"{row['curve_file']}.ecsv"
     with resources.as_file(curve) as p:
         tab = Table.read(p, format="ascii.ecsv")
@@ -241,27 +332,34 @@ def _builtin(key):
 
 
 def get_passband(key_or_path, **file_options):
-    """A built-in passband by key, or a user passband from a file path.
+    """A built-in passband by name, or a user passband from a file path.
 
     Parameters
     ----------
     key_or_path : str, Path or Passband
-        A registry key such as ``'jc.V'`` or ``'gaia3.BP'``, or a path to a
-        curve file (see :func:`load_passband_file`).  A Passband is
-        returned unchanged.
+        A built-in key such as ``'V_JC'`` or ``'BP_GDR3'``, an unambiguous
+        band name (``'V'``, ``'Ks'``), an old key (deprecated; see
+        :func:`resolve_key`), the key of a user curve read earlier
+        (``'file:<stem>'``), or a path to a curve file (see
+        :func:`load_passband_file`).  A Passband is returned unchanged.
     **file_options
         Passed to :func:`load_passband_file` for a path.
+
+    Examples
+    --------
+    >>> get_passband("V").key, get_passband("V").magsys
+    ('V_JC', 'Vega')
     """
     if isinstance(key_or_path, Passband):
         return key_or_path
     text = str(key_or_path)
-    if text in set(builtin_keys()):
-        return _builtin(text)
     if text in _USER_BANDS:
         return _USER_BANDS[text]
+    if is_builtin_name(text):
+        return _builtin(resolve_key(text))
     if Path(text).suffix.lower() in (".ecsv", ".csv", ".txt", ".dat") or _exists(text):
         return load_passband_file(text, **file_options)
-    return _builtin(text)  # raises with a helpful message
+    return _builtin(resolve_key(text))  # raises with a helpful message
 
 
 def _exists(text):

@@ -8,7 +8,7 @@ needed.  Each ``plot_*`` function writes one image (format from the file
 extension) and returns the path written; each has a ``*_figure`` twin that
 returns the :class:`~matplotlib.figure.Figure` itself, for notebooks and
 tests.  Artists that carry meaning have a ``gid`` (``"wien-peak"``,
-``"passband:jc.V"``, ``"calibration:c10_bv"`` …) so tests can find them.
+``"passband:V_JC"``, ``"calibration:c10_bv"`` …) so tests can find them.
 
 The planning figures (S/N against exposure time, altitude and airmass
 through the night) live in :mod:`stelltemp.observing.figures`.
@@ -470,8 +470,8 @@ def plot_star_fit(table, typed_mags, path, law="G23", rv=3.1, replace=False):
 
 # ------------------------------------------------------------ catalogue run
 #: colours tried in turn for the catalogue diagram
-PREFERRED_COLOURS = (("jc.B", "jc.V"), ("gaia3.BP", "gaia3.RP"), ("sdss.g", "sdss.r"), ("jc.V", "2mass.Ks"),
-                     ("2mass.J", "2mass.Ks"))
+PREFERRED_COLOURS = (("B_JC", "V_JC"), ("BP_GDR3", "RP_GDR3"), ("g_SDSS", "r_SDSS"), ("V_JC", "Ks_2MASS"),
+                     ("J_2MASS", "Ks_2MASS"))
 
 
 def _column_values(table, name, unit=None):

@@ -55,8 +55,8 @@ PACKAGED_DEMO = "demo_scenario"
 SCENARIO_FILE = "scenario.toml"
 DEFAULT_OUT = "tour_output"
 #: passbands drawn under the showcase star's spectrum and in the blackbody-colour figure
-SPECTRUM_BANDS = ("jc.B", "jc.V", "jc.Rc", "jc.Ic", "2mass.J", "2mass.H", "2mass.Ks")
-COLOUR_BANDS = ("jc.B", "jc.V", "jc.Ic", "2mass.Ks")
+SPECTRUM_BANDS = ("B_JC", "V_JC", "Rc_JC", "Ic_JC", "J_2MASS", "H_2MASS", "Ks_2MASS")
+COLOUR_BANDS = ("B_JC", "V_JC", "Ic_JC", "Ks_2MASS")
 #: targets drawn in the altitude chart besides the showcase star (more would crowd the legend)
 CHART_TARGETS = 7
 

@@ -62,7 +62,7 @@ def photon_response(key, grid):
     since ∫ F_λ R dλ = ∫ F_λ λ (R/λ) dλ (Bessell & Murphy 2012, PASP 124, 140, §2).
     """
     wave, resp, row = raw_curve(key)
-    if key == "sdss.u":
+    if key == "u_SDSS":
         # The airmass-1.3 SDSS u table omits its zero rows between 4160 and 7620 Å; the
         # same Doi et al. 2010 (AJ 139, 1628, Table 4) data without the atmosphere
         # (speclite sdss2010noatm-u) has zero nodes at 4180 and 7600 Å.

@@ -74,12 +74,12 @@ def test_cached_band_table_equals_a_fresh_build(tmp_path, monkeypatch):
     monkeypatch.setenv(cache.ENV_VAR, str(tmp_path))
     bg._band_table.cache_clear()
     try:
-        built = bg.band_table("jc.V").coef  # built, stored
+        built = bg.band_table("V_JC").coef  # built, stored
         bg._band_table.cache_clear()
-        read = bg.band_table("jc.V").coef  # read back
+        read = bg.band_table("V_JC").coef  # read back
         assert any(p.name.startswith("band-") for p in tmp_path.iterdir())
         np.testing.assert_array_equal(built, read)
-        np.testing.assert_array_equal(read, bg._build_coef("jc.V", "G23", 3.1))
+        np.testing.assert_array_equal(read, bg._build_coef("V_JC", "G23", 3.1))
     finally:
         bg._band_table.cache_clear()
 
@@ -96,14 +96,14 @@ def test_changed_curve_gets_a_new_entry(tmp_path, monkeypatch):
     curve.write_text("\n".join(f"{w} {np.exp(-((w - 5100) / 400) ** 2)}" for w in lam))
     key2 = bg.table_key(load_passband_file(curve, wave_unit="AA"), "G23", 3.1)
     assert key1 != key2
-    assert bg.table_key("jc.V", "G23", 3.1) != bg.table_key("jc.V", "G23", 3.2)
-    assert bg.table_key("jc.V", "G23", 3.1) != bg.table_key("jc.V", "F99", 3.1)
+    assert bg.table_key("V_JC", "G23", 3.1) != bg.table_key("V_JC", "G23", 3.2)
+    assert bg.table_key("V_JC", "G23", 3.1) != bg.table_key("V_JC", "F99", 3.1)
 
 
 def test_two_processes_building_at_once_both_get_the_table(tmp_path):
     env = dict(os.environ, PYTHONPATH=str(ROOT), **{cache.ENV_VAR: str(tmp_path)})
     code = ("from stelltemp import bandgrid as bg; import numpy as np; "
-            "c = bg.band_table('jc.B').coef; print(float(np.sum(c)))")
+            "c = bg.band_table('B_JC').coef; print(float(np.sum(c)))")
     procs = [subprocess.Popen([sys.executable, "-c", code], env=env, stdout=subprocess.PIPE, text=True)
              for _ in range(2)]
     sums = [float(p.communicate(timeout=300)[0]) for p in procs]

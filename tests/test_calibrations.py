@@ -84,12 +84,12 @@ def test_c10_table4_transcription():
 
 
 def test_c10_passbands():
-    assert c10("c10_bv").bands == ("jc.B", "jc.V")
-    assert c10("c10_vr").bands == ("jc.V", "jc.Rc")
-    assert c10("c10_vi").bands == ("jc.V", "jc.Ic")
-    assert c10("c10_vj").bands == ("jc.V", "2mass.J")
-    assert c10("c10_vh").bands == ("jc.V", "2mass.H")
-    assert c10("c10_vk").bands == ("jc.V", "2mass.Ks")
+    assert c10("c10_bv").bands == ("B_JC", "V_JC")
+    assert c10("c10_vr").bands == ("V_JC", "Rc_JC")
+    assert c10("c10_vi").bands == ("V_JC", "Ic_JC")
+    assert c10("c10_vj").bands == ("V_JC", "J_2MASS")
+    assert c10("c10_vh").bands == ("V_JC", "H_2MASS")
+    assert c10("c10_vk").bands == ("V_JC", "Ks_2MASS")
 
 
 def test_mbm21_transcription_and_term_mapping():
@@ -100,7 +100,7 @@ def test_mbm21_transcription_and_term_mapping():
     b = (0.4929, 0.5092, -0.0353, 0.0192, -0.0020, -0.0395)
     assert rel.coeffs == (b[0], b[1], b[2], b[5], b[3], b[4])
     assert rel.colour_range == (0.39, 1.50) and rel.scatter == 61.0
-    assert rel.bands == ("gaia3.BP", "gaia3.RP")
+    assert rel.bands == ("BP_GDR3", "RP_GDR3")
     giant = cal.get_relation("mbm21_bprp_giant")
     assert giant.scatter == 83.0 and giant.colour_range == (0.33, 1.81)
     # the mapping of terms: evaluate the paper's own formula by hand
@@ -164,7 +164,7 @@ def test_m15_transcription_form_and_ranges():
         t_lo_colour, t_hi_colour = rel.teff(rel.colour_range, 0.0)[0]
         assert t_lo_colour == pytest.approx(4100.0, abs=15.0)
         assert t_hi_colour == pytest.approx(2900.0, abs=5.0)
-    assert cal.get_relation("m15_rz").bands == ("sdss.r", "sdss.z")
+    assert cal.get_relation("m15_rz").bands == ("r_SDSS", "z_SDSS")
 
 
 @pytest.mark.parametrize("spt", ["M0V", "M1V", "M2V", "M3V", "M4V", "M5V"])
@@ -209,10 +209,10 @@ def test_hot_and_cool_dwarfs_now_calibrated():
     # The colours of a B2V, a B8V and an M6V dwarf (Pecaut & Mamajek 2013, Table 5,
     # online version 2021.03.02) give temperatures through U-B, B-V, V-Ks and V-Ic.
     b2, b8, m6 = PM13_ROWS["B2V"], PM13_ROWS["B8V"], PM13_ROWS["M6V"]
-    res = cal.combine_teff({("jc.U", "jc.B"): [b2[1], b8[1], np.nan],
-                            ("jc.B", "jc.V"): [b2[2], b8[2], np.nan],
-                            ("jc.V", "2mass.Ks"): [b2[4], b8[4], m6[4]],
-                            ("jc.V", "jc.Ic"): [b2[3], b8[3], m6[3]]}, feh=0.0, logg=4.3)
+    res = cal.combine_teff({("U_JC", "B_JC"): [b2[1], b8[1], np.nan],
+                            ("B_JC", "V_JC"): [b2[2], b8[2], np.nan],
+                            ("V_JC", "Ks_2MASS"): [b2[4], b8[4], m6[4]],
+                            ("V_JC", "Ic_JC"): [b2[3], b8[3], m6[3]]}, feh=0.0, logg=4.3)
     assert res.teff.tolist() == pytest.approx([20600.0, 12300.0, 2810.0], rel=1e-9)
     assert res.n_used.tolist() == [3, 3, 2]
     # the adopted fractional scatter (4 % hot) sets the error of a single relation
@@ -371,13 +371,13 @@ def test_derivatives_match_finite_differences(key):
 
 # ------------------------------------------------------------ selection
 def test_relations_for_and_applicability():
-    keys = [r.key for r in cal.relations_for({"jc.B", "jc.V", "2mass.Ks"})]
+    keys = [r.key for r in cal.relations_for({"B_JC", "V_JC", "Ks_2MASS"})]
     assert sorted(keys) == ["c10_bv", "c10_vk", "pm13_bv_hot", "pm13_vks_cool", "pm13_vks_hot"]
-    assert [r.key for r in cal.relations_for(["gaia3.BP", "gaia3.RP"], stage="giant")] == [
+    assert [r.key for r in cal.relations_for(["BP_GDR3", "RP_GDR3"], stage="giant")] == [
         "mbm21_bprp_giant"]
-    assert cal.relations_for(["jc.V"]) == ()
+    assert cal.relations_for(["V_JC"]) == ()
     with pytest.raises(StelltempError):
-        cal.relations_for(["jc.V"], stage="supergiant")
+        cal.relations_for(["V_JC"], stage="supergiant")
     dwarf, giant = cal.get_relation("mbm21_bprp_dwarf"), cal.get_relation("mbm21_bprp_giant")
     g = np.array([4.5, 3.0, 2.99, np.nan])
     assert dwarf.applies_to(g).tolist() == [True, True, False, True]
@@ -389,8 +389,8 @@ def test_relations_for_and_applicability():
 
 # ------------------------------------------------------------ coverage notes
 def test_coverage_notes_say_why_and_what_was_assumed():
-    pairs = {("jc.V", "2mass.Ks"): [1.6, 12.0, 1.6, np.nan, 2.0],
-             ("jc.B", "jc.V"): [0.6, np.nan, 0.6, np.nan, 0.9]}
+    pairs = {("V_JC", "Ks_2MASS"): [1.6, 12.0, 1.6, np.nan, 2.0],
+             ("B_JC", "V_JC"): [0.6, np.nan, 0.6, np.nan, 0.9]}
     notes = cal.coverage_notes(pairs, feh=[0.0, 0.0, -2.0, 0.0, 0.0],
                                logg=[4.4, 4.4, np.nan, 4.4, 2.0])
     assert notes[0] == ""
@@ -401,10 +401,10 @@ def test_coverage_notes_say_why_and_what_was_assumed():
     # a giant (log g 2.0) with V-Ks and B-V only: no giant relation in those colours
     assert notes[4].startswith("no calibration: no relation for a giant (log g 2.00)")
     # Gaia-2MASS colours only, log g unknown: the relations that need log g are named
-    notes = cal.coverage_notes({("gaia3.BP", "2mass.Ks"): [2.0]}, feh=[0.0], logg=None)
+    notes = cal.coverage_notes({("BP_GDR3", "Ks_2MASS"): [2.0]}, feh=[0.0], logg=None)
     assert "BP-Ks need log g, which is unknown" in notes[0]
     # the metallicity reason is named when only [Fe/H] is outside
-    notes = cal.coverage_notes({("jc.V", "2mass.J"): [4.0]}, feh=[-1.5], logg=[5.0])
+    notes = cal.coverage_notes({("V_JC", "J_2MASS"): [4.0]}, feh=[-1.5], logg=[5.0])
     assert "M15 V-J: [Fe/H] -1.50 outside -0.6 to +0.5" in notes[0]
 
 
@@ -464,7 +464,7 @@ def test_batch_flags_and_rows_independent():
 
 def test_logg_selects_dwarf_or_giant_gaia_relation():
     c = np.array([1.0, 1.0, 1.0])
-    res = cal.combine_teff({("gaia3.BP", "gaia3.RP"): c}, feh=0.0, logg=[4.5, 1.5, np.nan])
+    res = cal.combine_teff({("BP_GDR3", "RP_GDR3"): c}, feh=0.0, logg=[4.5, 1.5, np.nan])
     dwarf = float(cal.get_relation("mbm21_bprp_dwarf").teff(1.0, 0.0)[0])
     giant = float(cal.get_relation("mbm21_bprp_giant").teff(1.0, 0.0)[0])
     assert res.teff.tolist() == pytest.approx([dwarf, giant, dwarf])
@@ -483,9 +483,9 @@ def test_vectorised_over_many_stars_matches_one_by_one():
     bprp = rng.uniform(0.3, 1.9, n)
     feh = rng.uniform(-2.5, 0.5, n)
     logg = rng.uniform(1.0, 5.0, n)
-    cols = {"c10_bv": bv, "c10_vk": vk, ("gaia3.BP", "gaia3.RP"): bprp}
+    cols = {"c10_bv": bv, "c10_vk": vk, ("BP_GDR3", "RP_GDR3"): bprp}
     errs = {"c10_bv": np.full(n, 0.01), "c10_vk": np.full(n, 0.02),
-            ("gaia3.BP", "gaia3.RP"): np.full(n, 0.005)}
+            ("BP_GDR3", "RP_GDR3"): np.full(n, 0.005)}
     res = cal.combine_teff(cols, errs, feh=feh, logg=logg)
     assert res.teff.shape == (n,) and res.teff_each.shape == (4, n)
     for i in rng.choice(n, 25, replace=False):
@@ -505,11 +505,11 @@ def test_combine_rejects_bad_arguments():
     with pytest.raises(StelltempError):
         cal.combine_teff({})
     with pytest.raises(StelltempError):
-        cal.combine_teff({("sdss.u", "sdss.g"): [0.1]})
+        cal.combine_teff({("u_SDSS", "g_SDSS"): [0.1]})
     with pytest.raises(StelltempError):
         cal.combine_teff({"c10_vk": [1.5]}, {"c10_bv": [0.01]})
     with pytest.raises(StelltempError):
-        cal.combine_teff({"c10_vk": [1.5], ("jc.V", "2mass.Ks"): [1.5]})
+        cal.combine_teff({"c10_vk": [1.5], ("V_JC", "Ks_2MASS"): [1.5]})
     with pytest.raises(StelltempError):
         cal.combine_teff({"c10_vk": [1.5, 1.6], "c10_bv": [0.6, 0.7, 0.8]})
     with pytest.raises(StelltempError):
@@ -537,9 +537,29 @@ def test_load_relations_checks_tables(tmp_path):
 def test_cli_relations(capsys):
     from stelltemp.cli import main
 
-    assert main(["relations", "--bands", "jc.V", "2mass.Ks"]) == 0
+    assert main(["relations", "--bands", "V_JC", "Ks_2MASS"]) == 0
     out = capsys.readouterr().out
     assert "c10_vk" in out and "c10_bv" not in out
     assert main(["relations", "--use", "c10_vk", "--colour", "1.56"]) == 0
     assert "Teff = 5755" in capsys.readouterr().out
     assert main(["relations", "--use", "c10_vk", "--colour", "5.0"]) == 1
+
+# ----------------------------------------------------- through the engine
+def test_engine_calibrates_across_the_hr_diagram_or_says_why():
+    # The three cases of issue 11: an M dwarf with V-Ks = 5, an A star and a giant
+    # with B-V only. Colours of the M3.5V and A0V rows of Pecaut & Mamajek 2013
+    # (ApJS 208, 9, Table 5, online version 2021.03.02); no reddening.
+    from stelltemp.engine import estimate
+
+    v = np.array([10.0, 10.0, 10.0])
+    mags = {"B_JC": v + [1.60, 0.000, 1.00], "V_JC": v, "Ks_2MASS": v - [5.00, 0.041, 2.50]}
+    res = estimate(mags, {k: np.full(3, 0.01) for k in mags}, logg=[5.0, 4.3, 2.5], feh=0.0)
+    t = np.asarray(res["teff_cal"].value)
+    assert t[0] == pytest.approx(3270.0, abs=3 * 0.03 * 3270.0)  # M3.5V: 3270 K
+    assert t[1] == pytest.approx(9700.0, abs=3 * 0.04 * 9700.0)  # A0V: 9700 K
+    assert np.isnan(t[2])
+    note = str(res["teff_cal_note"][2])
+    assert note.startswith("no calibration") and "giant" in note
+    # without log g the class is assumed, and said so
+    res = estimate(mags, {k: np.full(3, 0.01) for k in mags}, feh=0.0)
+    assert all("log g unknown: dwarf assumed" in str(n) for n in res["teff_cal_note"])

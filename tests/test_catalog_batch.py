@@ -28,9 +28,9 @@ def _catalogue(n=500, seed=3):
     v = rng.uniform(6, 16, n)
     return pa.table({
         "id": np.arange(n, dtype=np.int64),
-        "jc.B": v + rng.uniform(-0.1, 1.6, n),
-        "jc.V": v,
-        "jc.V_err": rng.uniform(0.01, 0.05, n),
+        "B_JC": v + rng.uniform(-0.1, 1.6, n),
+        "V_JC": v,
+        "V_JC_err": rng.uniform(0.01, 0.05, n),
         "ebv": rng.uniform(0.0, 0.3, n),
         "parallax": rng.uniform(0.5, 20, n),
     })
@@ -52,8 +52,8 @@ def test_run_matches_engine_row_for_row(tmp_path, src, ext):
     summary = run_catalogue(inp, out, engine=fake_estimate, chunk_rows=128, quiet=True)
     back = read_table(out)
     expect = fake_estimate(
-        {"jc.B": cat["jc.B"].to_numpy(), "jc.V": cat["jc.V"].to_numpy()},
-        {"jc.V": cat["jc.V_err"].to_numpy()}, ebv=cat["ebv"].to_numpy(),
+        {"B_JC": cat["B_JC"].to_numpy(), "V_JC": cat["V_JC"].to_numpy()},
+        {"V_JC": cat["V_JC_err"].to_numpy()}, ebv=cat["ebv"].to_numpy(),
     )
     np.testing.assert_allclose(np.asarray(back["t_bb"], float), expect["t_bb"].value, rtol=1e-12)
     np.testing.assert_allclose(np.asarray(back["t_bb_err"], float), expect["t_bb_err"].value, rtol=1e-12)
@@ -67,7 +67,7 @@ def test_run_matches_engine_row_for_row(tmp_path, src, ext):
 def test_bad_rows_are_flagged_and_the_run_goes_on(tmp_path):
     inp = tmp_path / "in.csv"
     inp.write_text(
-        "id,jc.B,jc.V,jc.V_err,ebv\n"
+        "id,B_JC,V_JC,V_JC_err,ebv\n"
         "a,11.0,10.5,0.02,0.1\n"
         "b,eleven,10.5,0.02,0.1\n"
         "c,inf,10.5,0.02,0.1\n"
@@ -83,10 +83,10 @@ def test_bad_rows_are_flagged_and_the_run_goes_on(tmp_path):
     flags = dict(zip(back["id"], back["flags"]))
     notes = dict(zip(back["id"], back["input_notes"]))
     assert flags["a"] == 0 and flags["h"] == 0
-    assert flags["b"] & F.BAD_INPUT and notes["b"] == "jc.B: not a number"
-    assert flags["c"] & F.BAD_INPUT and notes["c"] == "jc.B: infinite"
-    assert flags["d"] & F.ABSURD_VALUE and notes["d"] == "jc.B: outside [-40, 40]"
-    assert flags["e"] == F.ABSURD_VALUE and notes["e"] == "jc.V_err: outside [0, 5]"
+    assert flags["b"] & F.BAD_INPUT and notes["b"] == "B_JC: not a number"
+    assert flags["c"] & F.BAD_INPUT and notes["c"] == "B_JC: infinite"
+    assert flags["d"] & F.ABSURD_VALUE and notes["d"] == "B_JC: outside [-40, 40]"
+    assert flags["e"] == F.ABSURD_VALUE and notes["e"] == "V_JC_err: outside [0, 5]"
     assert np.isfinite(back["t_bb"][4])  # default error used instead
     assert flags["f"] & F.BAD_INPUT and notes["f"] == "no usable magnitude"
     assert flags["g"] & F.BAD_INPUT and notes["g"] == "ebv: missing, no result without E(B-V)"
@@ -118,7 +118,7 @@ def test_parquet_output_records_the_run(tmp_path):
     schema = pq.read_schema(out)
     record = json.loads(schema.metadata[b"stelltemp"])
     assert record["R_V"] == 3.6 and record["extinction_law"] == "F99" and record["method_requested"] == "colour"
-    assert record["passbands"] == "jc.B,jc.V" and record["ebv_source"] == "column ebv"
+    assert record["passbands"] == "B_JC,V_JC" and record["ebv_source"] == "column ebv"
     assert record["run_time_utc"].endswith("+00:00") and record["tool_version"]
     assert read_table(out)["t_bb"].unit == "K"
 
@@ -158,7 +158,7 @@ def test_map_file_and_single_ebv_value(tmp_path):
     inp = tmp_path / "in.csv"
     inp.write_text("star,Bmag,Vmag,e_V\ns1,11.0,10.5,0.02\ns2,12.0,11.0,0.03\n")
     cmap = tmp_path / "map.toml"
-    cmap.write_text('[bands]\n"jc.B" = "Bmag"\n"jc.V" = { mag = "Vmag", err = "e_V" }\n[values]\nebv = 0.1\n')
+    cmap.write_text('[bands]\n"B_JC" = "Bmag"\n"V_JC" = { mag = "Vmag", err = "e_V" }\n[values]\nebv = 0.1\n')
     out = tmp_path / "out.ecsv"
     run_catalogue(inp, out, cmap, engine=fake_estimate, quiet=True)
     back = read_table(out)
@@ -171,7 +171,7 @@ def test_map_file_and_single_ebv_value(tmp_path):
 
 def test_empty_table_gives_empty_output_with_result_columns(tmp_path):
     inp = tmp_path / "in.csv"
-    inp.write_text("jc.B,jc.V\n")
+    inp.write_text("B_JC,V_JC\n")
     out = tmp_path / "out.parquet"
     summary = run_catalogue(inp, out, engine=fake_estimate, quiet=True)
     back = pq.read_table(out)
@@ -179,7 +179,7 @@ def test_empty_table_gives_empty_output_with_result_columns(tmp_path):
 
 
 def test_result_names_do_not_clobber_input_columns(tmp_path):
-    t = Table({"jc.B": [11.0], "jc.V": [10.5], "t_bb": ["observer's note"]})
+    t = Table({"B_JC": [11.0], "V_JC": [10.5], "t_bb": ["observer's note"]})
     out = estimate_table(t, engine=fake_estimate)
     assert out["t_bb"][0] == "observer's note"
     assert np.isfinite(out["t_bb" + RESULT_SUFFIX][0])
@@ -195,7 +195,7 @@ def test_summary_json_and_text(tmp_path):
 
 
 def test_compute_chunk_rejects_an_engine_that_loses_rows():
-    t = Table({"jc.B": [11.0, 12.0], "jc.V": [10.5, 11.0]})
+    t = Table({"B_JC": [11.0, 12.0], "V_JC": [10.5, 11.0]})
 
     def short(mags, errs=None, **kw):
         return fake_estimate(mags, errs, **kw)[:1]
@@ -216,9 +216,9 @@ def test_astropy_format_inputs_with_masked_cells(tmp_path, ext):
 
     t = Table()
     t["name"] = ["invented-a", "invented-b", "invented-c"]
-    t["jc.B"] = MaskedColumn([11.0, 12.0, 13.0], mask=[False, True, False])
-    t["jc.V"] = [10.5, 11.0, 12.0]
-    t["jc.V_err"] = [0.02, 0.02, -0.5]
+    t["B_JC"] = MaskedColumn([11.0, 12.0, 13.0], mask=[False, True, False])
+    t["V_JC"] = [10.5, 11.0, 12.0]
+    t["V_JC_err"] = [0.02, 0.02, -0.5]
     inp = tmp_path / f"in.{ext}"
     t.write(inp, format={"fits": "fits", "vot": "votable", "ecsv": "ascii.ecsv"}[ext])
     out = tmp_path / "out.parquet"

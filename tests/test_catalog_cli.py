@@ -22,7 +22,7 @@ def run_cli(args, engine=None):
 
 def _input(tmp_path):
     path = tmp_path / "in.csv"
-    path.write_text("star,jc.B,jc.V\ns1,11.0,10.5\ns2,x,11.0\n")
+    path.write_text("star,B_JC,V_JC\ns1,11.0,10.5\ns2,x,11.0\n")
     return path
 
 
@@ -72,7 +72,7 @@ def test_dask_option_runs_on_dask(tmp_path, capsys):
 def _table():
     import pyarrow as pa
 
-    return pa.table({"jc.B": [11.0, 12.0], "jc.V": [10.5, 11.0]})
+    return pa.table({"B_JC": [11.0, 12.0], "V_JC": [10.5, 11.0]})
 
 
 def test_cli_default_chunk_matches_the_library():
@@ -88,8 +88,8 @@ def test_plot_of_the_results(tmp_path, capsys):
 
     inp = tmp_path / "in.csv"
     rows = [(name, t) for name, t in (("s1", 4500.0), ("s2", 9000.0))]
-    inp.write_text("star,jc.B,jc.V\n" + "".join(
-        f"{n},{float(blackbody_mag('jc.B', t)):.4f},{float(blackbody_mag('jc.V', t)):.4f}\n" for n, t in rows))
+    inp.write_text("star,B_JC,V_JC\n" + "".join(
+        f"{n},{float(blackbody_mag('B_JC', t)):.4f},{float(blackbody_mag('V_JC', t)):.4f}\n" for n, t in rows))
     out, fig = tmp_path / "out.ecsv", tmp_path / "diagram.png"
     assert run_cli(_parse(["catalogue", str(inp), "-o", str(out), "--plot", str(fig), "--quiet"])) == 0
     assert fig.read_bytes()[:4] == b"\x89PNG"

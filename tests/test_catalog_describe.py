@@ -25,7 +25,7 @@ def _astropy_read(path):
         warnings.simplefilter("always")
         if path.suffix == ".csv":  # the CSV carries an ECSV header
             table = Table.read(path, format="ascii.ecsv")
-        elif path.suffix == ".vot":  # VOTable IDs cannot start with a digit (2mass.J); names can
+        elif path.suffix == ".vot":  # VOTable IDs cannot start with a digit (J_2MASS); names can
             table = Table.read(path, use_names_over_ids=True)
         else:
             table = Table.read(path)
@@ -87,7 +87,7 @@ def test_every_format_reads_back_whole_and_without_warnings(outputs, reference, 
 
 def test_units_on_inputs_and_results(reference):
     t = reference
-    for name in ("jc.B", "jc.V_err", "2mass.Ks", "ebv", "mag"):
+    for name in ("B_JC", "V_JC_err", "Ks_2MASS", "ebv", "mag"):
         assert t[name].unit == u.mag, name
     assert t["parallax"].unit == u.mas and t["ra"].unit == u.deg and t["dec"].unit == u.deg
     assert t["t_bb"].unit == u.K and t["theta"].unit == u.mas and t["lambda_peak"].unit == u.nm
@@ -120,15 +120,18 @@ def test_record_holds_passbands_flags_and_assumptions(reference):
         k = key.replace(".", "_")
         assert meta[f"passband_{k}_source"] and meta[f"passband_{k}_magsys"] in ("Vega", "AB")
     # Bessell, Castelli & Plez 1998, A&A 333, 231: V(Vega) = 0.03 mag, the adopted zero point
-    assert meta["passband_jc_V_zero_point_mag"] == pytest.approx(0.03)
+    assert meta["passband_V_JC_zero_point_mag"] == pytest.approx(0.03)
     for bit, name in F.NAMES.items():
         assert meta[f"flag_{bit}_name"] == name
         if getattr(F, "SEVERITY", None):
             assert meta[f"flag_{bit}_severity"] in F.LEVELS
     assumptions = [v for k, v in meta.items() if k.startswith("assumption_")]
     assert any("0.03 mag" in a for a in assumptions)
-    # the demo list has a log g column now: the dwarf assumption is stated only without one
-    assert any("dwarf" in a for a in assumptions) == ("logg" not in reference.colnames)
+    # the demo list has a log g column with some empty cells: those rows are taken as dwarfs
+    if "logg" in reference.colnames:
+        assert any("empty log g are calibrated as dwarfs" in a for a in assumptions)
+    else:
+        assert any("every star is calibrated as a dwarf" in a for a in assumptions)
     assert "effective temperature" in meta["blackbody_note"]
     # no record key FITS would change: short keys only in upper case, no dots
     for key in meta:
@@ -137,7 +140,7 @@ def test_record_holds_passbands_flags_and_assumptions(reference):
 
 def test_method_and_relations_per_row(reference):
     t = reference
-    assert set(t["t_bb_method"]) == {"fit"}  # nine bands: the multi-band fit
+    assert set(t["t_bb_method"]) == {"fit"}  # ten bands: the multi-band fit
     rel = [_text(x) for x in t["cal_used"]]
     n_cal = np.asarray(t["n_cal"])
     assert [len(r.split(",")) if r else 0 for r in rel] == list(n_cal)

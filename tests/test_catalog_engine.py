@@ -22,7 +22,7 @@ from stelltemp.passbands import get_passband
 from stelltemp.photometry import synthetic_mag
 from stelltemp.planck import planck_lambda_cgs
 
-KEYS = ["jc.B", "jc.V", "jc.Ic", "2mass.J", "2mass.Ks"]
+KEYS = ["B_JC", "V_JC", "Ic_JC", "J_2MASS", "Ks_2MASS"]
 TEMPS = np.array([3500.0, 4500.0, 6000.0, 9000.0, 15000.0])
 
 
@@ -58,8 +58,8 @@ def test_file_run_equals_direct_engine_call(tmp_path, ext):
     rng = np.random.default_rng(8)
     n = 150
     v = rng.uniform(6, 15, n)
-    cols = {"jc.B": v + rng.uniform(0.0, 1.4, n), "jc.V": v, "jc.Ic": v - rng.uniform(0.3, 1.5, n),
-            "jc.V_err": np.full(n, 0.02), "ebv": rng.uniform(0.0, 0.4, n), "parallax": rng.uniform(1, 30, n)}
+    cols = {"B_JC": v + rng.uniform(0.0, 1.4, n), "V_JC": v, "Ic_JC": v - rng.uniform(0.3, 1.5, n),
+            "V_JC_err": np.full(n, 0.02), "ebv": rng.uniform(0.0, 0.4, n), "parallax": rng.uniform(1, 30, n)}
     table = pa.table(cols)
     inp = tmp_path / f"in.{ext}"
     (pq.write_table if ext == "parquet" else pcsv.write_csv)(table, inp)
@@ -67,7 +67,7 @@ def test_file_run_equals_direct_engine_call(tmp_path, ext):
     run_catalogue(inp, out, quiet=True, chunk_rows=40)
     got = pq.read_table(out)
     units = Table.read(out).columns  # units travel in astropy's Parquet metadata
-    ref = estimate({k: cols[k] for k in ("jc.B", "jc.V", "jc.Ic")}, {"jc.V": cols["jc.V_err"]},
+    ref = estimate({k: cols[k] for k in ("B_JC", "V_JC", "Ic_JC")}, {"V_JC": cols["V_JC_err"]},
                    ebv=cols["ebv"], parallax=cols["parallax"])
     for name in ref.colnames:
         want = np.asarray(getattr(ref[name], "value", ref[name]))
@@ -84,7 +84,7 @@ def test_file_run_equals_direct_engine_call(tmp_path, ext):
 def test_messy_rows_with_the_real_engine(tmp_path):
     inp = tmp_path / "in.csv"
     inp.write_text(
-        "star,jc.B,jc.V,jc.Ic,ebv\n"
+        "star,B_JC,V_JC,Ic_JC,ebv\n"
         "s1,11.2,10.5,9.7,0.05\n"
         "s2,n/a,10.5,9.7,0.05\n"
         "s3,abc,def,ghi,0.05\n"
@@ -99,7 +99,7 @@ def test_messy_rows_with_the_real_engine(tmp_path):
     assert not flags[0] & (F.BAD_INPUT | F.ABSURD_VALUE) and np.isfinite(back["t_bb"][0])
     assert np.isfinite(back["t_bb"][1])  # a missing band is just not used
     assert flags[2] & F.BAD_INPUT and not np.isfinite(back["t_bb"][2])
-    assert flags[3] & F.BAD_INPUT and back["input_notes"][3] == "jc.V: infinite"
+    assert flags[3] & F.BAD_INPUT and back["input_notes"][3] == "V_JC: infinite"
     assert flags[4] & F.ABSURD_VALUE
     assert flags[5] & F.BAD_INPUT and back["input_notes"][5] == "ebv: not a number"
     assert summary.rows == 6
@@ -110,7 +110,7 @@ def test_unknown_passband_in_map_is_one_clear_error(tmp_path):
 
     t = Table({"Q": [10.0], "V": [9.0]})
     with pytest.raises(StelltempError, match="unknown passband 'jc.Q'"):
-        estimate_table(t, {"bands": {"jc.Q": "Q", "jc.V": "V"}})
+        estimate_table(t, {"bands": {"jc.Q": "Q", "V_JC": "V"}})
 
 
 def test_dask_equals_local_with_the_real_engine(tmp_path):

@@ -19,10 +19,10 @@ from stelltemp.engine import flags as F
 from stelltemp.errors import StelltempError
 
 KNOWN_KEYS = {
-    "jc.U", "jc.B", "jc.V", "jc.Rc", "jc.Ic",
-    "sdss.u", "sdss.g", "sdss.r", "sdss.i", "sdss.z",
-    "2mass.J", "2mass.H", "2mass.Ks",
-    "gaia3.G", "gaia3.BP", "gaia3.RP",
+    "U_JC", "B_JC", "V_JC", "Rc_JC", "Ic_JC",
+    "u_SDSS", "g_SDSS", "r_SDSS", "i_SDSS", "z_SDSS",
+    "J_2MASS", "H_2MASS", "Ks_2MASS",
+    "G_GDR3", "BP_GDR3", "RP_GDR3",
 }
 DEFAULT_ERR = 0.03  # mag
 
@@ -48,7 +48,7 @@ def fake_estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, rv=3.1, law="G23", f
     for key in keys:
         if len(np.asarray(mags[key])) != n:
             raise StelltempError("passband arrays differ in length")
-    blue, red = ("jc.B", "jc.V") if {"jc.B", "jc.V"} <= set(keys) else (keys[0], keys[1])
+    blue, red = ("B_JC", "V_JC") if {"B_JC", "V_JC"} <= set(keys) else (keys[0], keys[1])
     m1 = np.asarray(mags[blue], dtype=float)
     m2 = np.asarray(mags[red], dtype=float)
     e_bv = np.broadcast_to(np.asarray(ebv, dtype=float), (n,))

@@ -46,13 +46,13 @@ def test_prepare_inputs_negative_error_missing_ebv_and_empty_rows():
         "B": [11.0, np.nan, 12.0], "V": [10.0, np.nan, 11.0],
         "eV": [0.02, 0.02, -0.1], "E": [0.1, 0.1, np.nan],
     })
-    cmap = ColumnMap(bands={"jc.B": BandColumns("B"), "jc.V": BandColumns("V", "eV")}, columns={"ebv": "E"})
+    cmap = ColumnMap(bands={"B_JC": BandColumns("B"), "V_JC": BandColumns("V", "eV")}, columns={"ebv": "E"})
     clean_in = prepare_inputs(lambda n: chunk[n], cmap, 3)
     assert clean_in.flags.tolist() == [0, F.BAD_INPUT, F.ABSURD_VALUE | F.BAD_INPUT]
     assert clean_in.notes[1] == "no usable magnitude"
     assert clean_in.notes[2] == "E: missing, no result without E(B-V); eV: outside [0, 5]"
-    assert np.isnan(clean_in.mags["jc.B"][2])  # no reddening: no result, never that of E(B-V) = 0
-    assert np.isnan(clean_in.errs["jc.V"][2])
+    assert np.isnan(clean_in.mags["B_JC"][2])  # no reddening: no result, never that of E(B-V) = 0
+    assert np.isnan(clean_in.errs["V_JC"][2])
     # fitting E(B-V): an empty reddening cell is not a problem
     fitted = prepare_inputs(lambda n: chunk[n], cmap, 3, fit_ebv=True)
     assert fitted.flags[2] == F.ABSURD_VALUE

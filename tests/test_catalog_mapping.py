@@ -7,11 +7,11 @@ from stelltemp.errors import StelltempError
 
 
 def test_default_mapping_picks_band_keys_and_error_columns():
-    cols = ["id", "jc.B", "jc.V", "jc.V_err", "2mass.Ks", "obs.date", "ebv", "parallax", "feh"]
+    cols = ["id", "B_JC", "V_JC", "V_JC_err", "Ks_2MASS", "obs.date", "ebv", "parallax", "feh"]
     cmap = default_mapping(cols)
-    assert list(cmap.bands) == ["jc.B", "jc.V", "2mass.Ks"]
-    assert cmap.bands["jc.V"] == BandColumns("jc.V", "jc.V_err")
-    assert cmap.bands["jc.B"].err is None
+    assert list(cmap.bands) == ["B_JC", "V_JC", "Ks_2MASS"]
+    assert cmap.bands["V_JC"] == BandColumns("V_JC", "V_JC_err")
+    assert cmap.bands["B_JC"].err is None
     assert "obs.date" not in cmap.bands  # unknown system: not a passband
     assert cmap.columns == {"ebv": "ebv", "parallax": "parallax", "feh": "feh"}
 
@@ -19,12 +19,12 @@ def test_default_mapping_picks_band_keys_and_error_columns():
 def test_map_file_reads_bands_columns_values(tmp_path):
     path = tmp_path / "map.toml"
     path.write_text(
-        '[bands]\n"jc.B" = "Bmag"\n"jc.V" = { mag = "Vmag", err = "e_Vmag" }\n'
+        '[bands]\n"B_JC" = "Bmag"\n"V_JC" = { mag = "Vmag", err = "e_Vmag" }\n'
         '[columns]\nparallax = "plx"\nlogg = "grav"\n'
         "[values]\nebv = 0.03\nebv_err = 0.01\n"
     )
     cmap = load_mapping(path)
-    assert cmap.bands == {"jc.B": BandColumns("Bmag"), "jc.V": BandColumns("Vmag", "e_Vmag")}
+    assert cmap.bands == {"B_JC": BandColumns("Bmag"), "V_JC": BandColumns("Vmag", "e_Vmag")}
     assert cmap.columns == {"parallax": "plx", "logg": "grav"}
     assert cmap.values == {"ebv": 0.03, "ebv_err": 0.01}
     assert cmap.required_columns() == ["Bmag", "Vmag", "e_Vmag", "plx", "grav"]
@@ -33,13 +33,13 @@ def test_map_file_reads_bands_columns_values(tmp_path):
 @pytest.mark.parametrize(
     "text, words",
     [
-        ("[bands]\nV = 'Vmag'\n", "band key 'V'"),
+        ("[bands]\ng = 'gmag'\n", "'g' is ambiguous"),
         ("[colour]\n", "unknown table [colour]"),
         ("[columns]\nteff = 'T'\n", "unknown key 'teff'"),
         ("[values]\nebv = 'lots'\n", "ebv must be a number"),
         ("[columns]\nebv = 'E'\n[values]\nebv = 0.1\n", "both as a column and as a value"),
         ("[bands\n", "map.toml"),
-        ("[bands]\n'jc.V' = { magnitude = 'V' }\n", "needs mag"),
+        ("[bands]\n'V_JC' = { magnitude = 'V' }\n", "needs mag"),
     ],
 )
 def test_bad_map_files_give_one_clear_line(tmp_path, text, words):
@@ -57,8 +57,8 @@ def test_missing_map_file(tmp_path):
 
 
 def test_missing_column_is_named():
-    cmap = ColumnMap(bands={"jc.V": BandColumns("Vmag", "e_Vmag")}, columns={"ebv": "EBV"})
-    with pytest.raises(StelltempError, match=r"column 'e_Vmag' \(error of jc.V\)"):
+    cmap = ColumnMap(bands={"V_JC": BandColumns("Vmag", "e_Vmag")}, columns={"ebv": "EBV"})
+    with pytest.raises(StelltempError, match=r"column 'e_Vmag' \(error of V_JC\)"):
         cmap.check(["Vmag", "EBV"])
     with pytest.raises(StelltempError, match=r"column 'EBV' \(for ebv\)"):
         cmap.check(["Vmag", "e_Vmag"])
@@ -67,7 +67,7 @@ def test_missing_column_is_named():
 
 
 def test_ebv_override_number_or_column():
-    cmap = ColumnMap(bands={"jc.V": BandColumns("V")}, columns={"ebv": "E"})
+    cmap = ColumnMap(bands={"V_JC": BandColumns("V")}, columns={"ebv": "E"})
     as_value = cmap.with_ebv("0.12")
     assert as_value.values == {"ebv": 0.12} and "ebv" not in as_value.columns
     as_column = as_value.with_ebv("EBV_sfd", ebv_err=0.02)

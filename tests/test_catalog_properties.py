@@ -18,7 +18,7 @@ try:
 except ImportError:  # tests run as a package
     from tests.test_catalog_helpers import fake_estimate
 
-BANDS = ["jc.B", "jc.V", "jc.Ic"]
+BANDS = ["B_JC", "V_JC", "Ic_JC"]
 SETTINGS = settings(max_examples=30, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 
 good_mag = st.floats(min_value=-5, max_value=25, allow_nan=False)
@@ -109,7 +109,7 @@ def test_float_parquet_with_extreme_values(data):
     with tempfile.TemporaryDirectory() as tmp:
         inp, out = Path(tmp) / "in.parquet", Path(tmp) / "out.csv"
         b, v = (np.array(c, dtype=float) for c in zip(*data))
-        pq.write_table(pa.table({"jc.B": b, "jc.V": v}), inp)
+        pq.write_table(pa.table({"B_JC": b, "V_JC": v}), inp)
         run_catalogue(inp, out, engine=fake_estimate, quiet=True)
         back = read_table(out)
         _check_flags([(x, y, None) for x, y in data], back)

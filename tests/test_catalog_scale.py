@@ -27,9 +27,9 @@ def _write_input(path, n=2000):
     table = pa.table({
         "id": np.arange(n, dtype=np.int64),
         "name": [f"invented-{i}" for i in range(n)],
-        "jc.B": pa.array(b.astype(float)),
-        "jc.V": v,
-        "jc.V_err": np.where(np.arange(n) % 101 == 0, -1.0, 0.02),
+        "B_JC": pa.array(b.astype(float)),
+        "V_JC": v,
+        "V_JC_err": np.where(np.arange(n) % 101 == 0, -1.0, 0.02),
         "ebv": rng.uniform(0, 0.3, n),
     })
     pq.write_table(table, path, row_group_size=300)
@@ -67,7 +67,7 @@ def test_distributed_cluster_matches_local_loop(tmp_path):
 
 def test_dask_refuses_csv_input_and_bad_scheduler(tmp_path):
     inp = tmp_path / "in.csv"
-    inp.write_text("jc.B,jc.V\n1,2\n")
+    inp.write_text("B_JC,V_JC\n1,2\n")
     with pytest.raises(StelltempError, match="Dask runs read Parquet"):
         run_catalogue_dask(inp, tmp_path / "o.parquet", engine=fake_estimate)
     pq_in = tmp_path / "in.parquet"

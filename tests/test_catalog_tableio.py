@@ -15,7 +15,7 @@ from stelltemp.catalog.tableio import ChunkReader, open_sink, read_table, table_
 from stelltemp.errors import StelltempError
 
 FORMATS = ["parquet", "csv", "ecsv", "fits", "vot"]
-RUN = {"tool_name": "stelltemp", "tool_version": "9.9", "method_requested": "auto", "passbands": "jc.B,jc.V",
+RUN = {"tool_name": "stelltemp", "tool_version": "9.9", "method_requested": "auto", "passbands": "B_JC,V_JC",
        "extinction_law": "G23", "R_V": 3.1, "ebv_source": "0.1 mag for every row", "flag_1_name": "bad_input",
        "run_time_utc": "2026-01-01T00:00:00+00:00"}
 
@@ -23,7 +23,7 @@ RUN = {"tool_name": "stelltemp", "tool_version": "9.9", "method_requested": "aut
 def _table():
     t = Table()
     t["name"] = ["invented-1", "invented-2", "invented-3"]
-    t["jc.V"] = [10.0, 11.5, np.nan]
+    t["V_JC"] = [10.0, 11.5, np.nan]
     t["t_bb"] = [5000.0, 6000.0, np.nan] * u.K
     t["flags"] = np.array([0, 1, 2], dtype=np.int64)
     return t
@@ -34,7 +34,7 @@ def test_round_trip_keeps_values_units_and_run_record(tmp_path, ext):
     path = tmp_path / f"out.{ext}"
     write_table(_table(), path, run_meta=RUN)
     back = read_table(path)
-    assert back.colnames == ["name", "jc.V", "t_bb", "flags"]
+    assert back.colnames == ["name", "V_JC", "t_bb", "flags"]
     assert list(back["name"]) == ["invented-1", "invented-2", "invented-3"]
     np.testing.assert_array_equal(np.asarray(back["t_bb"], float), [5000.0, 6000.0, np.nan])
     assert back["t_bb"].unit == u.K
@@ -48,7 +48,7 @@ def test_csv_carries_an_ecsv_header(tmp_path):
     write_table(_table(), path, run_meta=RUN)
     lines = path.read_text().splitlines()
     assert lines[0] == "# %ECSV 1.0"
-    assert [x for x in lines if not x.startswith("#")][0] == "name,jc.V,t_bb,flags"
+    assert [x for x in lines if not x.startswith("#")][0] == "name,V_JC,t_bb,flags"
     back = Table.read(path, format="ascii.ecsv")
     assert back["t_bb"].unit == u.K and back.meta["extinction_law"] == "G23"
     assert not (tmp_path / "out.csv.meta.json").exists()
@@ -79,9 +79,9 @@ def test_malformed_files_give_one_clear_line(tmp_path, ext, content, words):
 
 def test_csv_duplicate_names_comments_and_bad_lines(tmp_path):
     path = tmp_path / "in.csv"
-    path.write_text("# invented survey\nid,jc.V,jc.V,x\n1,10,11,a\n2,12\n3,13,14,c,extra\n4,15,16,d\n")
+    path.write_text("# invented survey\nid,V_JC,V_JC,x\n1,10,11,a\n2,12\n3,13,14,c,extra\n4,15,16,d\n")
     reader = ChunkReader(path)
-    assert reader.colnames == ["id", "jc.V", "jc.V.dup2", "x"]
+    assert reader.colnames == ["id", "V_JC", "V_JC.dup2", "x"]
     chunks, notes = [], []
     for chunk in reader:
         chunks.append(chunk)
@@ -89,10 +89,10 @@ def test_csv_duplicate_names_comments_and_bad_lines(tmp_path):
     rows = pa.concat_tables(chunks)
     # rows in = rows out: the two malformed lines stay, in place, flagged as unusable
     assert rows["id"].to_pylist() == ["1", "2", "3", "4"]
-    assert rows["jc.V"].to_pylist() == ["10", "12", "13", "15"] and rows["x"].to_pylist() == ["a", "", "c", "d"]
+    assert rows["V_JC"].to_pylist() == ["10", "12", "13", "15"] and rows["x"].to_pylist() == ["a", "", "c", "d"]
     assert notes == [(1, "line 4: 2 field(s) for 4 columns, values not used", True),
                      (2, "line 5: 5 field(s) for 4 columns, values not used", True)]
-    assert any("renamed 'jc.V.dup2'" in n for n in reader.notes)
+    assert any("renamed 'V_JC.dup2'" in n for n in reader.notes)
     assert any("2 CSV line(s) with a wrong number of fields kept as flagged rows" in n for n in reader.notes)
 
 

@@ -73,7 +73,7 @@ def test_blank_values_give_their_reason_and_plurals_agree():
 
 
 def test_star_text_rounds_and_explains_blank_radius(capsys):
-    code = main(["star", "--mag", "jc.B=10.65,0.01", "--mag", "jc.V=10.00,0.01", "--ebv", "0.05",
+    code = main(["star", "--mag", "B_JC=10.65,0.01", "--mag", "V_JC=10.00,0.01", "--ebv", "0.05",
                  "--ebv-err", "0.02", "--parallax", "5", "--parallax-err", "2"])
     out = capsys.readouterr().out
     assert code == 0
@@ -141,3 +141,15 @@ def test_python_dash_m_stelltemp_runs_the_command():
     done = subprocess.run([sys.executable, "-m", "stelltemp", "--version"], capture_output=True, text=True,
                           cwd=PACKAGE.parent)
     assert done.returncode == 0 and done.stdout.startswith("stelltemp ")
+
+
+def test_old_passband_keys_on_the_command_line_give_a_note(capsys):
+    assert main(["star", "--mag", "jc.B=10.65,0.01", "--mag", "V=10.00,0.01", "--json"]) == 0
+    err = capsys.readouterr().err.strip().splitlines()
+    assert err == ["stelltemp: note: passband key 'jc.B' is now 'B_JC' (the old key goes in the next release)"]
+
+
+def test_an_ambiguous_band_is_one_error_line_with_the_choices(capsys):
+    assert main(["colourgrid", "g", "r"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "ambiguous" in err[0] and "g_SDSS" in err[0] and "g_PS1" in err[0]

@@ -67,7 +67,7 @@ def test_relations_reported_with_detail(stars):
 def test_same_relation_twice_keeps_its_scatter():
     """A relation entered twice (two copies of the same colour) is not averaged down."""
     m = np.array([[10.64, 10.0, 8.5, 8.5]])
-    keys = ["jc.B", "jc.V", "2mass.Ks", "2mass.Ks"]
+    keys = ["B_JC", "V_JC", "Ks_2MASS", "Ks_2MASS"]
     one = calibrated_teff(m[:, :3], np.full((1, 3), 1e-4), keys[:3], np.array([5800.0]),
                           np.zeros(1), np.zeros(1))
     assert one.n_used[0] == 2
@@ -76,7 +76,7 @@ def test_same_relation_twice_keeps_its_scatter():
 
 
 def test_colours_that_disagree_are_flagged():
-    m = {"jc.B": [10.64, 10.64], "jc.V": [10.0, 10.0], "jc.Ic": [9.30, 9.30], "2mass.Ks": [8.5, 7.9]}
+    m = {"B_JC": [10.64, 10.64], "V_JC": [10.0, 10.0], "Ic_JC": [9.30, 9.30], "Ks_2MASS": [8.5, 7.9]}
     res = estimate(m, {k: [0.01, 0.01] for k in m}, feh=0.0, logg=4.4)
     assert not res["flags"][0] & fl.COLOURS_DISAGREE
     assert res["flags"][1] & fl.COLOURS_DISAGREE
@@ -108,11 +108,11 @@ def test_flags_have_severities_and_rules():
 
 
 def test_assumptions_are_recorded():
-    m = {"jc.B": [10.64, 10.64], "jc.V": [10.0, 10.0], "2mass.Ks": [8.5, 8.5]}
-    errs = {"jc.B": [0.02, np.nan], "jc.V": [0.02, 0.02], "2mass.Ks": [0.02, 0.02]}
+    m = {"B_JC": [10.64, 10.64], "V_JC": [10.0, 10.0], "Ks_2MASS": [8.5, 8.5]}
+    errs = {"B_JC": [0.02, np.nan], "V_JC": [0.02, 0.02], "Ks_2MASS": [0.02, 0.02]}
     res = estimate(m, errs, parallax=[10.0, 10.0])
     notes = list(res["assumed"])
-    assert "jc.B error 0.03 mag assumed" in notes[1] and "jc.B error" not in notes[0]
+    assert "B_JC error 0.03 mag assumed" in notes[1] and "B_JC error" not in notes[0]
     for text in ("E(B-V) = 0 assumed", "[Fe/H] = 0 assumed", "dwarf relations assumed",
                  "parallax error unknown"):
         assert all(text in n for n in notes)
@@ -123,8 +123,8 @@ def test_assumptions_are_recorded():
 
 
 def test_negative_error_drops_the_band():
-    m = {"jc.B": [10.64], "jc.V": [10.0], "2mass.Ks": [8.5]}
-    res = estimate(m, {"jc.B": [-0.02], "jc.V": [0.02], "2mass.Ks": [0.02]}, feh=0.0, logg=4.4)
+    m = {"B_JC": [10.64], "V_JC": [10.0], "Ks_2MASS": [8.5]}
+    res = estimate(m, {"B_JC": [-0.02], "V_JC": [0.02], "Ks_2MASS": [0.02]}, feh=0.0, logg=4.4)
     assert res["flags"][0] & fl.ABSURD_VALUE
     assert res["n_bands"][0] == 2
     assert res["cal_used"][0] == "c10_vk"

@@ -27,7 +27,7 @@ from stelltemp.engine import estimate
 N_STARS = 2000
 EBV_ERR = 0.05
 FEH_ERR = 0.1
-BANDS = ("jc.B", "jc.V", "jc.Ic", "2mass.H", "2mass.Ks", "gaia3.BP", "gaia3.RP")
+BANDS = ("B_JC", "V_JC", "Ic_JC", "H_2MASS", "Ks_2MASS", "BP_GDR3", "RP_GDR3")
 #: independent colours of BANDS, each defining one band from another
 RELATIONS = ("c10_bv", "c10_vi", "c10_vh", "c10_vk", "mbm21_bprp_dwarf")
 
@@ -74,9 +74,9 @@ def simulate_calibrated(seed):
         rel = get_relation(key)
         colour[key] = _inverse_relation(rel, teff + rel.scatter * rng.standard_normal(N_STARS), feh)
     bp = v + rng.uniform(-0.1, 0.1, N_STARS)
-    intrinsic = {"jc.B": v + colour["c10_bv"], "jc.V": v, "jc.Ic": v - colour["c10_vi"],
-                 "2mass.H": v - colour["c10_vh"], "2mass.Ks": v - colour["c10_vk"],
-                 "gaia3.BP": bp, "gaia3.RP": bp - colour["mbm21_bprp_dwarf"]}
+    intrinsic = {"B_JC": v + colour["c10_bv"], "V_JC": v, "Ic_JC": v - colour["c10_vi"],
+                 "H_2MASS": v - colour["c10_vh"], "Ks_2MASS": v - colour["c10_vk"],
+                 "BP_GDR3": bp, "RP_GDR3": bp - colour["mbm21_bprp_dwarf"]}
     obs, errs, ebv_given = _observe(rng, _redden(intrinsic, teff, ebv), ebv)
     feh_obs = feh + FEH_ERR * rng.standard_normal(N_STARS)
     simulate_calibrated.truth = {"ebv": ebv, "feh": feh}
@@ -95,7 +95,7 @@ def simulate_blackbodies(seed):
     ebv = rng.uniform(0.0, 1.0, N_STARS)
     lnt = np.log(t)
     mags = {k: bg.band_table(k).evaluate(lnt, ebv, want_de=False)[0] for k in BANDS}
-    offset = rng.uniform(8.0, 12.0, N_STARS) - mags["jc.V"]  # V from 8 to 12 mag
+    offset = rng.uniform(8.0, 12.0, N_STARS) - mags["V_JC"]  # V from 8 to 12 mag
     mags = {k: v + offset for k, v in mags.items()}
     obs, errs, ebv_given = _observe(rng, mags, ebv)
     return t, obs, errs, ebv_given

@@ -15,7 +15,7 @@ from stelltemp.errors import StelltempError
 from stelltemp.photometry import synthetic_mag
 from stelltemp.reference import sun_spectrum, vega_spectrum
 
-FIVE = ["jc.B", "jc.V", "jc.Ic", "2mass.J", "2mass.Ks"]
+FIVE = ["B_JC", "V_JC", "Ic_JC", "J_2MASS", "Ks_2MASS"]
 
 
 def synth(keys, t, ebv, theta_mas=1.0):
@@ -30,7 +30,7 @@ def test_colour_round_trip_random_temperatures_and_reddenings():
     rng = np.random.default_rng(11)
     t = np.exp(rng.uniform(np.log(2500), np.log(40000), 20000))
     e = rng.uniform(0, 3, t.size)
-    for blue, red in [("jc.B", "jc.V"), ("jc.V", "2mass.Ks"), ("gaia3.BP", "gaia3.RP"), ("sdss.g", "sdss.i")]:
+    for blue, red in [("B_JC", "V_JC"), ("V_JC", "Ks_2MASS"), ("BP_GDR3", "RP_GDR3"), ("g_SDSS", "i_SDSS")]:
         c = bg.colour_table(blue, red).evaluate(np.log(t), e, want_de=False)[0]
         t_back, slope, flags = invert_colour(c, blue, red, e)
         assert np.all(flags == 0)
@@ -42,7 +42,7 @@ def _raw_curve(key):
     """Raw speclite curve read independently of stelltemp's loader."""
     from importlib import resources
 
-    name = {"jc.B": "bessell-B", "jc.V": "bessell-V", "2mass.Ks": "twomass-Ks"}[key]
+    name = {"B_JC": "bessell-B", "V_JC": "bessell-V", "Ks_2MASS": "twomass-Ks"}[key]
     with resources.as_file(resources.files("speclite") / "data" / "filters" / f"{name}.ecsv") as p:
         tab = Table.read(p, format="ascii.ecsv")
     return np.asarray(tab["wavelength"], float), np.asarray(tab["response"], float)
@@ -63,7 +63,7 @@ def _brute_force_colour(t, ebv, blue, red, energy):
         flam = BlackBody(t * u.K, scale=1.0 * u.erg / (u.s * u.cm**2 * u.AA * u.sr))(grid * u.AA).value
         flam = flam * 10 ** (-0.4 * 3.1 * ebv * G23(Rv=3.1)(grid * u.AA))
         vega = np.interp(grid, vw, vf)
-        vega_mag = {"jc.B": 0.03, "jc.V": 0.03, "2mass.Ks": -0.017}[key]
+        vega_mag = {"B_JC": 0.03, "V_JC": 0.03, "Ks_2MASS": -0.017}[key]
         mags.append(-2.5 * np.log10(np.trapezoid(flam * kernel, grid) / np.trapezoid(vega * kernel, grid))
                     + vega_mag)
     return mags[0] - mags[1]
@@ -72,7 +72,7 @@ def _brute_force_colour(t, ebv, blue, red, energy):
 @pytest.mark.parametrize("t_true,ebv", [(3500.0, 0.0), (5800.0, 0.4), (12000.0, 1.0), (30000.0, 0.2)])
 def test_colour_temperature_matches_brute_force_solve(t_true, ebv):
     # Independent check: astropy BlackBody + plain integration + scipy root finding.
-    cases = [("jc.B", "jc.V", (True, True)), ("jc.V", "2mass.Ks", (True, False))]
+    cases = [("B_JC", "V_JC", (True, True)), ("V_JC", "Ks_2MASS", (True, False))]
     for blue, red, energy in cases:
         observed = _brute_force_colour(t_true, ebv, blue, red, energy)
         t_ref = brentq(lambda t: _brute_force_colour(t, ebv, blue, red, energy) - observed, 1500, 60000,
@@ -83,11 +83,11 @@ def test_colour_temperature_matches_brute_force_solve(t_true, ebv):
 
 
 def test_too_blue_colour_has_no_solution_and_near_limit_is_a_lower_limit():
-    rj = float(rayleigh_jeans_colour("jc.B", "jc.V"))
-    t, _, flags = invert_colour([rj - 0.05, rj + 0.001], "jc.B", "jc.V")
+    rj = float(rayleigh_jeans_colour("B_JC", "V_JC"))
+    t, _, flags = invert_colour([rj - 0.05, rj + 0.001], "B_JC", "V_JC")
     assert np.isnan(t[0]) and flags[0] & fl.NO_SOLUTION
     assert flags[1] & fl.AT_GRID_EDGE  # hotter than the 100,000 K grid: only a lower limit
-    res = colour_interval([rj + 0.02], [0.03], "jc.B", "jc.V")
+    res = colour_interval([rj + 0.02], [0.03], "B_JC", "V_JC")
     assert np.isinf(res["t_hi"][0]) and res["flags"][0] & fl.RJ_LIMIT
     assert res["t_lo"][0] > 15000
 
@@ -95,7 +95,7 @@ def test_too_blue_colour_has_no_solution_and_near_limit_is_a_lower_limit():
 def test_interval_is_asymmetric_and_more_so_towards_the_flat_hot_end():
     ratios = []
     for c in (0.5, 0.0, -0.2):
-        res = colour_interval([c], [0.02], "jc.B", "jc.V")
+        res = colour_interval([c], [0.02], "B_JC", "V_JC")
         ratios.append((res["t_hi"][0] - res["t"][0]) / (res["t"][0] - res["t_lo"][0]))
     assert ratios[0] > 1.0  # the hot side of the interval is always the longer one
     assert ratios[0] < ratios[1] < ratios[2]
@@ -107,7 +107,7 @@ def _colour_coverage(seed, n=2000):
     rng = np.random.default_rng(seed)
     t = np.exp(rng.uniform(np.log(3000), np.log(20000), n))
     e_true = rng.uniform(0, 0.8, n)
-    mags = synth(["jc.B", "jc.V"], t, e_true)
+    mags = synth(["B_JC", "V_JC"], t, e_true)
     noisy = {k: v + rng.normal(0, 0.02, n) for k, v in mags.items()}
     e_obs = e_true + rng.normal(0, 0.03, n)
     res = estimate(noisy, {k: np.full(n, 0.02) for k in noisy}, ebv=e_obs, ebv_err=0.03)
@@ -143,7 +143,7 @@ def test_multiband_fit_intervals_cover_the_truth_and_chi2_is_honest():
 
 def test_monte_carlo_agrees_with_analytic_interval():
     rng = np.random.default_rng(3)
-    mags = synth(["jc.B", "jc.V"], [6000.0], [0.2])
+    mags = synth(["B_JC", "V_JC"], [6000.0], [0.2])
     errs = {k: [0.01] for k in mags}
     a = estimate(mags, errs, ebv=0.2, ebv_err=0.02)
     m = estimate(mags, errs, ebv=0.2, ebv_err=0.02, monte_carlo=4000, seed=int(rng.integers(1 << 30)))
@@ -153,7 +153,7 @@ def test_monte_carlo_agrees_with_analytic_interval():
 
 
 def test_reddening_error_dominates_flag():
-    mags = synth(["jc.B", "jc.V"], [8000.0], [0.5])
+    mags = synth(["B_JC", "V_JC"], [8000.0], [0.5])
     res = estimate(mags, {k: [0.005] for k in mags}, ebv=0.5, ebv_err=0.1)
     assert res["flags"][0] & fl.REDDENING_DOMINATES
     res = estimate(mags, {k: [0.05] for k in mags}, ebv=0.5, ebv_err=0.001)
@@ -177,7 +177,7 @@ def test_fit_recovers_temperature_diameter_and_reddening_without_noise():
 
 def test_fit_flags_a_poor_fit():
     mags = synth(FIVE, [6000.0], [0.0])
-    mags["jc.Ic"] = mags["jc.Ic"] + 0.5  # one band far off
+    mags["Ic_JC"] = mags["Ic_JC"] + 0.5  # one band far off
     res = estimate(mags, {k: [0.01] for k in FIVE})
     assert res["flags"][0] & fl.POOR_FIT
     assert res["p_value"][0] < 1e-3
@@ -185,15 +185,15 @@ def test_fit_flags_a_poor_fit():
 
 def test_fit_ebv_needs_three_bands():
     with pytest.raises(StelltempError, match="three bands"):
-        estimate(synth(["jc.B", "jc.V"], [6000.0], [0.0]), fit_ebv=True)
+        estimate(synth(["B_JC", "V_JC"], [6000.0], [0.0]), fit_ebv=True)
 
 
 # ------------------------------------------------------------- bad input
 def test_bad_rows_are_flagged_and_the_rest_go_on():
     mags = synth(FIVE, np.full(6, 6000.0), np.zeros(6))
-    mags["jc.B"][0] = np.nan
-    mags["jc.V"][1] = np.inf
-    mags["2mass.J"][2] = 99.0
+    mags["B_JC"][0] = np.nan
+    mags["V_JC"][1] = np.inf
+    mags["J_2MASS"][2] = 99.0
     for k in FIVE:
         mags[k][3] = np.nan
     res = estimate(mags, ebv=[0, 0, 0, 0, 9.0, 0])
@@ -211,19 +211,19 @@ def test_bad_rows_are_flagged_and_the_rest_go_on():
 ])
 def test_bad_arguments_raise_one_clear_error(kwargs, message):
     with pytest.raises(StelltempError, match=message):
-        estimate({"jc.B": [1.0], "jc.V": [0.5]}, **kwargs)
+        estimate({"B_JC": [1.0], "V_JC": [0.5]}, **kwargs)
 
 
 def test_unknown_passband_is_named():
     with pytest.raises(StelltempError, match="jc.Q"):
-        estimate({"jc.B": [1.0], "jc.Q": [0.5]})
+        estimate({"B_JC": [1.0], "jc.Q": [0.5]})
 
 
 # --------------------------------------------------- the Sun, outside checks
 def _sun_at_10pc():
     w, f = sun_spectrum()
     scale = (1 / (10 * 206264.806)) ** 2  # 1 AU -> 10 pc
-    keys = ["jc.B", "jc.V", "jc.Rc", "jc.Ic", "2mass.J", "2mass.H", "2mass.Ks", "gaia3.BP", "gaia3.RP"]
+    keys = ["B_JC", "V_JC", "Rc_JC", "Ic_JC", "J_2MASS", "H_2MASS", "Ks_2MASS", "BP_GDR3", "RP_GDR3"]
     return {k: np.array([synthetic_mag(w, f * scale, k)]) for k in keys}
 
 
@@ -265,11 +265,11 @@ def test_derived_quantities_follow_the_laws():
 
 
 def test_blackbody_note_is_in_the_output():
-    res = estimate({"jc.B": [1.0], "jc.V": [0.5]})
+    res = estimate({"B_JC": [1.0], "V_JC": [0.5]})
     assert "not an effective temperature" in res.meta["note"]
 
 
-@pytest.mark.parametrize("keys", [["jc.B", "jc.V"], FIVE])
+@pytest.mark.parametrize("keys", [["B_JC", "V_JC"], FIVE])
 def test_empty_input_gives_an_empty_table(keys):
     res = estimate({k: np.array([]) for k in keys})
     assert len(res) == 0 and "t_bb" in res.colnames
@@ -290,15 +290,15 @@ def test_astropy_tables_go_through_the_catalogue_layer():
 
     from stelltemp.catalog import estimate_table
 
-    mags = synth(["jc.B", "jc.V", "2mass.Ks"], [4500.0, 9000.0], [0.1, 0.1])
+    mags = synth(["B_JC", "V_JC", "Ks_2MASS"], [4500.0, 9000.0], [0.1, 0.1])
     table = Table({**{k: v for k, v in mags.items()}, "ebv": [0.1, 0.1]})
     out = estimate_table(table)
     assert np.allclose(out["t_bb"], [4500.0, 9000.0], rtol=1e-6)
-    assert "jc.B" in out.colnames  # input columns kept
+    assert "B_JC" in out.colnames  # input columns kept
 
 
 def test_av_is_converted_with_rv():
-    mags = synth(["jc.B", "jc.V"], [7000.0], [0.4])
+    mags = synth(["B_JC", "V_JC"], [7000.0], [0.4])
     by_ebv = estimate(mags, ebv=0.4, ebv_err=0.02, rv=3.1)
     by_av = estimate(mags, av=1.24, av_err=0.062, rv=3.1)
     assert by_av["t_bb"][0].value == pytest.approx(by_ebv["t_bb"][0].value, rel=1e-10)
@@ -317,7 +317,7 @@ def test_a_user_passband_file_works_like_a_built_in(tmp_path):
     from stelltemp.planck import planck_lambda_cgs
 
     flam = planck_lambda_cgs(6500.0, lam) * 1e-20
-    mags = {k: [float(synthetic_mag(lam, flam, k))] for k in ("jc.B", user, "2mass.Ks")}
+    mags = {k: [float(synthetic_mag(lam, flam, k))] for k in ("B_JC", user, "Ks_2MASS")}
     res = estimate(mags, {k: [0.01] for k in mags})
     assert res["t_bb"][0].value == pytest.approx(6500.0, rel=1e-4)
     assert "file:demo_filter" in res.meta["passbands"]

@@ -33,14 +33,14 @@ binning = 2
 
 [[filter]]
 name = "V"
-passband = "jc.V"
+passband = "V_JC"
 peak_transmission = 0.9
 sky_mag_arcsec2 = 21.0
 extinction_mag_per_airmass = 0.18
 
 [[filter]]
 name = "I"
-passband = "jc.Ic"
+passband = "Ic_JC"
 sky_mag_arcsec2 = 19.3
 extinction_mag_per_airmass = 0.08
 
@@ -80,7 +80,7 @@ def test_good_text_values():
     assert ins.camera.binned_dark_e_per_s == pytest.approx(0.08)
     assert ins.filters["I"].peak_transmission == 1.0
     assert ins.site.longitude_deg == pytest.approx(-3.2)  # 0–360 folded to ±180
-    assert ins.filter("V").passband.key == "jc.V"
+    assert ins.filter("V").passband.key == "V_JC"
     with pytest.raises(StelltempError, match="no filter 'R'"):
         ins.filter("R")
 
@@ -95,7 +95,7 @@ def test_good_text_values():
         ("gain_e_per_adu = 1.4", "gain_e_per_adu = 0", r"gain_e_per_adu", "gain_e_per_adu"),
         ("bias_adu = 1000", "saturation_adu = 70000", r"exceeds a 16-bit ADC", "saturation_adu"),
         ("binning = 2", "binning = 1.5", r"whole number", "binning"),
-        ('passband = "jc.V"', 'passband = "jc.Vx"', r"filter 'V'", 'passband = "jc.Vx"'),
+        ('passband = "V_JC"', 'passband = "jc.Vx"', r"filter 'V'", 'passband = "jc.Vx"'),
         ("sky_mag_arcsec2 = 19.3", "sky_mag_arcsec2 = 99", r"sky_mag_arcsec2", "sky_mag_arcsec2 = 99"),
         ("latitude_deg = 37.5", "latitude_deg = 137.5", r"latitude_deg", "latitude_deg"),
         ("mirror_reflectivity = 0.9", 'mirror_reflectivity = "high"', r"must be a number", "mirror_reflectivity"),
@@ -123,7 +123,7 @@ def test_missing_and_structural_errors():
     with pytest.raises(StelltempError, match="duplicate filter name 'V'"):
         parse_instrument(GOOD.replace('name = "I"', 'name = "V"'))
     with pytest.raises(StelltempError, match="exactly one of 'passband'"):
-        parse_instrument(GOOD.replace('passband = "jc.Ic"', 'passband = "jc.Ic"\ncurve = "x.ecsv"'))
+        parse_instrument(GOOD.replace('passband = "Ic_JC"', 'passband = "Ic_JC"\ncurve = "x.ecsv"'))
     with pytest.raises(StelltempError, match="cannot read instrument file"):
         load_instrument("/nonexistent/dir/rig.toml")
 

@@ -36,7 +36,7 @@ full_well_e = 1e6
 pixel_scale_arcsec = 1.0
 """ + _SITE
     for b in bands:
-        text += (f'[[filter]]\nname = "{b}"\npassband = "jc.{b}"\ncurve_kind = "{kind}"\n{extra}\n'
+        text += (f'[[filter]]\nname = "{b}"\npassband = "{b}_JC"\ncurve_kind = "{kind}"\n{extra}\n'
                  'sky_mag_arcsec2 = 21\nextinction_mag_per_airmass = 0\n')
     return parse_instrument(text)
 
@@ -78,31 +78,31 @@ def test_flat_qe_camera_and_system_curve_give_the_zero_point_prediction(independ
     the zero point × 10^(−0.4 m) for any spectrum anchored to the same band (independent integration)."""
     rig = _rig(camera_qe="0.8")
     for b in ("V", "Ic"):
-        key = f"jc.{b}"
+        key = f"{b}_JC"
         grid = independent.fine_grid(key)
         vw, vf = independent.raw_vega()
         s = independent.photon_response(key, grid)
         zp = np.trapezoid(np.interp(grid, vw, vf) * grid * s, grid) / (independent.H_CGS * independent.C_CGS * 1e8)
         zp *= 10 ** (0.4 * 0.03)  # Vega's adopted magnitude 0.03 (BCP98) -> a zero-magnitude star
         for teff in (3500.0, 9500.0, 30000.0):
-            r = anchor.anchored_rates(rig, {key: 12.0, "jc.B": 13.0}, teff=teff, filters=[b])[b]
+            r = anchor.anchored_rates(rig, {key: 12.0, "B_JC": 13.0}, teff=teff, filters=[b])[b]
             assert r.source == "measured" and r.bands == (key,)
             assert r.rate == pytest.approx(zp * 10 ** (-0.4 * 12.0), rel=2e-3)
             assert r.colour_term == pytest.approx(0.0, abs=1e-5)  # integration grids differ at 1e-6 mag
 
 
 def test_qe_enters_once_bare_filter_and_reference_detector():
-    flat = anchor.anchored_rates(_rig("1.0"), {"jc.V": 12.0}, teff=5000.0)["V"].rate
+    flat = anchor.anchored_rates(_rig("1.0"), {"V_JC": 12.0}, teff=5000.0)["V"].rate
     # a bare filter curve: the camera QE multiplies it
-    assert anchor.anchored_rates(_rig("0.5", kind="filter"), {"jc.V": 12.0}, teff=5000.0)["V"].rate == \
+    assert anchor.anchored_rates(_rig("0.5", kind="filter"), {"V_JC": 12.0}, teff=5000.0)["V"].rate == \
         pytest.approx(0.5 * flat, rel=1e-9)
     # a system curve with the standard detector's QE: only the ratio camera / reference enters
     ratio = _rig("0.6", extra="reference_qe = 0.3")
-    assert anchor.anchored_rates(ratio, {"jc.V": 12.0}, teff=5000.0)["V"].rate == pytest.approx(2 * flat, rel=1e-9)
+    assert anchor.anchored_rates(ratio, {"V_JC": 12.0}, teff=5000.0)["V"].rate == pytest.approx(2 * flat, rel=1e-9)
     # a sloped camera QE through a system curve with a flat reference: a small, star-dependent colour term
     sloped = _rig("{ wavelength_A = [3000, 11000], value = [0.3, 0.9] }", extra="reference_qe = 0.6")
-    cool = anchor.anchored_rates(sloped, {"jc.V": 12.0}, teff=3500.0)["V"].colour_term
-    hot = anchor.anchored_rates(sloped, {"jc.V": 12.0}, teff=30000.0)["V"].colour_term
+    cool = anchor.anchored_rates(sloped, {"V_JC": 12.0}, teff=3500.0)["V"].colour_term
+    hot = anchor.anchored_rates(sloped, {"V_JC": 12.0}, teff=30000.0)["V"].colour_term
     assert cool < hot and abs(cool - hot) < 0.05
 
 
@@ -121,7 +121,7 @@ full_well_e = 1e5
 pixel_scale_arcsec = 1.0
 [[filter]]
 name = "V"
-passband = "jc.V"
+passband = "V_JC"
 curve_kind = "{{kind}}"
 {{extra}}
 sky_mag_arcsec2 = 21
@@ -145,27 +145,27 @@ extinction_mag_per_airmass = 0.2
 def test_cool_and_hot_star_at_same_v_follow_their_measured_v_minus_i(ccd):
     """Measured B, V, R, I of a cool and a hot star at V = 12: the planned I-band rate ratio follows their
     measured V−I within 2 % (invented magnitudes, colours typical of K5 and B5 stars, common practice)."""
-    cool = {"jc.B": 13.15, "jc.V": 12.0, "jc.Rc": 11.35, "jc.Ic": 10.78}
-    hot = {"jc.B": 11.84, "jc.V": 12.0, "jc.Rc": 12.08, "jc.Ic": 12.17}
+    cool = {"B_JC": 13.15, "V_JC": 12.0, "Rc_JC": 11.35, "Ic_JC": 10.78}
+    hot = {"B_JC": 11.84, "V_JC": 12.0, "Rc_JC": 12.08, "Ic_JC": 12.17}
     pc = plan.plan_target(ccd, photometry=cool, snr=50.0, airmass=1.2)
     ph = plan.plan_target(ccd, photometry=hot, snr=50.0, airmass=1.2)
     i_c, i_h = pc[pc["filter"] == "I"][0], ph[ph["filter"] == "I"][0]
     assert i_c["rate_source"] == i_h["rate_source"] == "measured"
-    expected = 10 ** (0.4 * ((cool["jc.V"] - cool["jc.Ic"]) - (hot["jc.V"] - hot["jc.Ic"])))
+    expected = 10 ** (0.4 * ((cool["V_JC"] - cool["Ic_JC"]) - (hot["V_JC"] - hot["Ic_JC"])))
     assert i_c["star_rate"] / i_h["star_rate"] == pytest.approx(expected, rel=0.02)
     assert i_c["spectrum"] == "engine" and i_c["teff"] < 5000 < 10000 < i_h["teff"]
 
 
 def test_reddening_is_used_never_dropped(ccd):
     # a V-only star with a given temperature: E(B-V) reddens the spectrum, so the unmeasured B is fainter
-    plain = plan.plan_target(ccd, photometry={"jc.V": 12.0}, teff=6000.0, snr=50.0)
-    red = plan.plan_target(ccd, photometry={"jc.V": 12.0}, teff=6000.0, ebv=0.3, snr=50.0)
+    plain = plan.plan_target(ccd, photometry={"V_JC": 12.0}, teff=6000.0, snr=50.0)
+    red = plan.plan_target(ccd, photometry={"V_JC": 12.0}, teff=6000.0, ebv=0.3, snr=50.0)
     b0, b3 = plain[plain["filter"] == "B"][0], red[red["filter"] == "B"][0]
     assert b3["rate_source"] == "extrapolated" and b3["ebv"] == 0.3
     assert b3["star_rate"] / b0["star_rate"] == pytest.approx(10 ** (-0.4 * 0.3), rel=0.08)  # ~E(B-V) in B-V
     # the template fallback is reddened too (it used to ignore E(B-V))
-    t0 = anchor.anchored_rates(ccd, {"jc.V": 12.0})["B"]
-    t3 = anchor.anchored_rates(ccd, {"jc.V": 12.0}, ebv=0.3)["B"]
+    t0 = anchor.anchored_rates(ccd, {"V_JC": 12.0})["B"]
+    t3 = anchor.anchored_rates(ccd, {"V_JC": 12.0}, ebv=0.3)["B"]
     assert t0.source == t3.source == "template" and t3.rate < 0.8 * t0.rate
     assert "template" in t3.note and "0.300" in t3.note
 
@@ -176,12 +176,12 @@ def test_interpolation_between_measured_bands_recovers_the_spectrum(ccd):
     from stelltemp.observing.counts import scaled_blackbody
     from stelltemp.photometry import synthetic_mag
 
-    flam = scaled_blackbody(5000.0, 12.0, "jc.V", 0.2)
+    flam = scaled_blackbody(5000.0, 12.0, "V_JC", 0.2)
     w = np.linspace(3000, 11000, 4001)
-    mags = {k: float(synthetic_mag(w, flam(w), k)) for k in ("jc.V", "jc.Ic", "jc.Rc")}
-    r = anchor.anchored_rates(ccd, {"jc.V": mags["jc.V"], "jc.Ic": mags["jc.Ic"]}, teff=5000.0, ebv=0.2)
-    direct = anchor.anchored_rates(ccd, {"jc.Rc": mags["jc.Rc"]}, teff=5000.0, ebv=0.2)["R"]
-    assert r["R"].source == "interpolated" and r["R"].bands == ("jc.V", "jc.Ic")
+    mags = {k: float(synthetic_mag(w, flam(w), k)) for k in ("V_JC", "Ic_JC", "Rc_JC")}
+    r = anchor.anchored_rates(ccd, {"V_JC": mags["V_JC"], "Ic_JC": mags["Ic_JC"]}, teff=5000.0, ebv=0.2)
+    direct = anchor.anchored_rates(ccd, {"Rc_JC": mags["Rc_JC"]}, teff=5000.0, ebv=0.2)["R"]
+    assert r["R"].source == "interpolated" and r["R"].bands == ("V_JC", "Ic_JC")
     assert r["R"].rate == pytest.approx(direct.rate, rel=0.01)
 
 
@@ -189,10 +189,10 @@ def test_target_list_rows_say_where_each_rate_came_from(ccd):
     t = Table(rows=[("Invented-A", "03:00:00", "+30:00:00", 12.0, 12.9, 11.0, "", 0.1),
                     ("Invented-B", "03:10:00", "+30:00:00", 12.0, np.nan, np.nan, "", 0.0),
                     ("Invented-C", "03:20:00", "+30:00:00", 12.0, 99.999, 11.5, "", 0.0)],
-              names=["name", "ra", "dec", "jc.V", "jc.B", "jc.Ic", "teff", "ebv"])
+              names=["name", "ra", "dec", "V_JC", "B_JC", "Ic_JC", "teff", "ebv"])
     rows = plan.parse_targets(t)
-    assert rows[0]["photometry"].keys() == {"jc.V", "jc.B", "jc.Ic"}
-    assert "placeholder" in rows[2]["notes"][0] and "jc.B" not in rows[2]["photometry"]
+    assert rows[0]["photometry"].keys() == {"V_JC", "B_JC", "Ic_JC"}
+    assert "placeholder" in rows[2]["notes"][0] and "B_JC" not in rows[2]["photometry"]
     p = plan.plan_night(ccd, rows, "2026-11-08", snr=50.0, moon=False)
     src = {(r["target"], r["filter"]): (r["rate_source"], r["spectrum"]) for r in p}
     assert src[("Invented-A", "B")] == ("measured", "engine") and src[("Invented-A", "R")][0] == "interpolated"
@@ -246,7 +246,7 @@ def test_full_moon_lengthens_a_faint_star_exposure(ccd):
 
 
 def test_night_plan_near_full_moon_and_no_moon(ccd):
-    t = Table(rows=[("Invented-M", "08:00:00", "+20:00:00", 17.5, "jc.V", 5000.0)],
+    t = Table(rows=[("Invented-M", "08:00:00", "+20:00:00", 17.5, "V_JC", 5000.0)],
               names=["name", "ra", "dec", "mag", "band", "teff"])
     lit = plan.plan_night(ccd, t, "2026-11-24", snr=30.0)
     dark = plan.plan_night(ccd, t, "2026-11-24", snr=30.0, moon=False)
@@ -256,8 +256,8 @@ def test_night_plan_near_full_moon_and_no_moon(ccd):
 
 # ---------------------------------------------------------------- the plan reads as a plan
 def test_windows_follow_twilight_and_summary_has_one_row_per_target(ccd):
-    t = Table(rows=[("Invented-N", "23:00:00", "+60:00:00", 11.0, "jc.V"), ("Invented-S", "03:00:00", "+10:00:00",
-                                                                           12.0, "jc.V")],
+    t = Table(rows=[("Invented-N", "23:00:00", "+60:00:00", 11.0, "V_JC"), ("Invented-S", "03:00:00", "+10:00:00",
+                                                                           12.0, "V_JC")],
               names=["name", "ra", "dec", "mag", "band"])
     p = plan.plan_night(ccd, t, "2026-11-08", snr=50.0, moon=False, step_min=20.0)
     n = p[p["target"] == "Invented-N"][0]
@@ -270,7 +270,7 @@ def test_windows_follow_twilight_and_summary_has_one_row_per_target(ccd):
 
 
 def test_twilight_windows_are_flagged(ccd):
-    t = Table(rows=[("Invented-W", "15:00:00", "0", 9.0, "jc.V")], names=["name", "ra", "dec", "mag", "band"])
+    t = Table(rows=[("Invented-W", "15:00:00", "0", 9.0, "V_JC")], names=["name", "ra", "dec", "mag", "band"])
     p = plan.plan_night(ccd, t, "2026-11-08", snr=50.0, sun_limit="civil", min_alt_deg=5.0, moon=False)
     assert "twilight" in p["flags"][0]
 
@@ -279,7 +279,7 @@ def test_plan_target_needs_the_band_of_its_magnitude(ccd):
     with pytest.raises(StelltempError, match="passband of the magnitude"):
         plan.plan_target(ccd, 12.0, snr=10)
     with pytest.raises(StelltempError, match="not both"):
-        plan.plan_target(ccd, 12.0, "V", photometry={"jc.V": 12.0}, snr=10)
+        plan.plan_target(ccd, 12.0, "V", photometry={"V_JC": 12.0}, snr=10)
 
 
 # ---------------------------------------------------------------- command line
@@ -300,7 +300,7 @@ def _cli(*argv):
 def test_cli_exposure_needs_bands_and_takes_several():
     code, _, err, _ = _cli("exposure", "--instrument", str(CCD_FILE), "--mag", "12", "--snr", "50")
     assert code == 2 and "--mag BAND=MAG" in err and "Traceback" not in err
-    code, _, _, doc = _cli("exposure", "--instrument", str(CCD_FILE), "--mag", "V=12.0,0.02", "--mag", "jc.Ic=10.9",
+    code, _, _, doc = _cli("exposure", "--instrument", str(CCD_FILE), "--mag", "V=12.0,0.02", "--mag", "Ic_JC=10.9",
                            "--snr", "50", "--json")
     assert code == 0
     src = {r["filter"]: r["rate_source"] for r in doc["rows"]}
@@ -322,7 +322,7 @@ def test_cli_exposure_moon_at_a_time_and_no_moon():
 
 def test_cli_nightplan_prints_a_summary_then_the_filters(tmp_path):
     p = tmp_path / "t.csv"
-    p.write_text("name,ra,dec,jc.B,jc.V,jc.Ic,ebv\nInvented-1,03:00:00,+20:00:00,12.9,12.0,11.0,0.1\n"
+    p.write_text("name,ra,dec,B_JC,V_JC,Ic_JC,ebv\nInvented-1,03:00:00,+20:00:00,12.9,12.0,11.0,0.1\n"
                  "Invented-2,05:00:00,+10:00:00,,13.0,,\n")
     code, out, _, _ = _cli("nightplan", str(p), "--date", "2026-11-08", "--instrument", str(CCD_FILE), "--snr", "50")
     assert code == 0

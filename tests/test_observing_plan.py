@@ -71,7 +71,7 @@ def test_plan_target_given_time_and_saturation(rig):
 
 
 def test_parse_targets_flags_bad_rows():
-    t = Table(rows=[("A", "05:30:00", "+20:00:00", "9.0", "V", ""), ("B", "150.5", "-10", "12", "jc.V", "4500"),
+    t = Table(rows=[("A", "05:30:00", "+20:00:00", "9.0", "V", ""), ("B", "150.5", "-10", "12", "V_JC", "4500"),
                     ("C", "xx", "5", "3", "V", ""), ("D", "10", "95", "3", "V", ""), ("E", "10", "5", "x", "V", "")],
               names=["name", "ra", "dec", "mag", "band", "teff"])
     rows = plan.parse_targets(t)
@@ -87,7 +87,7 @@ def target_file(tmp_path_factory):
     p = tmp_path_factory.mktemp("plan") / "targets.csv"
     p.write_text("name,ra,dec,mag,band,teff\n"
                  "Invented-1,11:24:00,+02:00:00,9.5,V,4200\n"
-                 "Invented-2,150.0,-10.0,12.0,jc.V,\n"
+                 "Invented-2,150.0,-10.0,12.0,V_JC,\n"
                  "Broken-3,xx,5,3,V,\n"
                  "Invented-4,20:00:00,-60:00:00,8.0,V,\n")
     return p
@@ -125,7 +125,7 @@ def test_cli_nightplan(target_file, tmp_path):
 
 def test_cli_exposure_text_plot_and_sun(tmp_path):
     p = _parser()
-    args = p.parse_args(["exposure", "--instrument", str(DEMO / "quillmere_028m_cmos.toml"), "--mag", "jc.V=6",
+    args = p.parse_args(["exposure", "--instrument", str(DEMO / "quillmere_028m_cmos.toml"), "--mag", "V_JC=6",
                          "--teff", "3500", "--snr", "300", "--plot", str(tmp_path / "snr.png")])
     out, err = io.StringIO(), io.StringIO()
     assert run_cli(args, out, err) == 0
@@ -176,7 +176,7 @@ def test_night_tracks_extinction_through_the_night(rig):
 
 def test_exposure_refuses_the_sun_with_the_caution():
     # common practice: V(Sun) ≈ −26.7; the tool gives the usual caution instead of a plan
-    args = _parser().parse_args(["exposure", "--instrument", str(CCD_FILE), "--mag", "jc.V=-26.7",
+    args = _parser().parse_args(["exposure", "--instrument", str(CCD_FILE), "--mag", "V_JC=-26.7",
                                  "--snr", "50"])
     with pytest.raises(StelltempError, match="certified solar filter"):
         run_cli(args, io.StringIO(), io.StringIO())

@@ -18,8 +18,8 @@ KEYS = pb.builtin_keys()
 # ------------------------------------------------------------ registry
 
 def test_registry_has_the_documented_keys():
-    documented = {"jc.U", "jc.B", "jc.V", "jc.Rc", "jc.Ic", "sdss.u", "sdss.g", "sdss.r", "sdss.i", "sdss.z",
-                  "2mass.J", "2mass.H", "2mass.Ks", "gaia3.G", "gaia3.BP", "gaia3.RP"}
+    documented = {"U_JC", "B_JC", "V_JC", "Rc_JC", "Ic_JC", "u_SDSS", "g_SDSS", "r_SDSS", "i_SDSS", "z_SDSS",
+                  "J_2MASS", "H_2MASS", "Ks_2MASS", "G_GDR3", "BP_GDR3", "RP_GDR3"}
     assert len(KEYS) >= 16
     assert documented <= set(KEYS)
     assert len(set(KEYS)) == len(KEYS)
@@ -29,7 +29,7 @@ def test_registry_has_the_documented_keys():
 def test_builtin_passband_is_complete(key):
     band = pb.get_passband(key)
     assert band.key == key
-    assert key.split(".", 1)[1] == band.band
+    assert key.rsplit("_", 1)[0] == band.band
     assert band.system and band.citation
     assert band.magsys in ("Vega", "AB")
     assert band.detector in ("energy", "photon")
@@ -51,21 +51,22 @@ def test_builtin_passband_is_complete(key):
 
 
 def test_passbands_are_immutable():
-    band = pb.get_passband("jc.V")
+    band = pb.get_passband("V_JC")
     with pytest.raises(dataclasses.FrozenInstanceError):
         band.magsys = "AB"
 
 
 def test_keys_are_case_sensitive_and_distinct():
-    g_sdss, g_gaia = pb.get_passband("sdss.g"), pb.get_passband("gaia3.G")
+    g_sdss, g_gaia = pb.get_passband("g_SDSS"), pb.get_passband("G_GDR3")
     assert g_sdss is not g_gaia
     assert (g_sdss.system, g_sdss.magsys) != (g_gaia.system, g_gaia.magsys)
     assert abs(g_sdss.pivot_wavelength - g_gaia.pivot_wavelength) > 1000 * u.AA
-    with pytest.raises(StelltempError, match="sdss.g"):  # suggestion for the wrong case
-        pb.get_passband("sdss.G")
+    with pytest.raises(StelltempError, match="g_SDSS"):  # suggestion for the wrong case
+        pb.get_passband("G_SDSS")
 
 
-@pytest.mark.parametrize("text,hint", [("V", "jc.V"), ("Ks", "2mass.Ks"), ("SDSS.G", "sdss.g"), ("G", "gaia3.G")])
+@pytest.mark.parametrize("text,hint", [("v_jc", "V_JC"), ("KS_2MASS", "Ks_2MASS"), ("G_SDSS", "g_SDSS"),
+                                       ("g_gdr3", "G_GDR3"), ("bp", "BP_GDR3")])
 def test_unknown_key_gives_one_line_with_suggestion(text, hint):
     with pytest.raises(StelltempError) as err:
         pb.get_passband(text)
@@ -86,7 +87,7 @@ def test_detector_convention(key, independent):
         # Bessell & Murphy 2012, PASP 124, 140: photon response of an energy curve is R/λ.
         expected = band.response / band.wave
         np.testing.assert_allclose(band.photon_response, expected / expected.max(), rtol=1e-14)
-        assert key.startswith("jc.")  # the Bessell (1990) UBVRI curves are energy-response curves
+        assert key.endswith("_JC")  # the Bessell (1990) UBVRI curves are energy-response curves
     else:
         np.testing.assert_array_equal(band.photon_response, band.response)
     # the curve stelltemp holds is the speclite file's curve, at every tabulated node
@@ -119,15 +120,15 @@ def test_pivot_matches_synphot(key, independent):
 # ("from memory"); the tolerance covers differences between curve versions.
 PIVOTS_FROM_MEMORY = {
     # Bessell & Murphy 2012, PASP 124, 140 (their revised photonic UBVRI; we use Bessell 1990 curves)
-    "jc.U": (3600, 0.01), "jc.B": (4380, 0.01), "jc.V": (5490, 0.01), "jc.Rc": (6500, 0.01), "jc.Ic": (8000, 0.01),
+    "U_JC": (3600, 0.01), "B_JC": (4380, 0.01), "V_JC": (5490, 0.01), "Rc_JC": (6500, 0.01), "Ic_JC": (8000, 0.01),
     # Riello et al. 2021, A&A 649, A3 (Gaia EDR3 passbands)
-    "gaia3.G": (6218, 0.002), "gaia3.BP": (5110, 0.002), "gaia3.RP": (7769, 0.002),
+    "G_GDR3": (6218, 0.002), "BP_GDR3": (5110, 0.002), "RP_GDR3": (7769, 0.002),
     # Doi et al. 2010, AJ 139, 1628 (SDSS; u, g, r, i, z near 3560, 4700, 6180, 7490, 8950 Å)
-    "sdss.g": (4700, 0.005), "sdss.r": (6180, 0.005), "sdss.i": (7490, 0.005), "sdss.z": (8950, 0.01),
-    "sdss.u": (3560, 0.015),
+    "g_SDSS": (4700, 0.005), "r_SDSS": (6180, 0.005), "i_SDSS": (7490, 0.005), "z_SDSS": (8950, 0.01),
+    "u_SDSS": (3560, 0.015),
     # Tonry et al. 2012, ApJ 750, 99 (Pan-STARRS1)
-    "ps1.g": (4850, 0.005), "ps1.r": (6200, 0.005), "ps1.i": (7535, 0.005), "ps1.z": (8675, 0.005),
-    "ps1.y": (9630, 0.005),
+    "g_PS1": (4850, 0.005), "r_PS1": (6200, 0.005), "i_PS1": (7535, 0.005), "z_PS1": (8675, 0.005),
+    "y_PS1": (9630, 0.005),
 }
 
 
@@ -137,7 +138,7 @@ def test_pivot_near_published_value_from_memory(key):
     assert pb.get_passband(key).pivot_wavelength.to_value(u.AA) == pytest.approx(value, rel=rel)
 
 
-@pytest.mark.parametrize("key,isophotal_um", [("2mass.J", 1.235), ("2mass.H", 1.662), ("2mass.Ks", 2.159)])
+@pytest.mark.parametrize("key,isophotal_um", [("J_2MASS", 1.235), ("H_2MASS", 1.662), ("Ks_2MASS", 2.159)])
 def test_2mass_pivot_versus_cohen_isophotal(key, isophotal_um):
     # Cohen, Wheaton & Megeath 2003, AJ 126, 1090, Table 2 gives *isophotal* wavelengths
     # (1.235, 1.662, 2.159 µm), which depend on the Vega spectrum; the pivot depends only on the
@@ -146,7 +147,7 @@ def test_2mass_pivot_versus_cohen_isophotal(key, isophotal_um):
     assert pivot_um == pytest.approx(isophotal_um, rel=0.015)
 
 
-@pytest.mark.parametrize("key", ["sdss.u"])
+@pytest.mark.parametrize("key", ["u_SDSS"])
 def test_no_long_interpolation_gaps_with_response(key):
     band = pb.get_passband(key)
     gaps = np.diff(band.wave)
@@ -156,7 +157,7 @@ def test_no_long_interpolation_gaps_with_response(key):
 
 def test_other_builtin_curves_have_no_long_gaps():
     for key in KEYS:
-        if key == "sdss.u":
+        if key == "u_SDSS":
             continue
         band = pb.get_passband(key)
         both_ends_on = (band.response[:-1] > 0) & (band.response[1:] > 0)
@@ -266,3 +267,36 @@ def test_bad_user_options_and_missing_file(tmp_path):
         pb.load_passband_file(path, magsys="Johnson")
     with pytest.raises(StelltempError, match="not found"):
         pb.get_passband(tmp_path / "missing.csv")
+
+
+# ------------------------------------------------------------ names
+@pytest.mark.parametrize("plain,key", [("B", "B_JC"), ("V", "V_JC"), ("Rc", "Rc_JC"), ("Ic", "Ic_JC"),
+                                       ("J", "J_2MASS"), ("H", "H_2MASS"), ("Ks", "Ks_2MASS"), ("G", "G_GDR3"),
+                                       ("BP", "BP_GDR3"), ("RP", "RP_GDR3"), ("y", "y_PS1")])
+def test_plain_band_names_where_unambiguous(plain, key):
+    assert pb.resolve_key(plain) == key
+    assert pb.get_passband(plain) is pb.get_passband(key)
+
+
+@pytest.mark.parametrize("plain,choices", [("g", {"g_SDSS", "g_PS1"}), ("r", {"r_SDSS", "r_PS1"}),
+                                           ("i", {"i_SDSS", "i_PS1"}), ("z", {"z_SDSS", "z_PS1"}),
+                                           ("U", {"U_JC", "u_SDSS"}), ("u", {"U_JC", "u_SDSS"})])
+def test_ambiguous_band_names_ask_for_the_system(plain, choices):
+    with pytest.raises(StelltempError, match="ambiguous") as err:
+        pb.get_passband(plain)
+    msg = str(err.value)
+    assert "\n" not in msg and all(c in msg for c in choices)
+
+
+def test_old_keys_still_work_with_a_deprecation_warning():
+    reg = pb.registry_table()
+    assert len(reg) == len(KEYS) and set(reg["old_key"]) >= {"jc.V", "2mass.Ks", "sdss.g", "ps1.g", "gaia3.BP"}
+    for old, new in zip(reg["old_key"], reg["key"]):
+        with pytest.warns(DeprecationWarning, match=f"now '{new}'"):
+            assert pb.get_passband(old) is pb.get_passband(new)
+
+
+def test_new_keys_follow_band_underscore_system():
+    systems = {"Johnson-Cousins": "JC", "SDSS": "SDSS", "Pan-STARRS1": "PS1", "2MASS": "2MASS", "Gaia DR3": "GDR3"}
+    for row in pb.registry_table():
+        assert row["key"] == f"{row['band']}_{systems[row['system']]}"

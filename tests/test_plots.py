@@ -12,7 +12,7 @@ from stelltemp import plots
 from stelltemp.errors import StelltempError
 
 PNG_MAGIC = b"\x89PNG\r\n\x1a\n"
-BANDS = ["jc.B", "jc.V", "jc.Rc", "jc.Ic", "2mass.J", "2mass.H", "2mass.Ks"]
+BANDS = ["B_JC", "V_JC", "Rc_JC", "Ic_JC", "J_2MASS", "H_2MASS", "Ks_2MASS"]
 
 
 def _by_gid(fig, prefix):
@@ -51,7 +51,7 @@ def test_spectrum_draws_each_passband_once_and_labels_units():
 
 def test_hot_star_peak_inside_the_drawn_range():
     # the Wien peak of a 30,000 K star lies in the ultraviolet, far left of the optical passbands
-    fig = plots.spectrum_figure(30000.0, ["jc.V", "2mass.Ks"])
+    fig = plots.spectrum_figure(30000.0, ["V_JC", "Ks_2MASS"])
     (marker,) = _by_gid(fig, "wien-peak")
     lo, hi = fig.axes[0].get_xlim()
     assert lo < marker.get_xdata()[0] < hi
@@ -59,16 +59,16 @@ def test_hot_star_peak_inside_the_drawn_range():
 
 def test_plot_spectrum_writes_png(tmp_path):
     path = tmp_path / "spec.png"
-    assert plots.plot_spectrum_with_passbands(5800, ["jc.V"], path) == str(path)
+    assert plots.plot_spectrum_with_passbands(5800, ["V_JC"], path) == str(path)
     assert _is_png(path)
 
 
 # ------------------------------------------------------- colour-temperature
 def test_colour_temperature_curves_and_calibrations():
-    fig = plots.colour_temperature_figure(["jc.B", "jc.V", "jc.Ic", "2mass.Ks"])
+    fig = plots.colour_temperature_figure(["B_JC", "V_JC", "Ic_JC", "Ks_2MASS"])
     curves = _by_gid(fig, "blackbody:")
     assert sorted(c.get_gid() for c in curves) == sorted(
-        ["blackbody:jc.B-jc.V", "blackbody:jc.V-jc.Ic", "blackbody:jc.Ic-2mass.Ks"])
+        ["blackbody:B_JC-V_JC", "blackbody:V_JC-Ic_JC", "blackbody:Ic_JC-Ks_2MASS"])
     for c in curves:  # a hotter blackbody is bluer in every colour (Planck)
         assert np.all(np.diff(c.get_ydata()) < 0)
     cal = {c.get_gid(): c for c in _by_gid(fig, "calibration:")}
@@ -83,7 +83,7 @@ def test_colour_temperature_curves_and_calibrations():
 
 
 def test_reddened_curves_are_redder():
-    fig = plots.colour_temperature_figure(["jc.B", "jc.V"], ebv=0.4, calibrations=False)
+    fig = plots.colour_temperature_figure(["B_JC", "V_JC"], ebv=0.4, calibrations=False)
     (red,) = _by_gid(fig, "blackbody:")
     (clear,) = _by_gid(fig, "blackbody-unreddened:")
     excess = red.get_ydata() - clear.get_ydata()
@@ -94,11 +94,11 @@ def test_reddened_curves_are_redder():
 
 def test_colour_temperature_needs_two_bands(tmp_path):
     with pytest.raises(StelltempError, match="at least 2"):
-        plots.plot_colour_temperature(["jc.V"], tmp_path / "x.png")
+        plots.plot_colour_temperature(["V_JC"], tmp_path / "x.png")
 
 
 def test_plot_colour_temperature_writes_png(tmp_path):
-    path = plots.plot_colour_temperature(["gaia3.BP", "gaia3.RP"], tmp_path / "ct.png", ebv=0.2)
+    path = plots.plot_colour_temperature(["BP_GDR3", "RP_GDR3"], tmp_path / "ct.png", ebv=0.2)
     assert _is_png(path)
 
 
@@ -133,15 +133,15 @@ def test_star_fit_of_a_blackbody_has_zero_residuals():
 def test_star_fit_without_a_temperature_still_draws(tmp_path):
     from stelltemp.engine import estimate
 
-    table = estimate({"jc.B": [np.nan], "jc.V": [10.0]})
-    path = plots.plot_star_fit(table, [("jc.B", None, None), ("jc.V", 10.0, None)], tmp_path / "f.png")
+    table = estimate({"B_JC": [np.nan], "V_JC": [10.0]})
+    path = plots.plot_star_fit(table, [("B_JC", None, None), ("V_JC", 10.0, None)], tmp_path / "f.png")
     assert _is_png(path)
 
 
 def test_plot_star_fit_writes_png(tmp_path):
     from stelltemp.engine import estimate
 
-    typed = _noise_free_star(bands=["jc.B", "jc.V", "2mass.Ks"])
+    typed = _noise_free_star(bands=["B_JC", "V_JC", "Ks_2MASS"])
     table = estimate({k: [m] for k, m, _ in typed})
     assert _is_png(plots.plot_star_fit(table, typed, tmp_path / "fit.png"))
 
@@ -155,12 +155,12 @@ def _small_run():
     ebv = np.array([0.0, 0.1, 0.2, 0.05, 0.0])
     theta = 1e-9
     cols = {"name": [f"inv-{i}" for i in range(5)]}
-    for b in ("jc.B", "jc.V", "2mass.Ks"):
+    for b in ("B_JC", "V_JC", "Ks_2MASS"):
         cols[b] = bg.blackbody_mag(b, temps, ebv, "G23", 3.1, theta)
         cols[b + "_err"] = np.full(5, 0.02)
-    cols["jc.B"][3] = 99.999  # sentinel: a temperature from V and Ks, but no B-V
-    cols["jc.V"][4] = np.nan  # lone band after the next line: no temperature
-    cols["2mass.Ks"][4] = np.nan
+    cols["B_JC"][3] = 99.999  # sentinel: a temperature from V and Ks, but no B-V
+    cols["V_JC"][4] = np.nan  # lone band after the next line: no temperature
+    cols["Ks_2MASS"][4] = np.nan
     cols["ebv"] = ebv
     return estimate_table(Table(cols)), temps
 
@@ -173,7 +173,7 @@ def test_catalogue_points_are_the_run_temperatures():
     assert len(pts) == 3  # stars 0-2: a temperature and a usable B-V
     np.testing.assert_allclose(np.sort(pts[:, 1]), np.sort(temps[:3]), rtol=1e-4)
     ax = fig.axes[0]
-    assert ax.get_xlabel().startswith("jc.B − jc.V") and "(K)" in ax.get_ylabel()
+    assert ax.get_xlabel().startswith("B_JC − V_JC") and "(K)" in ax.get_ylabel()
     notes = " ".join(t.get_text() for t in ax.texts)
     assert "inv-4" in notes and "inv-3" in notes
 
@@ -188,7 +188,7 @@ def test_catalogue_rings_flagged_temperatures():
 
 def test_catalogue_rejects_a_table_without_results():
     with pytest.raises(StelltempError, match="t_bb"):
-        plots.catalogue_figure(Table({"jc.B": [1.0], "jc.V": [2.0]}))
+        plots.catalogue_figure(Table({"B_JC": [1.0], "V_JC": [2.0]}))
 
 
 def test_plot_catalogue_writes_png_and_unwritable_path_is_one_error(tmp_path):

@@ -50,14 +50,14 @@ def test_demo_targets_two_visits_agree_and_match_truth(night):
     t = Table.read(d / "targets.ecsv")
     truth = Table.read(DEMO / "night_truth.csv")
     assert s["targets"]["rows"] == len(t) == 20 and np.all(np.ma.filled(t["note"], "") == "")
-    for band in ("jc.B", "jc.V", "jc.Rc", "jc.Ic"):
+    for band in ("B_JC", "V_JC", "Rc_JC", "Ic_JC"):
         true = {r["star"]: r[f"{band}_true"] for r in truth}
         z = (t[band] - [true[n] for n in t["star"]]) / t[f"{band}_err"]
         assert np.all(np.abs(z) < 4), (band, z)
     v1, v2 = t[t["visit"] == "v1"], t[t["visit"] == "v2"]
     assert list(v1["star"]) == list(v2["star"])
-    diff = v1["jc.V"] - v2["jc.V"]
-    assert np.all(np.abs(diff) < 4 * np.hypot(v1["jc.V_err"], v2["jc.V_err"]))
+    diff = v1["V_JC"] - v2["V_JC"]
+    assert np.all(np.abs(diff) < 4 * np.hypot(v1["V_JC_err"], v2["V_JC_err"]))
     assert t["cov"].shape == (20, 4, 4)
     temps = Table.read(d / "temps.ecsv")
     assert len(temps) == 20 and "t_bb" in temps.colnames
@@ -110,3 +110,24 @@ def test_fallback_to_predicted_colour_term_with_few_standards(tmp_path, capsys):
         assert any("fallback priors on colour_term" in n for n in f["notes"])
         assert f["priors"]["colour_term"][0] == s["predicted"][f["filter"]]["coefficients"]["colour_term"]
         assert f["n_used"] == 3
+
+
+def test_stored_transformation_applied_to_another_night(night, tmp_path, capsys):
+    # the night's own fit, written to a file, gives every star (standards too) from --use-fit;
+    # the targets agree with the first run exactly
+    d, _ = night
+    args = ["standardise", str(DEMO / "night_observations.csv"), "--instrument",
+            str(DEMO / "instruments" / "quillmere_04m_ccd.toml"), "--use-fit", str(d / "fit.toml")]
+    assert main(args + ["--targets", str(tmp_path / "all.ecsv"), "--json"]) == 0
+    s = json.loads(capsys.readouterr().out)
+    assert s["targets"]["rows"] == 20 + 24 * 3  # targets' two visits and standards' three
+    first = Table.read(d / "targets.ecsv")
+    again = Table.read(tmp_path / "all.ecsv")
+    again = again[[str(n).startswith("demo-N") for n in again["star"]]]
+    assert np.allclose(first["V_JC"], again["V_JC"]) and np.allclose(first["V_JC_err"], again["V_JC_err"])
+    assert main(args + ["--targets", str(tmp_path / "x.ecsv"), "--standards", "s.csv"]) == 2
+    assert "belong(s) to a fit" in capsys.readouterr().err
+    assert main(args) == 2
+    assert "nothing to write" in capsys.readouterr().err
+    assert main(args[:-2] + ["--targets", str(tmp_path / "y.ecsv")]) == 2
+    assert "needs --standards" in capsys.readouterr().err

@@ -15,7 +15,7 @@ from stelltemp.reduction import (Observations, apply_transformation, default_set
 
 # invented coefficients (z, k', c, k''); typical magnitudes for B and V on a small telescope (common practice)
 TRUE = {"B": (1.80, 0.30, 0.08, -0.03), "V": (1.50, 0.18, -0.04, 0.0)}
-SETUPS = default_setups({"B": "jc.B", "V": "jc.V"}, second_order={"B"})
+SETUPS = default_setups({"B": "B_JC", "V": "V_JC"}, second_order={"B"})
 
 
 def simulate(rng, n_nights, n_std=12, airmasses=(1.1, 1.5, 2.0), err=0.01, std_err=0.005):
@@ -23,9 +23,9 @@ def simulate(rng, n_nights, n_std=12, airmasses=(1.1, 1.5, 2.0), err=0.01, std_e
     v = rng.uniform(9.0, 12.5, (n_nights, n_std))
     bv = rng.uniform(-0.2, 1.6, (n_nights, n_std))
     x = np.asarray(airmasses)[None, None, :] + rng.normal(0, 0.03, (n_nights, n_std, len(airmasses)))
-    std = {"jc.V": v, "jc.B": v + bv}
+    std = {"V_JC": v, "B_JC": v + bv}
     inst = {}
-    for f, key in (("B", "jc.B"), ("V", "jc.V")):
+    for f, key in (("B", "B_JC"), ("V", "V_JC")):
         z, k, c, k2 = TRUE[f]
         inst[f] = (std[key][..., None] + z + k * x + c * bv[..., None] + k2 * x * bv[..., None]
                    + rng.normal(0, err, x.shape))
@@ -87,7 +87,7 @@ def test_outlier_rejected_and_reported():
 def test_missing_standard_band_is_set_aside_with_reason():
     rng = np.random.default_rng(6)
     obs, stds = night(0, *simulate(rng, 1))
-    del stds["s01"]["jc.B"]
+    del stds["s01"]["B_JC"]
     fit = fit_filter(obs, stds, SETUPS[1])
     reasons = {s: r for s, _, r in fit.rejected}
     assert "standard list lacks" in reasons["s01"]
@@ -115,19 +115,19 @@ def test_standard_magnitudes_of_targets_within_errors():
     sp = apply_transformation(tobs, tr)
     t = sp.table
     assert len(t) == 40 and np.all(t["note"] == "")
-    v_true = np.array([truth[s]["jc.V"][0] for s in t["star"]])
-    b_true = np.array([truth[s]["jc.B"][0] for s in t["star"]])
-    zv = (t["jc.V"] - v_true) / t["jc.V_err"]
-    zbv = (t["jc.B-jc.V"] - (b_true - v_true)) / t["jc.B-jc.V_err"]
+    v_true = np.array([truth[s]["V_JC"][0] for s in t["star"]])
+    b_true = np.array([truth[s]["B_JC"][0] for s in t["star"]])
+    zv = (t["V_JC"] - v_true) / t["V_JC_err"]
+    zbv = (t["B_JC-V_JC"] - (b_true - v_true)) / t["B_JC-V_JC_err"]
     assert np.all(np.abs(zv) < 4) and np.all(np.abs(zbv) < 4)
     # the shared coefficients make the stars' errors correlated: the mean offset of all 40 stars
     # is not 1/sqrt(40) of one star's error
     full = sp.covariance()
-    iv = np.arange(40) * 2 + sp.bands.index("jc.V")
+    iv = np.arange(40) * 2 + sp.bands.index("V_JC")
     sub = full[np.ix_(iv, iv)]
     mean_err = np.sqrt(sub.sum()) / 40
     assert mean_err > 1.5 * np.sqrt(np.diag(sub)).mean() / np.sqrt(40)
-    assert np.allclose(np.diag(sub), t["jc.V_err"] ** 2)
+    assert np.allclose(np.diag(sub), t["V_JC_err"] ** 2)
 
 
 def test_same_star_at_two_airmasses_same_standard_magnitude():
@@ -155,14 +155,14 @@ def test_same_star_at_two_airmasses_same_standard_magnitude():
     t = sp.table
     full = sp.covariance()
     nb = len(sp.bands)
-    jv = sp.bands.index("jc.V")
+    jv = sp.bands.index("V_JC")
     z = []
     for j in range(n):
         lo = np.flatnonzero((t["star"] == f"t{j}") & (t["visit"] == "low"))[0]
         hi = np.flatnonzero((t["star"] == f"t{j}") & (t["visit"] == "high"))[0]
         a, b = lo * nb + jv, hi * nb + jv
         var = full[a, a] + full[b, b] - 2 * full[a, b]
-        z.append((t["jc.V"][lo] - t["jc.V"][hi]) / np.sqrt(var))
+        z.append((t["V_JC"][lo] - t["V_JC"][hi]) / np.sqrt(var))
     z = np.array(z)
     assert np.all(np.abs(z) < 4)
     assert 0.6 < np.std(z) < 1.4  # errors of the difference are honest, neither inflated nor too small
@@ -176,8 +176,8 @@ def test_target_missing_a_filter_gets_nan_and_note():
                                     [1.2] * 3)
     t = apply_transformation(tobs, tr).table
     assert len(t) == 2
-    assert np.isnan(t["jc.V"][0]) and "no usable measurement for jc.B" in t["note"][0]
-    assert np.isfinite(t["jc.V"][1])
+    assert np.isnan(t["V_JC"][0]) and "no usable measurement for B_JC" in t["note"][0]
+    assert np.isfinite(t["V_JC"][1])
 
 
 def test_tables_and_airmass_from_time_and_position():
@@ -200,9 +200,9 @@ def test_tables_and_airmass_from_time_and_position():
     assert obs.airmass[1] > 1.5
     with pytest.raises(StelltempError, match="needs the instrument file"):
         observations_from_table(tab)
-    std = standards_from_table(Table({"star": ["a", "b"], "jc.V": [10.0, np.nan], "jc.V_err": [0.01, 0.02],
+    std = standards_from_table(Table({"star": ["a", "b"], "V_JC": [10.0, np.nan], "V_JC_err": [0.01, 0.02],
                                       "comment": ["x", "y"]}))
-    assert std == {"a": {"jc.V": (10.0, 0.01)}, "b": {}}
+    assert std == {"a": {"V_JC": (10.0, 0.01)}, "b": {}}
     with pytest.raises(StelltempError, match="missing column"):
         observations_from_table(Table({"star": ["a"]}))
 
@@ -225,7 +225,7 @@ def test_transformation_file_round_trip(tmp_path):
         assert np.array_equal(back.fits[f].covariance, tr.fits[f].covariance)
     a = apply_transformation(obs, tr).table
     b = apply_transformation(obs, back).table
-    assert np.array_equal(a["jc.V"], b["jc.V"]) and np.array_equal(a["jc.V_err"], b["jc.V_err"])
+    assert np.array_equal(a["V_JC"], b["V_JC"]) and np.array_equal(a["V_JC_err"], b["V_JC_err"])
     (tmp_path / "bad.toml").write_text('format = "something else"\n')
     with pytest.raises(StelltempError, match="not a stelltemp transformation"):
         read_transformation(tmp_path / "bad.toml")

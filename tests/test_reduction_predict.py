@@ -35,13 +35,13 @@ full_well_e = 50000
 pixel_scale_arcsec = 1
 [[filter]]
 name = "B"
-passband = "jc.B"
+passband = "B_JC"
 curve_includes_detector = true
 sky_mag_arcsec2 = 22
 extinction_mag_per_airmass = 0.3
 [[filter]]
 name = "V"
-passband = "jc.V"
+passband = "V_JC"
 curve_includes_detector = true
 sky_mag_arcsec2 = 21
 extinction_mag_per_airmass = 0.2
@@ -80,7 +80,7 @@ def test_typical_ccd_with_glass_filters_has_colour_terms_of_a_few_hundredths():
     inst = glass_on_ccd()
     pred = predict_colour_terms(inst, setups_of(inst))
     v, b = pred["V"], pred["B"]
-    assert v.setup.colour == ("jc.B", "jc.V")
+    assert v.setup.colour == ("B_JC", "V_JC")
     assert 0.005 < abs(v.coefficients["colour_term"]) < 0.06
     assert 0.01 < abs(b.coefficients["colour_term"]) < 0.15
     for f in ("R", "I"):
@@ -100,7 +100,7 @@ def test_demo_instrument_with_system_curves():
     # in Astronomical Techniques, ch. 8 — value from memory), much smaller in V and redder bands.
     pred = predict_colour_terms(demo_ccd(), setups_of(demo_ccd()))
     v, b = pred["V"], pred["B"]
-    assert v.setup.colour == ("jc.B", "jc.V")
+    assert v.setup.colour == ("B_JC", "V_JC")
     assert abs(v.coefficients["colour_term"]) < 0.005
     assert abs(b.coefficients["colour_term"]) < 0.005
     assert -0.05 < b.coefficients["colour_extinction"] < -0.015
@@ -142,10 +142,10 @@ def test_prediction_as_prior_with_few_standards():
     setup = pred["V"].setup
     c_pred, sigma = pred["V"].prior()
     assert sigma >= 0.01
-    stds = {"p": {"jc.V": (10.0, 0.01), "jc.B": (10.6, 0.01)}, "q": {"jc.V": (11.0, 0.01), "jc.B": (11.65, 0.01)},
-            "r": {"jc.V": (12.0, 0.01), "jc.B": (12.7, 0.01)}}
+    stds = {"p": {"V_JC": (10.0, 0.01), "B_JC": (10.6, 0.01)}, "q": {"V_JC": (11.0, 0.01), "B_JC": (11.65, 0.01)},
+            "r": {"V_JC": (12.0, 0.01), "B_JC": (12.7, 0.01)}}
     rows = [(s, x) for s in stds for x in (1.1, 1.9)]
-    mag = [stds[s]["jc.V"][0] + 1.0 + 0.15 * x + c_pred * (stds[s]["jc.B"][0] - stds[s]["jc.V"][0]) for s, x in rows]
+    mag = [stds[s]["V_JC"][0] + 1.0 + 0.15 * x + c_pred * (stds[s]["B_JC"][0] - stds[s]["V_JC"][0]) for s, x in rows]
     obs = Observations.from_arrays([r[0] for r in rows], "V", mag, 0.01, [r[1] for r in rows])
     with pytest.raises(StelltempError, match="prior on the colour term"):
         fit_filter(obs, stds, setup)

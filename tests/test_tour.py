@@ -102,7 +102,7 @@ def test_every_row_has_a_temperature_or_a_flag(run):
 
     lone = by_name["demo-F23"]  # measured in V only
     assert not math.isfinite(t[lone]) and flags[lone] & fl.BAD_INPUT
-    sentinel = by_name["demo-F07"]  # 99.999 in jc.B: flagged, solved from the other bands
+    sentinel = by_name["demo-F07"]  # 99.999 in B_JC: flagged, solved from the other bands
     assert math.isfinite(t[sentinel]) and flags[sentinel] & fl.ABSURD_VALUE
 
 
@@ -197,7 +197,7 @@ def test_demo_truth_colours_are_the_dwarf_sequence_reddened_through_the_passband
     truth = _read(DEMO / "truth.csv")
     dwarf = np.asarray(truth["stage"]) == "dwarf"
     t, ebv = _floats(truth["t_true"])[dwarf], _floats(truth["ebv_true"])[dwarf]
-    for blue, red, col in (("jc.B", "jc.V", "B-V"), ("jc.V", "jc.Ic", "V-Ic"), ("jc.V", "2mass.Ks", "V-Ks")):
+    for blue, red, col in (("B_JC", "V_JC", "B-V"), ("V_JC", "Ic_JC", "V-Ic"), ("V_JC", "Ks_2MASS", "V-Ks")):
         expect = np.interp(t, _floats(seq["teff"])[order], _floats(seq[col])[order])
         excess = (blackbody_mag(blue, t, ebv, "G23", 3.1) - blackbody_mag(blue, t, 0.0, "G23", 3.1)
                   - blackbody_mag(red, t, ebv, "G23", 3.1) + blackbody_mag(red, t, 0.0, "G23", 3.1))

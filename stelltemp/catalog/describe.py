@@ -115,10 +115,10 @@ def input_units(colnames, cmap):
     Examples
     --------
     >>> from stelltemp.catalog.mapping import ColumnMap, BandColumns
-    >>> cmap = ColumnMap(bands={"jc.V": BandColumns("Vmag", "e_Vmag")}, columns={"parallax": "plx"})
+    >>> cmap = ColumnMap(bands={"V_JC": BandColumns("Vmag", "e_Vmag")}, columns={"parallax": "plx"})
     >>> info = input_units(["Vmag", "e_Vmag", "plx", "ra", "name"], cmap)
     >>> info["Vmag"], info["plx"][0], info["ra"]
-    (('mag', 'jc.V magnitude (input)'), 'mas', ('deg', None))
+    (('mag', 'V_JC magnitude (input)'), 'mas', ('deg', None))
     """
     out = {}
     for key, spec in cmap.bands.items():
@@ -174,7 +174,7 @@ def flag_record():
 
 
 def record_key(name):
-    """A passband key as part of a record key: no dots (``jc.V`` -> ``jc_V``).
+    """A passband key as part of a record key: no dots (a user curve ``file:my.band`` -> ``file:my_band``).
 
     FITS reads a keyword holding a dot and a number as a record-valued card,
     so the record keeps dots out of its keys.
@@ -221,6 +221,9 @@ def assumptions(cmap, opts):
         out.append("rows with an empty [Fe/H] are calibrated at solar metallicity ([Fe/H] = 0.0)")
     if "logg" not in cmap.columns:
         out.append("no log g column: every star is calibrated as a dwarf")
+    else:
+        out.append("rows with an empty log g are calibrated as dwarfs, without the relations that need log g "
+                   "(each such row says so in teff_cal_note)")
     out.append(f"extinction law {opts.law} with R_V = {float(opts.rv):g}, applied through each passband "
                "to the blackbody spectrum")
     return {f"assumption_{i + 1}": text for i, text in enumerate(out)}

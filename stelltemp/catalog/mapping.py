@@ -2,11 +2,13 @@
 
 Default naming (no map file)
 ----------------------------
-- a magnitude column is named by its passband key, e.g. ``jc.V`` or
-  ``2mass.Ks`` (only keys of the built-in passband registry are picked up —
+- a magnitude column is named by its passband key, e.g. ``V_JC`` or
+  ``Ks_2MASS`` (only keys of the built-in passband registry are picked up —
   or, if the registry cannot be loaded, keys of a known photometric system —
-  so a column such as ``obs.date`` is left alone);
-- its 1-sigma error column is the key plus ``_err``, e.g. ``jc.V_err``;
+  so a column such as ``obs.date`` is left alone); columns named by the keys
+  of earlier releases (``jc.V``) still work for one release, with a
+  DeprecationWarning;
+- its 1-sigma error column is the key plus ``_err``, e.g. ``V_JC_err``;
 - ``ebv`` and ``ebv_err`` hold E(B−V) and its error (mag), ``parallax`` and
   ``parallax_err`` the parallax (mas), ``feh`` the [Fe/H] (dex) and ``logg``
   the surface gravity log g (cgs dex).  Each is optional.
@@ -16,9 +18,9 @@ Map file (our own TOML layout)
 For catalogues with their own column names::
 
     # column map for an invented survey table
-    [bands]
-    "jc.B" = "Bmag"                          # magnitude column only
-    "jc.V" = { mag = "Vmag", err = "e_Vmag" }
+    [bands]              # passband key, or a band name where it is unambiguous
+    "B_JC" = "Bmag"                          # magnitude column only
+    "V" = { mag = "Vmag", err = "e_Vmag" }   # V is V_JC
 
     [columns]            # any of: ebv ebv_err parallax parallax_err feh logg
     ebv = "EBV_map"
@@ -43,9 +45,9 @@ from stelltemp.errors import StelltempError
 #: suffix of the default error column of a magnitude column
 ERR_SUFFIX = "_err"
 
-#: photometric systems whose keys are picked up by the default mapping
-#: (the conventions in DEVELOPERS.md; extended by the passband registry when present)
-KNOWN_SYSTEMS = ("jc", "sdss", "2mass", "gaia3")
+#: photometric systems whose keys (``<band>_<SYSTEM>``) are picked up by the default mapping
+#: when the passband registry cannot be loaded (the conventions in DEVELOPERS.md)
+KNOWN_SYSTEMS = ("JC", "SDSS", "PS1", "2MASS", "GDR3")
 
 #: per-row inputs besides magnitudes, with the default column name of each
 SCALAR_INPUTS = ("ebv", "ebv_err", "parallax", "parallax_err", "feh", "logg")
@@ -69,7 +71,7 @@ class ColumnMap:
     Parameters
     ----------
     bands : dict of str -> BandColumns
-        Passband key (``jc.V``) -> magnitude and error columns.
+        Passband key (``V_JC``) -> magnitude and error columns.
     columns : dict of str -> str
         Input name (one of `SCALAR_INPUTS`) -> catalogue column.
     values : dict of str -> float
@@ -96,7 +98,7 @@ class ColumnMap:
         """Raise `StelltempError` naming the first mapped column absent from `colnames`."""
         if not self.bands:
             raise StelltempError(
-                "no magnitude columns: name them by passband key (e.g. 'jc.V') "
+                "no magnitude columns: name them by passband key (e.g. 'V_JC') "
                 "or give a column map file with a [bands] table"
             )
         present = set(colnames)
@@ -142,9 +144,9 @@ def _as_number(given):
 
 
 def band_key_pattern(systems=KNOWN_SYSTEMS):
-    """Compiled regex matching a passband key of one of `systems`."""
+    """Compiled regex matching a passband key ``<band>_<SYSTEM>`` of one of `systems`."""
     alt = "|".join(re.escape(s) for s in systems)
-    return re.compile(rf"^(?:{alt})\.[A-Za-z0-9_]+$")
+    return re.compile(rf"^[A-Za-z0-9]+_(?:{alt})$")
 
 
 def default_mapping(colnames, systems=KNOWN_SYSTEMS):
@@ -183,7 +185,10 @@ def default_mapping(colnames, systems=KNOWN_SYSTEMS):
         if key is None and registered:
             key = _loose_key(name, registered, folded, present)
             if key is not None:
+                key = _canonical(key)
                 notes.append(f"column '{name}' read as passband {key}")
+        elif key is not None and registered:
+            key = _canonical(key)  # an old key (jc.V) warns and becomes V_JC
         if key is None:
             if _looks_like_band(name, systems):
                 notes.append(f"column '{name}' looks like a passband key but matches no passband: not used")
@@ -215,24 +220,34 @@ def _loose_key(name, registered, folded, present):
 def _looks_like_band(name, systems):
     """True for names shaped like a passband key of a known system (any case, leading '_')."""
     text = name.lstrip("_").lower()
-    lowered = tuple(s.lower() for s in systems)
+    lowered = tuple(s.lower() for s in systems) + _OLD_SYSTEMS
     if "." in text and text.split(".", 1)[0] in lowered:
         return True
     return "_" in text and text.rsplit("_", 1)[1] in _SYSTEM_SUFFIXES
 
 
+#: system prefixes of the keys of earlier releases (``jc.V``, ``gaia3.BP``)
+_OLD_SYSTEMS = ("jc", "sdss", "ps1", "2mass", "gaia3")
 #: lower-case system suffixes of the ``<band>_<SYSTEM>`` keys
 _SYSTEM_SUFFIXES = ("jc", "sdss", "ps1", "2mass", "gdr3")
 
 
 def _registered_keys():
-    """Keys of the built-in passband registry (empty if it cannot be loaded)."""
+    """Keys of the built-in passband registry and their old spellings (empty if it cannot be loaded)."""
     try:
-        from stelltemp.passbands import builtin_keys
+        from stelltemp.passbands import builtin_keys, registry_table
 
-        return set(builtin_keys())
+        reg = registry_table()
+        return set(builtin_keys()) | (set(reg["old_key"]) if "old_key" in reg.colnames else set())
     except Exception:  # registry missing or broken: the known systems still apply
         return set()
+
+
+def _canonical(name):
+    """The passband key a column or map name stands for (:func:`stelltemp.passbands.resolve_key`)."""
+    from stelltemp.passbands import resolve_key
+
+    return resolve_key(name)
 
 
 def load_mapping(path):
@@ -262,8 +277,13 @@ def mapping_from_dict(doc, source="column map"):
 
     bands = {}
     for key, spec in _table(doc, "bands", source).items():
-        if "." not in key:
-            raise StelltempError(f"{source}: band key '{key}' is not <system>.<band> (e.g. jc.V)")
+        if Path(key).suffix.lower() not in (".ecsv", ".csv", ".txt", ".dat"):  # a curve file stays a path
+            try:
+                key = _canonical(key)
+            except StelltempError as exc:
+                raise StelltempError(f"{source}: [bands] {exc}") from None
+        if key in bands:
+            raise StelltempError(f"{source}: [bands] passband {key} is given twice")
         if isinstance(spec, str):
             bands[key] = BandColumns(mag=spec)
         elif isinstance(spec, dict):

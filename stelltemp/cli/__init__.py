@@ -47,9 +47,10 @@ No module outside this package imports from it.
 import argparse
 import os
 import sys
+import warnings
 
 from .. import __version__
-from ..errors import StelltempError
+from ..errors import RenamedWarning, StelltempError
 from . import blackbody, catalogue, colourgrid, exposure, nightplan, passbands, relations, standardise, star, tour
 from .options import HelpWithDefaults
 from .output import emit_json
@@ -103,7 +104,18 @@ def run_parsed(args, **run_options):
     ``engine=`` for ``catalogue``, ``out=``/``err=`` streams).
     """
     try:
-        code = int(args.run(args, **run_options) or 0)
+        with warnings.catch_warnings():
+            warnings.simplefilter("once", RenamedWarning)
+            shown = warnings.showwarning
+
+            def note(message, category, *rest, **kw):
+                if issubclass(category, RenamedWarning):
+                    print(f"stelltemp: note: {message}", file=sys.stderr)
+                else:
+                    shown(message, category, *rest, **kw)
+
+            warnings.showwarning = note
+            code = int(args.run(args, **run_options) or 0)
         sys.stdout.flush()
         return code
     except BrokenPipeError:

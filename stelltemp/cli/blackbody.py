@@ -7,7 +7,7 @@ from . import options
 from .output import emit_json, number
 
 NAME = "blackbody"
-DEFAULT_BANDS = ["jc.B", "jc.V", "jc.Ic", "2mass.Ks"]
+DEFAULT_BANDS = ["B_JC", "V_JC", "Ic_JC", "Ks_2MASS"]
 
 
 def add(subparsers):

@@ -20,7 +20,7 @@ def add(subparsers):
         NAME, help="temperatures for every row of a table file (CSV, ECSV, FITS, VOTable, Parquet)",
         description=(
             "Run the temperature engine over a table file. Magnitude columns are named by "
-            "passband key (jc.V, 2mass.Ks ...) with errors in <key>_err, unless a column map "
+            "passband key (V_JC, Ks_2MASS ...) with errors in <key>_err, unless a column map "
             "file says otherwise. Formats follow the file extensions; Parquet and CSV stream "
             "with bounded memory, other formats are held in memory."))
     p.add_argument("input", help="input table file")

@@ -15,7 +15,7 @@ def add(subparsers):
     p = subparsers.add_parser(NAME, help="synthetic magnitudes and colours of blackbodies over temperatures",
                               description="Magnitudes of a 1 R_sun blackbody at 10 pc through each passband, and "
                                           "colours of adjacent passbands, over log-spaced or listed temperatures.")
-    p.add_argument("bands", nargs="+", help="passband keys, e.g. jc.B jc.V 2mass.Ks")
+    p.add_argument("bands", nargs="+", help="passband keys, e.g. B_JC V_JC Ks_2MASS")
     p.add_argument("--temps", nargs="+", metavar="K", help="explicit temperatures in K (instead of --tmin/--tmax)")
     p.add_argument("--tmin", type=float, default=3000.0, metavar="K", help="lowest temperature, K")
     p.add_argument("--tmax", type=float, default=30000.0, metavar="K", help="highest temperature, K")

@@ -5,11 +5,12 @@ import sys
 from ..errors import StelltempError
 from . import options
 from .observing import add_goal_options, exposure_seconds, report
+from .output import sig
 
 NAME = "exposure"
-COLUMNS = [("filter", "{}"), ("rate_source", "{}"), ("airmass", "{:.2f}"), ("star_rate", "{:.4g}"),
-           ("sky_rate", "{:.3g}"), ("exposure_for_snr", "{:.3g}"), ("exposure", "{:.3g}"), ("snr", "{:.1f}"),
-           ("peak_adu", "{:.0f}"), ("peak_excess", "{:.3g}"), ("nonlinear_after", "{:.3g}"), ("saturation", "{}")]
+COLUMNS = [("filter", "{}"), ("rate_source", "{}"), ("airmass", "{:.2f}"), ("star_rate", sig(3)),
+           ("sky_rate", sig(3)), ("exposure_for_snr", sig(3)), ("exposure", sig(3)), ("snr", "{:.1f}"),
+           ("peak_adu", "{:.0f}"), ("peak_excess", sig(3)), ("nonlinear_after", sig(3)), ("saturation", "{}")]
 
 
 def add(subparsers):

@@ -6,16 +6,17 @@ import sys
 from ..errors import StelltempError
 from . import options
 from .observing import add_goal_options, exposure_seconds, report
+from .output import sig
 
 NAME = "nightplan"
 COLUMNS = [("target", "{}"), ("filter", "{}"), ("rate_source", "{}"), ("mag_band", "{}"), ("min_airmass", "{:.2f}"),
-           ("star_rate", "{:.4g}"), ("sky_rate", "{:.3g}"), ("exposure", "{:.3g}"), ("snr", "{:.1f}"),
+           ("star_rate", sig(3)), ("sky_rate", sig(3)), ("exposure", sig(3)), ("snr", "{:.1f}"),
            ("n_exposures", "{:.0f}"), ("saturation", "{}"), ("flags", "{}")]
 #: the per-target summary printed above the per-filter table
 SUMMARY_COLUMNS = [("target", "{}"), ("best_time", "{}"), ("best_time_local", "{}"), ("window_local", "{}"),
                    ("max_altitude", "{:.1f}"), ("min_airmass", "{:.2f}"), ("moon_separation", "{:.0f}"),
                    ("moon_delta_v", "{:.2f}"), ("spectrum", "{}"), ("teff", "{:.0f}"), ("ebv", "{:.3f}"),
-                   ("total_time", "{:.3g}"), ("flags", "{}")]
+                   ("total_time", sig(3)), ("flags", "{}")]
 
 
 def add(subparsers):

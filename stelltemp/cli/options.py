@@ -26,10 +26,13 @@ class HelpWithDefaults(argparse.HelpFormatter):
     def _get_help_string(self, action):
         text = action.help or ""
         default = action.default
-        if (text and "%(default)" not in text and "default" not in text
-                and default not in (None, False, argparse.SUPPRESS) and default != []
-                and action.option_strings and action.nargs != 0):
-            text += " (default: %(default)s)"
+        shown = (default is not None and default is not argparse.SUPPRESS and not isinstance(default, bool)
+                 and default != [] and action.option_strings and action.nargs != 0)
+        if text and shown and "%(default)" not in text and "default" not in text:
+            if isinstance(default, (list, tuple)):
+                text += " (default: " + " ".join(str(d) for d in default) + ")"
+            else:
+                text += " (default: %(default)s)"
         return text
 
 
@@ -63,7 +66,7 @@ def add_json(p):
     p.add_argument("--json", action="store_true", help="machine-readable output (JSON) on stdout")
 
 
-def add_replace(p, what="the --output or --plot file"):
+def add_replace(p, what="--output or --plot file"):
     p.add_argument("--replace", action="store_true", help=f"allow replacing an existing {what}")
 
 

@@ -16,7 +16,7 @@ import numpy as np
 
 from ..jsonable import json_ready
 
-__all__ = ["BLANK", "emit_json", "interval", "measure", "number", "plural", "print_table", "rounded"]
+__all__ = ["BLANK", "emit_json", "interval", "measure", "number", "plural", "print_table", "rounded", "sig", "significant"]
 
 #: what a blank (NaN / missing) value prints as
 BLANK = "—"
@@ -144,14 +144,43 @@ def interval(lo, hi, err, unit=""):
     return f"{rounded(lo, e)[0]} – {_with_unit(rounded(hi, e)[0], unit)}"
 
 
+def significant(value, digits=3):
+    """``digits`` significant figures in plain notation (a power of ten only beyond 10^-3 … 10^6).
+
+    >>> significant(11203.4), significant(0.1674), significant(2.5e7)
+    ('11200', '0.167', '2.50 × 10^7')
+    """
+    v = float(value)
+    if not math.isfinite(v):
+        return BLANK
+    if v == 0:
+        return "0"
+    exp = math.floor(math.log10(abs(float(f"{v:.{digits - 1}e}"))))
+    if exp not in _PLAIN_EXPONENTS:
+        return f"{v / 10**exp:.{digits - 1}f} × 10^{exp}"
+    decimals = digits - 1 - exp
+    if decimals >= 0:
+        return f"{v:.{decimals}f}"
+    scale = 10 ** (-decimals)
+    return f"{round(v / scale) * scale:.0f}"
+
+
+def sig(digits):
+    """A table cell format: :func:`significant` with ``digits`` figures."""
+    return lambda value: significant(value, digits)
+
+
 def _cell(value, fmt):
     if isinstance(value, (float, np.floating)) and not math.isfinite(value):
         return "-"
-    return fmt.format(value)
+    return fmt(value) if callable(fmt) else fmt.format(value)
 
 
 def print_table(table, columns, out=None):
-    """A plain-text table of ``columns`` [(name, format), …] with each unit in the header."""
+    """A plain-text table of ``columns`` [(name, format), …] with each unit in the header.
+
+    A format is a ``str.format`` pattern or a function of the value (e.g. :func:`sig`).
+    """
     out = out or sys.stdout
     header = [name + (f" [{table[name].unit}]" if table[name].unit not in (None, "") and str(table[name].unit)
                       else "") for name, _ in columns]

@@ -19,10 +19,13 @@ def add(subparsers):
             "Measurements: one row each, columns star, filter, inst_mag, inst_mag_err and airmass (or "
             "time_utc, ra, dec). Standards: star plus one column per passband key with <key>_err."))
     p.add_argument("observations", help="measurement table (CSV, ECSV, FITS, Parquet)")
-    p.add_argument("--standards", required=True, metavar="FILE", help="standard-star list (one row per star)")
+    p.add_argument("--standards", metavar="FILE", help="standard-star list (one row per star)")
+    p.add_argument("--use-fit", metavar="FILE",
+                   help="apply this transformation file instead of fitting (no standards needed; every star "
+                        "is a target)")
     p.add_argument("--instrument", required=True, metavar="FILE",
                    help="instrument + site description (TOML): filters, passbands, site for the airmass")
-    options.add_output(p, "the transformation file (TOML)", required=True)
+    options.add_output(p, "the transformation file (TOML); needed unless --use-fit")
     p.add_argument("--targets", metavar="PATH",
                    help="write the targets' standard magnitudes and colours (ECSV keeps the covariance)")
     p.add_argument("--temperatures", metavar="PATH", help="also run the temperature engine on the targets (reddening from --ebv)")
@@ -59,6 +62,24 @@ def run(args, out=None, err=None):
     if not args.clip > 0:
         raise StelltempError("--clip must be > 0")
     progress = None if (args.quiet or args.json) else (lambda text: print(f"stelltemp: {text}", file=err))
+    if args.use_fit:
+        from ..reduction.workflow import apply_stored_transformation
+
+        fitting_only = [o for o, v in (("--standards", args.standards), ("-o/--output", args.output),
+                                       ("--plot", args.plot), ("--second-order", args.second_order)) if v]
+        if fitting_only:
+            raise StelltempError(f"--use-fit applies a stored transformation: {', '.join(fitting_only)} "
+                                 "belong(s) to a fit")
+        s = apply_stored_transformation(args.observations, args.use_fit, args.instrument, targets_out=args.targets,
+                                        temperatures_out=args.temperatures, replace=args.replace, ebv=args.ebv,
+                                        ebv_err=args.ebv_err, law=args.law, rv=args.rv, progress=progress)
+        if args.json:
+            emit_json(s, out)
+        else:
+            _report(s, out)
+        return 0
+    if not args.standards or not args.output:
+        raise StelltempError("a fit needs --standards and -o/--output (or apply a stored one with --use-fit)")
     try:
         s = standardise_night(args.observations, args.standards, args.instrument, args.output,
                               targets_out=args.targets, temperatures_out=args.temperatures, plot_out=args.plot,
@@ -83,6 +104,8 @@ def _report(s, out):
     prov = s["transformation"]["provenance"]
     print(f"Transformation of {prov.get('instrument_title') or prov.get('instrument')} "
           f"({prov.get('method')})", file=out)
+    if prov.get("read_from"):
+        print(f"  read from {prov['read_from']} (fitted {prov.get('written_utc', 'at an unknown time')})", file=out)
     pred = {(r["filter"], r["coefficient"]): r for r in s["comparison_with_prediction"]}
     for f in s["transformation"]["filters"]:
         print(f"\n  {f['filter']} -> {f['band']}, colour {f['colour']}: {f['n_used']} measurements kept, "

@@ -13,7 +13,7 @@ def add(subparsers):
                               description="Blackbody colour temperature (with a 68 %% interval), calibrated "
                                           "effective temperature where a relation applies, and the derived "
                                           "Wien peak, angular diameter, bolometric flux, radius and luminosity.")
-    options.add_magnitudes(p, required=True, example="jc.B=10.65,0.01")
+    options.add_magnitudes(p, required=True, example="B_JC=10.65,0.01")
     options.add_reddening(p)
     p.add_argument("--av", type=float, metavar="MAG", help="A_V, mag, instead of --ebv (E(B-V) = A_V / R_V)")
     p.add_argument("--av-err", type=float, metavar="MAG", help="1-sigma error of A_V, mag")
@@ -80,7 +80,7 @@ def run(args, out=None, err=None):
     r = row
     m = measure
     n_bands = len(meta["passbands"].split(","))
-    print(f"Star in {plural(n_bands, 'passband')} ({meta['passbands']}); method: {meta['method']}; "
+    print(f"Star in {plural(n_bands, 'passband')} ({', '.join(meta['passbands'].split(','))}); method: {meta['method']}; "
           f"extinction: {meta['extinction_law']}, R_V = {meta['R_V']:g}; errors: {meta['uncertainty']}", file=out)
     lo, hi = r["t_bb_lo"]["value"], r["t_bb_hi"]["value"]
     err_bb = r["t_bb_err"]["value"]

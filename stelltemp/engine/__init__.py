@@ -137,7 +137,7 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
     Parameters
     ----------
     mags : dict
-        Passband key (``'jc.B'``, ``'2mass.Ks'``, …) → magnitudes (array over
+        Passband key (``'B_JC'``, ``'Ks_2MASS'``, …) → magnitudes (array over
         stars, plain or a Quantity in mag; NaN = not measured).  Two bands at
         least.  For an astropy Table with catalogue column names use
         :func:`stelltemp.catalog.estimate_table`.

@@ -350,7 +350,7 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
     --------
     >>> import numpy as np
     >>> m = np.array([[10.64, 10.0, 8.5]])  # B, V, Ks of a solar-type star
-    >>> res = calibrated_teff(m, np.full((1, 3), 0.02), ["jc.B", "jc.V", "2mass.Ks"],
+    >>> res = calibrated_teff(m, np.full((1, 3), 0.02), ["B_JC", "V_JC", "Ks_2MASS"],
     ...                       np.array([5800.0]), np.array([0.0]), np.array([0.0]))
     >>> res.keys, int(res.n_used[0])
     (('c10_bv', 'c10_vk'), 2)

@@ -42,7 +42,7 @@ def estimate_star(magnitudes, **options):
 
     Examples
     --------
-    >>> row, meta, table = estimate_star([("jc.B", 10.65, 0.01), ("jc.V", 10.0, 0.01)])
+    >>> row, meta, table = estimate_star([("B_JC", 10.65, 0.01), ("V_JC", 10.0, 0.01)])
     >>> row["t_bb"]["unit"], 5000 < row["t_bb"]["value"] < 7000
     ('K', True)
     """

@@ -207,7 +207,7 @@ def anchored_rates(instrument: Instrument, photometry, *, teff=None, ebv=0.0, eb
     >>> from pathlib import Path
     >>> from stelltemp.observing.instrument import load_instrument
     >>> rig = load_instrument(Path("catalogs_demo/instruments/quillmere_04m_ccd.toml"))
-    >>> r = anchored_rates(rig, {"jc.V": 12.0, "jc.Ic": 11.0}, teff=5000.0)
+    >>> r = anchored_rates(rig, {"V_JC": 12.0, "Ic_JC": 11.0}, teff=5000.0)
     >>> r["V"].source, r["R"].source
     ('measured', 'interpolated')
     """

@@ -363,7 +363,7 @@ def moonlight_electron_rate(instrument: Instrument, filter_name: str, moon_v_arc
     w, f = sun_spectrum()
     from ..passbands import get_passband
 
-    v = get_passband("jc.V")
+    v = get_passband("V_JC")
     m0 = -2.5 * np.log10(band_integral(w, f, v)) + mag_offset(v)
     per_arcsec2 = electron_rate_spectrum(w, f * 10.0 ** (-0.4 * (mu - m0)), instrument, filter_name, airmass=0.0)
     return per_arcsec2 * instrument.camera.binned_scale_arcsec**2

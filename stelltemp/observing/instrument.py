@@ -24,7 +24,7 @@ the site.  Units are part of every key name, so a file reads on its own::
 
     [[filter]]
     name = "V"
-    passband = "jc.V"            # or: curve = "myfilter.ecsv"
+    passband = "V_JC"            # or: curve = "myfilter.ecsv"
     curve_kind = "system"        # "system" (standard response, detector included) or "filter"
     peak_transmission = 0.45     # peak of the whole filter x detector response here
     sky_mag_arcsec2 = 21.0
@@ -233,7 +233,7 @@ class FilterSpec:
     name : str
         Name used in plans and on the command line.
     passband_ref : str
-        A passband key (``jc.V``) or an absolute path to a curve file.
+        A passband key (``V_JC``) or an absolute path to a curve file.
     peak_transmission : float
         Peak transmission of the physical filter (fraction).
     sky_mag_arcsec2 : float

@@ -216,7 +216,7 @@ def _photometry_arg(instrument, mag, band, photometry):
     if mag is None:
         raise StelltempError("give a magnitude and its band, or per-band photometry")
     if band is None:
-        raise StelltempError("give the passband of the magnitude (a key such as jc.V, or an instrument filter)")
+        raise StelltempError("give the passband of the magnitude (a key such as V_JC, or an instrument filter)")
     return {_resolve_band(instrument, band).key: mag}
 
 
@@ -368,8 +368,8 @@ def parse_targets(table: Table):
     """Check a target table row by row.
 
     Columns (case-insensitive names for the fixed ones): ``name, ra, dec``
-    and the star's magnitudes, as columns named by passband key (``jc.V``,
-    ``jc.V_err``, … as in the catalogue layer, `stelltemp.catalog.mapping`)
+    and the star's magnitudes, as columns named by passband key (``V_JC``,
+    ``V_JC_err``, … as in the catalogue layer, `stelltemp.catalog.mapping`)
     and/or a pair ``mag, band``; optional ``teff`` (K, blank = none),
     ``ebv`` and ``ebv_err`` (mag; blank = 0, said in the row's notes).
     ``ra`` is degrees or sexagesimal hours ("12:30:00" or "12h30m"); ``dec``
@@ -394,7 +394,7 @@ def parse_targets(table: Table):
     cmap = default_mapping(table.colnames)
     legacy = "mag" in cols and "band" in cols
     if not cmap.bands and not legacy:
-        raise StelltempError("target list lacks magnitudes: give columns named by passband key (jc.V, jc.V_err, "
+        raise StelltempError("target list lacks magnitudes: give columns named by passband key (V_JC, V_JC_err, "
                              f"...) or the pair mag, band (has: {', '.join(table.colnames)})")
     out = []
     for i, row in enumerate(table):

@@ -17,6 +17,11 @@ fit is linear in the coefficients.  The signs follow the usual convention
 (common practice): k' > 0 (fainter at higher airmass); k'' < 0 for a blue
 band, where a redder star suffers less extinction.
 
+Without the k'' term, c is the colour term at the airmasses of the night (the
+colour-dependent extinction is absorbed at their mean); with it, c is the
+colour term above the atmosphere.  Predicted and fitted terms are compared
+in the same form (:mod:`stelltemp.reduction.predict` uses the setup's).
+
 Applying the fit to a target turns the equations round: its measurements in
 all filters give a linear system for the standard magnitudes (see
 :mod:`stelltemp.reduction.apply`).

@@ -309,13 +309,13 @@ def fit_transformation(obs: Observations, standards: dict, setups, *, priors=Non
     >>> import numpy as np
     >>> from stelltemp.reduction import Observations, default_setups
     >>> bv = {"a": 0.0, "b": 0.5, "c": 1.0, "d": 1.5}
-    >>> stds = {s: {"jc.V": (10.0, 0.01), "jc.B": (10.0 + c, 0.01)} for s, c in bv.items()}
+    >>> stds = {s: {"V_JC": (10.0, 0.01), "B_JC": (10.0 + c, 0.01)} for s, c in bv.items()}
     >>> rows = [(s, f, x) for s in bv for f in "BV" for x in (1.0, 2.0)]
     >>> mag = [10.0 + (bv[s] if f == "B" else 0) + 1.5 + 0.2 * x + (0.05 if f == "B" else -0.04) * bv[s]
     ...        for s, f, x in rows]
     >>> obs = Observations.from_arrays([r[0] for r in rows], [r[1] for r in rows], mag, 0.01,
     ...                                [r[2] for r in rows])
-    >>> tr = fit_transformation(obs, stds, default_setups({"B": "jc.B", "V": "jc.V"}))
+    >>> tr = fit_transformation(obs, stds, default_setups({"B": "B_JC", "V": "V_JC"}))
     >>> np.round(tr.fits["V"].values, 4).tolist()
     [1.5, 0.2, -0.04]
     """

@@ -14,8 +14,8 @@ version and from which inputs it was made::
 
     [[filter]]
     name = "V"
-    band = "jc.V"                       # standard band it is transformed to
-    colour = ["jc.B", "jc.V"]           # (blue, red) of the colour term
+    band = "V_JC"                       # standard band it is transformed to
+    colour = ["B_JC", "V_JC"]           # (blue, red) of the colour term
     coefficients = ["zero_point", "extinction", "colour_term"]
     units = ["mag", "mag / airmass", "mag / mag"]
     values = [1.497, 0.184, -0.044]

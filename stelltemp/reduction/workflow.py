@@ -14,7 +14,7 @@ import numpy as np
 
 from ..errors import StelltempError
 
-__all__ = ["standardise_night", "PREDICTED_MODES", "EXTINCTION_PRIOR_SIGMA"]
+__all__ = ["standardise_night", "apply_stored_transformation", "PREDICTED_MODES", "EXTINCTION_PRIOR_SIGMA"]
 
 PREDICTED_MODES = ("check", "fallback", "prior", "off")
 #: width (mag per airmass) given to the instrument file's extinction when used as a prior
@@ -101,9 +101,8 @@ def standardise_night(observations, standards, instrument, fit_out, *, targets_o
         prediction, files written, notes).
     """
     from .. import __version__
-    from ..catalog.tableio import read_table, write_table
+    from ..catalog.tableio import read_table
     from ..observing.instrument import load_instrument
-    from .apply import apply_transformation
     from .fit import DEFAULT_CLIP, fit_transformation
     from .observations import observations_from_table, standards_from_table
     from .store import file_sha256, write_transformation
@@ -170,30 +169,12 @@ def standardise_night(observations, standards, instrument, fit_out, *, targets_o
     targets = sorted(set(obs.star) - set(stds))
     summary_targets = None
     if targets_out or temperatures_out:
-        say(f"transforming {len(targets)} target(s)")
         if not targets:
             raise StelltempError("no targets: every star in the observations is in the standard list")
-        sp = apply_transformation(obs, tr, stars=targets)
-        table = sp.table
-        table.meta.update({"transformation": str(fit_out), "provenance": "stelltemp standardise " + now})
-        summary_targets = {"rows": len(table), "without_result": int(np.sum(table["note"] != ""))}
-        if targets_out:
-            out = table
-            if Path(targets_out).suffix.lower() not in (".ecsv", ".fits", ".fit"):
-                out = table.copy()
-                out.remove_column("cov")
-                notes.append("the targets' band-by-band covariance is kept only in ECSV or FITS files")
-            written["targets"] = write_table(out, targets_out, overwrite=replace) or str(targets_out)
-        if temperatures_out:
-            say("running the temperature engine")
-            from ..catalog import estimate_table
-
-            eng_in = table[["star", "visit"] + [c for b in sp.bands for c in (b, f"{b}_err")]]
-            red = {k: v for k, v in (("ebv", ebv), ("ebv_err", ebv_err), ("law", law), ("rv", rv)) if v is not None}
-            res = estimate_table(eng_in, **red)
-            res.meta["note_reduction"] = table.meta["errors"]
-            written["temperatures"] = write_table(res, temperatures_out, overwrite=replace) or str(temperatures_out)
-            summary_targets["t_bb_median_K"] = float(np.nanmedian(np.asarray(res["t_bb"], float)))
+        reddening = {"ebv": ebv, "ebv_err": ebv_err, "law": law, "rv": rv}
+        summary_targets = _transform_targets(obs, tr, targets, targets_out, temperatures_out, replace, reddening,
+                                             notes, written, say, {"transformation": str(fit_out),
+                                                                   "provenance": "stelltemp standardise " + now})
     if plot_out:
         from .figures import plot_fit_residuals
 
@@ -203,3 +184,81 @@ def standardise_night(observations, standards, instrument, fit_out, *, targets_o
     return {"transformation": tr.summary(), "comparison_with_prediction": comparison,
             "predicted": {k: v.summary() for k, v in (predictions or {}).items()},
             "targets": summary_targets, "written": written, "notes": notes}
+
+
+def _transform_targets(obs, tr, targets, targets_out, temperatures_out, replace, reddening, notes, written, say,
+                       meta):
+    """Apply ``tr`` to ``targets``, write their table and optionally their temperatures; a summary dict."""
+    from ..catalog.tableio import write_table
+    from .apply import apply_transformation
+
+    say(f"transforming {len(targets)} target(s)")
+    sp = apply_transformation(obs, tr, stars=targets)
+    table = sp.table
+    table.meta.update(meta)
+    summary = {"rows": len(table), "without_result": int(np.sum(table["note"] != ""))}
+    if targets_out:
+        out = table
+        if Path(targets_out).suffix.lower() not in (".ecsv", ".fits", ".fit"):
+            out = table.copy()
+            out.remove_column("cov")
+            notes.append("the targets' band-by-band covariance is kept only in ECSV or FITS files")
+        written["targets"] = write_table(out, targets_out, overwrite=replace) or str(targets_out)
+    if temperatures_out:
+        say("running the temperature engine")
+        from ..catalog import estimate_table
+
+        eng_in = table[["star", "visit"] + [c for b in sp.bands for c in (b, f"{b}_err")]]
+        red = {k: v for k, v in reddening.items() if v is not None}
+        res = estimate_table(eng_in, **red)
+        res.meta["note_reduction"] = table.meta["errors"]
+        written["temperatures"] = write_table(res, temperatures_out, overwrite=replace) or str(temperatures_out)
+        summary["t_bb_median_K"] = float(np.nanmedian(np.asarray(res["t_bb"], float)))
+    return summary
+
+
+def apply_stored_transformation(observations, transformation, instrument, *, targets_out=None,
+                                temperatures_out=None, replace=False, ebv=None, ebv_err=None, law=None, rv=None,
+                                progress=None):
+    """Standard magnitudes of every star in ``observations`` from a transformation file.
+
+    For a night without its own standards, or to re-apply a fit: the file
+    (:mod:`stelltemp.reduction.store`) gives the coefficients and their
+    covariance; the instrument file gives the site for airmasses computed
+    from time and position.  Outputs as in :func:`standardise_night`.
+
+    Returns
+    -------
+    dict
+        ``transformation`` (as read), ``targets``, ``written``, ``notes``.
+    """
+    from ..catalog.tableio import read_table
+    from ..observing.instrument import load_instrument
+    from .observations import observations_from_table
+    from .store import read_transformation
+
+    say = progress or (lambda text: None)
+    if not (targets_out or temperatures_out):
+        raise StelltempError("nothing to write: give the targets or temperatures output")
+    inputs = [observations, transformation, instrument]
+    for p in inputs:
+        if not Path(p).is_file():
+            raise StelltempError(f"{p}: no such file")
+    _check_outputs({"targets": targets_out, "temperatures": temperatures_out}, replace, inputs)
+    say("reading the transformation, the instrument and the observations")
+    tr = read_transformation(transformation)
+    inst = load_instrument(instrument)
+    obs = observations_from_table(read_table(observations), site=inst.site, what=Path(observations).name)
+    missing = sorted(set(tr.fits) - set(obs.filter))
+    notes = [f"no measurements in filter(s) {', '.join(missing)} of the transformation"] if missing else []
+    other = sorted(set(obs.filter) - set(tr.fits))
+    if other:
+        notes.append(f"filter(s) {', '.join(other)} not in the transformation: their measurements are ignored")
+    written = {}
+    now = _dt.datetime.now(_dt.timezone.utc).replace(microsecond=0).isoformat()
+    summary = _transform_targets(obs, tr, sorted(set(obs.star)), targets_out, temperatures_out, replace,
+                                 {"ebv": ebv, "ebv_err": ebv_err, "law": law, "rv": rv}, notes, written, say,
+                                 {"transformation": str(transformation),
+                                  "provenance": "stelltemp standardise (stored transformation) " + now})
+    return {"transformation": tr.summary(), "comparison_with_prediction": [], "predicted": {},
+            "targets": summary, "written": written, "notes": notes}

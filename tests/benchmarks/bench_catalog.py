@@ -27,7 +27,7 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-KEYS = ["jc.B", "jc.V", "jc.Ic", "2mass.J", "2mass.Ks"]
+KEYS = ["B_JC", "V_JC", "Ic_JC", "J_2MASS", "Ks_2MASS"]
 WAVE = np.linspace(1000.0, 30000.0, 20000)  # Å
 
 
@@ -115,13 +115,13 @@ def naive_seconds_per_star(sample=5, seed=2):
     vega = SourceSpectrum(Empirical1D, points=np.array(vw) * u.AA,
                           lookup_table=np.array(vf) * u.erg / u.s / u.cm**2 / u.AA)
     bps = {}
-    for key in ("jc.B", "jc.V"):
+    for key in ("B_JC", "V_JC"):
         pb = get_passband(key)
         bps[key] = SpectralElement(Empirical1D, points=pb.wave * u.AA, lookup_table=pb.photon_response)
 
     def colour(temp):
         src = SourceSpectrum(BlackBodyNorm1D, temperature=temp)
-        m = [Observation(src, bps[k], force="taper").effstim("vegamag", vegaspec=vega).value for k in ("jc.B", "jc.V")]
+        m = [Observation(src, bps[k], force="taper").effstim("vegamag", vegaspec=vega).value for k in ("B_JC", "V_JC")]
         return m[0] - m[1]
 
     rng = np.random.default_rng(seed)

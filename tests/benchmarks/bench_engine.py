@@ -114,10 +114,10 @@ def main():
     n = args.stars
     t = np.exp(rng.uniform(np.log(2500), np.log(40000), n))
     e = rng.uniform(0, 2, n)
-    colour = bg.colour_table("jc.B", "jc.V").evaluate(np.log(t), e, want_de=False)[0]
-    invert_colour(colour[:100], "jc.B", "jc.V", e[:100])  # tables built outside the timing
+    colour = bg.colour_table("B_JC", "V_JC").evaluate(np.log(t), e, want_de=False)[0]
+    invert_colour(colour[:100], "B_JC", "V_JC", e[:100])  # tables built outside the timing
     t0 = time.perf_counter()
-    t_back, _, _ = invert_colour(colour, "jc.B", "jc.V", e)
+    t_back, _, _ = invert_colour(colour, "B_JC", "V_JC", e)
     dt_inv = time.perf_counter() - t0
     out["colour_inversions"] = n
     out["colour_inversion_seconds"] = round(dt_inv, 4)
@@ -125,7 +125,7 @@ def main():
     out["colour_round_trip_max_rel_error"] = float(np.max(np.abs(t_back / t - 1)))
 
     # --- 5-band fit
-    keys = ["jc.B", "jc.V", "jc.Ic", "2mass.J", "2mass.Ks"]
+    keys = ["B_JC", "V_JC", "Ic_JC", "J_2MASS", "Ks_2MASS"]
     m = args.fit_stars
     tf = np.exp(rng.uniform(np.log(3000), np.log(30000), m))
     ef = rng.uniform(0, 1, m)
@@ -142,7 +142,7 @@ def main():
     out["fit_goal_seconds"] = 5.0
 
     # --- naive, small sample
-    bps, vega, extinction = synphot_setup(["jc.B", "jc.V"])
+    bps, vega, extinction = synphot_setup(["B_JC", "V_JC"])
     k = args.naive
     t0 = time.perf_counter()
     for i in range(k):
