@@ -145,11 +145,3 @@ def test_outside_calibration_only_for_a_colour_that_should_have_worked():
     assert not res["flags"][0] & fl.OUTSIDE_CALIBRATION
     assert res["flags"][1] & fl.OUTSIDE_CALIBRATION and res["cal_used"][1] == "c10_vk"
 
-
-def test_reddening_dominates_is_judged_on_the_calibrated_temperature():
-    m = {"jc.B": [10.64], "jc.V": [10.0], "2mass.Ks": [8.5]}
-    e = {k: [0.005] for k in m}
-    # 0.05 mag: the error grows from 25 K to 160 K; (with 0.3 mag the two colours fix E(B-V)
-    # better than the prior does, and the prior no longer dominates)
-    assert estimate(m, e, ebv=0.0, ebv_err=0.05, feh=0.0, logg=4.4)["flags"][0] & fl.REDDENING_DOMINATES
-    assert not estimate(m, e, ebv=0.0, ebv_err=0.005, feh=0.0, logg=4.4)["flags"][0] & fl.REDDENING_DOMINATES
