@@ -277,6 +277,11 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
                           law, rv, n, notes, monte_carlo, seed)
     flags |= cal.flags
     flags |= np.where(cal.p_value < fl.DISAGREE_P, fl.COLOURS_DISAGREE, 0)
+    # where there is a calibrated T_eff (the one to quote), the reddening's share is judged on it
+    has_cal = np.isfinite(cal.teff)
+    red_cal = has_cal & (cal.ebv_share > fl.REDDENING_SHARE)
+    flags = np.where(has_cal, (flags & ~fl.REDDENING_DOMINATES) | np.where(red_cal, fl.REDDENING_DOMINATES, 0),
+                     flags)
     usable = np.isfinite(t) | np.isfinite(cal.teff)
     level = fl.row_severity(flags, usable)
 

@@ -90,10 +90,13 @@ class CalibratedTeff:
         Each relation's own temperature and its total 1σ error (photometry,
         E(B−V) when given, [Fe/H], scatter), K; NaN where not used.
     outside : ndarray of bool
-        A relation had the colour but the star is outside its range.
+        A measured colour went unused although its relations cover the star's T_eff.
     notes : ndarray of str
         Per star, the luminosity class assumed and why no relation applied
         ('' when there is nothing to say).
+    ebv_share : ndarray
+        Share of the variance of ``teff`` that comes from the given E(B−V)
+        error (its prior, when E(B−V) is fitted), 0…1.
     """
 
     teff: np.ndarray
@@ -112,6 +115,7 @@ class CalibratedTeff:
     err_each: np.ndarray
     outside: np.ndarray
     notes: np.ndarray
+    ebv_share: np.ndarray = None
 
     @property
     def flags(self):
@@ -197,21 +201,19 @@ def _evaluate(setup, m, ex, de, dt, feh, logg, allowed=None):
     s = np.full((n, r), np.nan)
     g = np.full((n, r), np.nan)
     used = np.zeros((n, r), bool)
-    outside = np.zeros(n, bool)
     for i, rel in enumerate(setup.rels):
         cand = rel.applies_to(logg) & np.isfinite(x[:, i])
         ti, inside = rel.teff(x[:, i], feh, logg)
         si = rel.dteff_dcolour(x[:, i], feh, logg)
         gi = rel.dteff_dfeh(x[:, i], feh, logg)
         ok = cand & inside & np.isfinite(ti) & np.isfinite(si)
-        outside |= cand & ~ok
         if allowed is not None:
             ok &= allowed[:, i]
         used[:, i] = ok
         t[:, i] = np.where(ok, ti, np.nan)
         s[:, i] = np.where(ok, si, 0.0)
         g[:, i] = np.where(ok & np.isfinite(gi), gi, 0.0)
-    return x, kx, kt, t, s, g, used, outside
+    return x, kx, kt, t, s, g, used
 
 
 def _linearise_at(setup, t_hat, x, y, s, g, used, feh, logg):
@@ -386,9 +388,9 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
             # and is noisy: the excess changes by 0.02-0.05 mag per 1,000 K at E(B-V) = 1)
             t_ref = np.where(np.isfinite(t_hat), t_hat, t_ref)
         ex, de, dt = colour_excess(keys, t_ref, e_lin, law, rv)
-        x, kx, kt, y, s, g, used, outside = _evaluate(setup, m, ex, de, dt, feh, logg, allowed)
+        x, kx, kt, y, s, g, used = _evaluate(setup, m, ex, de, dt, feh, logg, allowed)
         if it == 0:
-            setup0, x0, outside0 = setup, x, outside
+            setup0, x0 = setup, x
             # relations no star can use drop out of the matrices; with E(B-V) given, a star keeps
             # the relations of this first pass (so each row's result is independent of the others)
             keep = used.any(axis=0) if not fit_ebv else np.column_stack(
@@ -401,7 +403,7 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
             allowed = None if fit_ebv else used.copy()
             if r == 0:
                 notes = _notes(setup0, x0, logg, feh_given, fit_ebv, prior_prec, np.zeros(n, int))
-                return _nothing(n, setup0, outside0, notes)
+                return _nothing(n, setup0, np.zeros(n, bool), notes)
         if t_hat is not None:
             y, s, g = _linearise_at(setup, t_hat, x, y, s, g, used, feh, logg)
         sc = _scatter(setup, t_ref)
@@ -468,10 +470,43 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
         lo = np.where(bad, np.nan, lo)
         hi = np.where(bad, np.nan, hi)
 
+    # the estimator is linear in the data: its E(B-V) part is (Ly·v)² σ_E², or Lp² σ_E² (prior)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        if fit_ebv:
+            e_var = np.where(prior_prec > 0, lp[:, 0] ** 2 / np.where(prior_prec > 0, prior_prec, 1), 0)
+        else:
+            e_var = (np.einsum("nr,nr->n", ly[:, 0, :], np.where(used, v, 0.0)) * ebv_err) ** 2
+        share = np.where(bad, np.nan, e_var / teff_err**2)
     notes = _notes(setup0, x0, logg, feh_given, fit_ebv, prior_prec, n_used)
     return CalibratedTeff(teff, teff_err, lo, hi, ebv_fit, ebv_fit_err, chi2, dof, p_value, n_used,
                           used_all, tuple(rel.key for rel in setup0.rels), teff_each, err_each,
-                          outside | outside0, notes)
+                          _outside(setup0, x0, used_all, teff, feh, logg), notes, share)
+
+
+def _outside(setup, x, used, teff, feh, logg):
+    """Stars with a measured colour left unused although their T_eff is one its relations cover.
+
+    A colour with no relation for the star's temperature (U−B of a cool
+    star, V−Ic of an A star) is simply not calibrated there; a colour whose
+    relations do cover the star's calibrated T_eff but whose observed value
+    fell outside them points at the photometry or the reddening.
+    """
+    n = x.shape[0]
+    out = np.zeros(n, bool)
+    covered, had = {}, {}
+    for i, rel in enumerate(setup.rels):
+        cand = rel.applies_to(logg) & np.isfinite(x[:, i])
+        if not cand.any():
+            continue
+        ends = [rel.teff(np.full(n, c), feh, logg)[0] for c in rel.colour_range]
+        lo, hi = np.fmin(*ends), np.fmax(*ends)
+        with np.errstate(invalid="ignore"):
+            inside_t = cand & (teff >= lo) & (teff <= hi)
+        covered[rel.bands] = covered.get(rel.bands, False) | inside_t
+        had[rel.bands] = had.get(rel.bands, False) | used[:, i]
+    for pair, c in covered.items():
+        out |= c & ~had[pair]
+    return out
 
 
 def _nothing(n, setup, outside, notes):
@@ -480,7 +515,7 @@ def _nothing(n, setup, outside, notes):
     r = len(setup.rels)
     return CalibratedTeff(nan, nan, nan, nan, nan, nan, nan, np.zeros(n, int), nan, np.zeros(n, int),
                           np.zeros((n, r), bool), tuple(rel.key for rel in setup.rels),
-                          np.full((n, r), np.nan), np.full((n, r), np.nan), outside, notes)
+                          np.full((n, r), np.nan), np.full((n, r), np.nan), outside, notes, nan)
 
 
 #: E(B−V) grid, mag, scanned for the start of a fit without a prior
@@ -494,7 +529,7 @@ def _start_ebv(setup, m, sig_m, keys, t_ref, feh, feh_err, logg, law, rv):
     start = np.zeros(n)
     for e in _START_GRID:
         ex, de, dt = colour_excess(keys, t_ref, np.full(n, e), law, rv)
-        _, _, _, y, s, g, used, _ = _evaluate(setup, m, ex, de, dt, feh, logg)
+        _, _, _, y, s, g, used = _evaluate(setup, m, ex, de, dt, feh, logg)
         c = _covariance(setup, s, g, used, sig_m, feh_err, _scatter(setup, t_ref))
         _, _, chi2, _, _ = _gls(c, np.ones(y.shape + (1,)), y, used, np.zeros(n), np.zeros(n))
         score = used.sum(axis=1) * 1e6 - np.where(np.isfinite(chi2), chi2, 1e5)

@@ -27,13 +27,15 @@ NO_SOLUTION = 1 << 1
 AT_GRID_EDGE = 1 << 2
 #: near the Rayleigh–Jeans limit the colour barely changes: the upper error is a lower limit
 RJ_LIMIT = 1 << 3
-#: a calibrated relation was used outside its published validity range (not applied)
+#: a measured colour went unused although its relations cover the star's T_eff (its value
+#: lies outside their published ranges)
 OUTSIDE_CALIBRATION = 1 << 4
 #: multi-band fit: the magnitudes are not those of one reddened blackbody, p(χ²) below
 #: `POOR_FIT_P` (expected for real stars measured to ~0.01 mag: information only)
 POOR_FIT = 1 << 5
 BLACKBODY_MISFIT = POOR_FIT
-#: the E(B−V) error makes up more than `REDDENING_SHARE` of the variance of T_bb
+#: the E(B−V) error makes up more than `REDDENING_SHARE` of the variance of teff_cal
+#: (of T_bb where there is no calibrated temperature)
 REDDENING_DOMINATES = 1 << 6
 #: value outside physically plausible limits (e.g. |mag| > 40, negative error)
 ABSURD_VALUE = 1 << 7
@@ -88,12 +90,13 @@ RULES = {
     NO_SOLUTION: "the colour is bluer than a blackbody of any temperature (Rayleigh-Jeans limit)",
     AT_GRID_EDGE: "T_bb at the grid edge (1,000 or 100,000 K): only a limit is meaningful",
     RJ_LIMIT: "the upper 68 % bound of T_bb is unbounded: T_bb is a lower limit",
-    OUTSIDE_CALIBRATION: "a relation had the star's colour but the star lies outside its "
-                         "published colour or [Fe/H] range; that relation was not used",
+    OUTSIDE_CALIBRATION: "a measured colour was not used although its relations cover the star's "
+                         "calibrated T_eff: its dereddened value lies outside their published colour "
+                         "or [Fe/H] range (check that band or the reddening)",
     POOR_FIT: f"the magnitudes are not those of one reddened blackbody: p(chi2) < {POOR_FIT_P:g} "
               "(normal for real stars measured to ~0.01 mag; T_bb is the best-matching blackbody)",
     REDDENING_DOMINATES: f"the E(B-V) error makes up more than {REDDENING_SHARE:.0%} of the "
-                         "variance of T_bb",
+                         "variance of teff_cal (of T_bb where there is no teff_cal)",
     ABSURD_VALUE: "a value outside plausible limits (|mag| > 40, error < 0 or > 5 mag) was "
                   "dropped with its band",
     NO_CALIBRATION: "no calibrated T_eff (no relation for these colours, luminosity class or range)",
