@@ -3,7 +3,8 @@
 Three functional forms, one evaluation path (`Relation`):
 
 * ``theta`` — θ = S / T_eff = Σ cᵢ Xᵖ [Fe/H]ᑫ (S = 5040 K): the infrared-flux-
-  method relations (Casagrande et al. 2010; Mucciarelli et al. 2021);
+  method relations (Casagrande et al. 2010; González Hernández & Bonifacio
+  2009; Mucciarelli et al. 2021);
 * ``linear`` — T_eff = S · Σ cᵢ Xᵖ [Fe/H]ᑫ (S = 3500 K for Mann et al. 2015);
 * ``table`` — T_eff interpolated linearly in a tabulated intrinsic-colour
   sequence (Pecaut & Mamajek 2013), used only where the colour is monotonic.
@@ -21,6 +22,10 @@ Loaded relations (see each table's metadata for what was verified):
 * Casagrande, Ramírez, Meléndez, Bessell & Asplund 2010, A&A 512, A54,
   Table 4 — FGK dwarfs and subgiants; B−V, V−Rc, (R−I)c, V−Ic, V−J, V−H,
   V−Ks, J−Ks.
+* González Hernández & Bonifacio 2009, A&A 497, 497, Table 5 — giants
+  (log g < 3) in B−V, V−Rc, V−J, V−H, V−Ks, J−Ks, [Fe/H] −4.0 to +0.2
+  (from a public transcription; only J−Ks is cross-checked against a
+  second copy, the other rows are marked unverified in the table).
 * Mucciarelli, Bellazzini & Massari 2021, A&A 653, A90, Table 1 — Gaia
   (BP−RP)₀ for dwarfs (log g ≥ 3) and giants (log g < 3).
 * Mann, Feiden, Gaidos, Boyajian & von Braun 2015, ApJ 804, 64, Table 2 as
