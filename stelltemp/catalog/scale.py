@@ -71,6 +71,9 @@ def run_catalogue_dask(
     law="G23",
     method="auto",
     fit_ebv=False,
+    feh_err=None,
+    cal_ebv=False,
+    cal_detail=False,
     overwrite=False,
     quiet=False,
     engine=None,
@@ -113,7 +116,8 @@ def run_catalogue_dask(
         raise StelltempError(f"{input_path}: Dask runs read Parquet input (run CSV and others locally)")
     if local not in LOCAL_SCHEDULERS:
         raise StelltempError(f"unknown local scheduler '{local}' (use {', '.join(LOCAL_SCHEDULERS)})")
-    opts = RunOptions(rv=float(rv), law=law, method=method, fit_ebv=bool(fit_ebv))
+    opts = RunOptions(rv=float(rv), law=law, method=method, fit_ebv=bool(fit_ebv), cal_ebv=bool(cal_ebv),
+                      cal_detail=bool(cal_detail))
     opts.check()
     tableio.check_output(output_path, overwrite, input_path)
     reader = tableio.ChunkReader(input_path) if not os.path.isdir(input_path) else None
@@ -125,7 +129,7 @@ def run_catalogue_dask(
     if len(set(in_schema.names)) != len(in_schema.names):
         raise StelltempError(f"{input_path}: repeated column names; run locally (it renames them)")
     check_old_results(input_path, in_schema.names, renew=False)  # a result table: renew it locally
-    cmap = resolve_mapping(in_schema.names, mapping, ebv, ebv_err)
+    cmap = resolve_mapping(in_schema.names, mapping, ebv, ebv_err, feh_err=feh_err)
     engine = engine or default_engine()
 
     empty = in_schema.empty_table()

@@ -29,6 +29,7 @@ def add(subparsers):
     p.add_argument("--columns", metavar="MAP.toml", help="column map file ([bands], [columns], [values])")
     options.add_reddening(p, column=True)
     p.add_argument("--fit-ebv", action="store_true", help="fit E(B-V) from the photometry")
+    options.add_calibration(p, column=True)
     p.add_argument("--method", default="auto", choices=["auto", "colour", "fit"], help="engine method")
     options.add_replace(p)
     p.add_argument("--renew-results", action="store_true",
@@ -72,7 +73,8 @@ def run(args, out=None, err=None, engine=None):
     if args.plot:  # refuse before the long run: folder, format, existing file
         check_figure_path(args.plot, args.replace)
     common = dict(mapping=args.columns, ebv=args.ebv, ebv_err=args.ebv_err, rv=args.rv, law=args.law,
-                  method=args.method, fit_ebv=args.fit_ebv, overwrite=args.replace, quiet=args.quiet, engine=engine)
+                  method=args.method, fit_ebv=args.fit_ebv, feh_err=args.feh_err, cal_ebv=args.cal_ebv,
+                  cal_detail=args.each_relation, overwrite=args.replace, quiet=args.quiet, engine=engine)
     try:
         if args.dask or args.scheduler:
             from ..catalog.scale import run_catalogue_dask
