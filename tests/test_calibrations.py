@@ -632,3 +632,40 @@ def test_ghb09_solar_metallicity_k_giant_colours():
     # 1.01 and 2.48.
     assert _ghb09_colour("ghb09_bv_giant", 4700.0, 0.0) == pytest.approx(1.0, abs=0.08)
     assert _ghb09_colour("ghb09_vk_giant", 4700.0, 0.0) == pytest.approx(2.5, abs=0.15)
+
+
+def test_combination_is_the_engines_gls_with_a_shared_colour():
+    # B-V = 0.25 lies in both the C10 dwarf relation and the PM13 hot-star sequence: the two
+    # read the same measured colour, so its error is common to both (by-hand GLS below)
+    bv, sig = 0.25, 0.05
+    res = cal.combine_teff({("B_JC", "V_JC"): [bv]}, {("B_JC", "V_JC"): [sig]}, feh=[0.0], logg=[4.3])
+    used = [k for k, t in zip(res.keys, res.teff_each[:, 0]) if np.isfinite(t)]
+    assert used == ["c10_bv", "pm13_bv_hot"]
+    t = np.array([float(cal.get_relation(k).teff(bv, 0.0, 4.3)[0]) for k in used])
+    s = np.array([float(cal.get_relation(k).dteff_dcolour(bv, 0.0, 4.3)) for k in used])
+    sc = np.array([float(cal.get_relation(k).scatter_at(tk)) for k, tk in zip(used, t)])
+    c = np.outer(s, s) * sig**2 + np.diag(sc**2)
+    ci = np.linalg.inv(c)
+    w = ci.sum(axis=1) / ci.sum()
+    assert res.teff[0] == pytest.approx(w @ t, abs=1e-6)
+    assert res.teff_err[0] == pytest.approx(ci.sum() ** -0.5, rel=1e-9)
+    r = t - w @ t
+    assert res.chi2[0] == pytest.approx(r @ ci @ r, rel=1e-9)
+    # independent weighting: its true variance under C is larger than the GLS one, and the
+    # error it claimed ignored the shared colour
+    w_ind = (1 / np.diag(c)) / np.sum(1 / np.diag(c))
+    assert w_ind @ c @ w_ind > res.teff_err[0] ** 2
+    assert abs(np.sum(1 / np.diag(c)) ** -0.5 - np.sqrt(w_ind @ c @ w_ind)) > 10.0
+
+
+def test_relations_command_uses_the_combination(capsys):
+    from stelltemp.cli import main
+
+    assert main(["relations", "--use", "c10_vk", "--colour", "1.60", "--colour-err", "0.02",
+                 "--feh", "0.0", "--json"]) == 0
+    import json
+
+    doc = json.loads(capsys.readouterr().out)
+    res = cal.combine_teff({"c10_vk": [1.60]}, {"c10_vk": [0.02]}, feh=[0.0])
+    assert doc["teff_K"] == pytest.approx(float(res.teff[0])) and doc["teff_err_K"] == pytest.approx(
+        float(res.teff_err[0]))
