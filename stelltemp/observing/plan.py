@@ -681,8 +681,13 @@ def plan_night(instrument: Instrument, targets, date, *, snr=None, exposure_s=No
             base.update(max_altitude=w.max_alt_deg, min_airmass=w.min_airmass)
             if w.usable:
                 base.update(window_start=w.start.isot[:19], window_end=w.end.isot[:19], best_time=w.best.isot[:19])
-                if sun_limit != "astronomical" and (astro[0] is None or w.start < astro[0] or w.end > astro[1]):
-                    flags.append("window reaches into twilight: the sky is brighter than the dark-sky values used")
+                if sun_limit != "astronomical":
+                    if astro[0] is None or w.best < astro[0] or w.best > astro[1]:
+                        flags.append("best time is in twilight: the twilight sky is not modelled, so the sky is "
+                                     "brighter and the exposures longer than planned here")
+                    elif w.start < astro[0] or w.end > astro[1]:
+                        flags.append("window reaches into twilight (the twilight sky is not modelled): the numbers "
+                                     "are for the dark sky at the best time")
             else:
                 flags.append(f"no dark time above {min_alt_deg:g} deg" if dark is not None
                              else f"no dark time (Sun never below the {sun_limit} limit)")
@@ -738,6 +743,8 @@ def plan_night(instrument: Instrument, targets, date, *, snr=None, exposure_s=No
         "dark_start": dark[0].isot[:19] if dark else None,
         "dark_end": dark[1].isot[:19] if dark else None,
         "sun_limit": sun_limit,
+        "twilight_sky": ("not modelled: windows may reach into twilight, flagged per target" if sun_limit != "astronomical"
+                         else "not needed: windows lie in astronomical darkness"),
         "min_altitude_deg": min_alt_deg,
         "utc_offset_hours": offset,
         "utc_offset_from": offset_how,
