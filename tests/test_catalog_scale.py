@@ -221,3 +221,16 @@ def test_missing_dask_gives_one_line(monkeypatch):
     monkeypatch.setattr(builtins, "__import__", no_dask)
     with pytest.raises(StelltempError, match=r"stelltemp\[scale\]"):
         scale.require_dask()
+
+
+def test_command_runs_csv_on_dask(tmp_path, capsys):
+    import json
+
+    from stelltemp.cli import build_parser, run_parsed
+
+    inp = tmp_path / "in.csv"
+    inp.write_text("B_JC,V_JC\n11.0,10.5\n12.0,11.0\n")
+    out = tmp_path / "o.parquet"
+    args = build_parser().parse_args(["catalogue", str(inp), "-o", str(out), "--dask", "--workers", "1", "--json"])
+    assert run_parsed(args, engine=fake_estimate) == 0
+    assert json.loads(capsys.readouterr().out)["backend"] == "dask"
