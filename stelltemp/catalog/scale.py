@@ -44,7 +44,6 @@ from stelltemp.catalog.batch import (
     DEFAULT_CHUNK_ROWS,
     RunOptions,
     RunSummary,
-    _without,
     check_old_results,
     compute_chunk,
     default_engine,
@@ -172,7 +171,9 @@ def _work(chunks, ctx, tag):
     path = os.path.join(ctx.part_dir, f"part-{tag:08d}.arrow")
     with pa.OSFile(path, "wb") as fh, pa.ipc.new_file(fh, ctx.out_schema) as writer:
         for chunk, notes in chunks:
-            chunk = _without(chunk.rename_columns(list(ctx.colnames)), ctx.old)
+            chunk = chunk.rename_columns(list(ctx.colnames))
+            if ctx.old:  # an earlier run's result columns, recomputed (--renew-results)
+                chunk = chunk.drop_columns(list(ctx.old))
             res = compute_chunk(chunk, ctx.cmap, ctx.opts, ctx.engine, notes)
             summary.add(res)
             table = merge_arrow(chunk, res, ctx.names, ctx.types, ctx.input_info)
@@ -287,7 +288,7 @@ def run_catalogue_dask(
     if conversions:
         record["conversions"] = "; ".join(conversions)
 
-    empty = _without(reader.empty_chunk(), old)
+    empty = reader.empty_chunk().drop_columns(list(old))
     probe = compute_chunk(empty, cmap, opts, engine)
     names = result_names(colnames, probe.colnames)
     out_schema = merge_arrow(empty, probe, names, types, input_info).schema
@@ -301,7 +302,9 @@ def run_catalogue_dask(
         ctx = PartContext(tuple(reader.colnames), tuple(old), cmap, opts, engine, names, types, input_info,
                           out_schema, chunk_rows, part_dir)
         if reader.fmt == "parquet":
-            meta = reader._pq.metadata
+            import pyarrow.parquet as pq
+
+            meta = pq.ParquetFile(input_path).metadata
             sizes = [meta.row_group(i).num_rows for i in range(meta.num_row_groups)]
             offsets = [sum(sizes[:i]) for i in range(len(sizes))]
             plan = partition_plan(sizes, chunk_rows, nworkers)
