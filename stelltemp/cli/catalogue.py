@@ -40,7 +40,9 @@ def add(subparsers):
     p.add_argument("--quiet", action="store_true", help="no progress bar and no closing summary text")
     options.add_json(p)
     options.add_plot(p, "a colour-temperature diagram of the results (the first rows of the results file)")
-    p.add_argument("--dask", action="store_true", help="run on Dask (Parquet input; needs stelltemp[scale])")
+    p.add_argument("--dask", action="store_true",
+                   help="run on Dask: Parquet read by the workers, CSV read here and computed by the workers "
+                        "(other formats run locally, with a note); needs stelltemp[scale]")
     p.add_argument("--scheduler", metavar="ADDRESS",
                    help="address of a running dask.distributed scheduler (implies --dask)")
     p.add_argument("--workers", type=int, metavar="N", help="local Dask workers (default: all cores)")
@@ -79,11 +81,9 @@ def run(args, out=None, err=None, engine=None):
         if args.dask or args.scheduler:
             from ..catalog.scale import run_catalogue_dask
 
-            if args.renew_results:
-                raise StelltempError("--renew-results works on local runs (leave out --dask)")
-
             summary = run_catalogue_dask(args.input, target, scheduler=args.scheduler, workers=args.workers,
-                                         local=args.dask_local, **common)
+                                         local=args.dask_local, chunk_rows=args.chunk_rows,
+                                         renew_results=args.renew_results, **common)
         else:
             from ..catalog.batch import run_catalogue
 
