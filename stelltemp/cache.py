@@ -16,7 +16,8 @@ Each entry is one ``.npz`` file named by the SHA-256 of its key: the key
 holds the content (not the name) of every input, so an entry is never
 stale: a changed passband curve, law, package version or build code gives
 a new name, and the old file is simply no longer read.  Files are written
-to a temporary name in the same folder and renamed into place, so two
+to a temporary name in the same folder and renamed into place
+(`stelltemp.safeio.atomic_path`), so two
 processes building the same entry at once each write a whole file and the
 last rename wins with identical content; a reader never sees half a file.
 An unreadable or damaged entry is rebuilt; a folder that cannot be
@@ -26,7 +27,6 @@ written leaves the run without a disk cache (nothing fails).
 import hashlib
 import os
 import sys
-import tempfile
 import zipfile
 from pathlib import Path
 
@@ -99,23 +99,16 @@ def load_or_build(kind, key, build):
 
 
 def _store(folder, path, arrays):
-    """Write ``arrays`` to ``path`` through a temporary file and a rename; give up quietly on OSError."""
-    tmp = None
+    """Write ``arrays`` to ``path`` through `stelltemp.safeio.atomic_path`; give up quietly when it cannot."""
+    from .errors import StelltempError
+    from .safeio import atomic_path
+
     try:
         folder.mkdir(parents=True, exist_ok=True)
-        fd, tmp = tempfile.mkstemp(prefix=path.stem + ".", suffix=".tmp", dir=folder)
-        with os.fdopen(fd, "wb") as fh:
+        with atomic_path(path, overwrite=True) as tmp, open(tmp, "wb") as fh:
             np.savez(fh, **arrays)
-        os.replace(tmp, path)
-        tmp = None
-    except OSError:
+    except (OSError, StelltempError):
         pass  # read-only or full: this run goes on without a disk cache
-    finally:
-        if tmp is not None:
-            try:
-                os.unlink(tmp)
-            except OSError:
-                pass
 
 
 def file_digest(path):
