@@ -204,3 +204,10 @@ def test_cached_earth_orientation_table_gives_astropys_positions(tmp_path, monke
         np.testing.assert_allclose(sun, sun_ref, rtol=0, atol=1e-9)
         np.testing.assert_allclose(moon, moon_ref, rtol=0, atol=1e-9)
     assert len(list(tmp_path.glob("eop-*.npz"))) == 1
+
+
+def test_twilight_times_lie_on_the_dark_side_of_their_level(twilights):
+    loc = SITE.location()
+    for name, level in night.SUN_ALTITUDES.items():
+        for when in ("evening", "morning"):
+            assert float(night.sun_altitude(twilights[f"{name}_{when}"], loc)) <= level

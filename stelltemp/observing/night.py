@@ -183,7 +183,8 @@ def twilight_times(date, site, step_min=10.0):
     All crossings are solved together by the Illinois variant of regula
     falsi (Dowell & Jarratt 1971, BIT 11, 168) on their grid brackets: one
     Sun-position evaluation per step for every crossing at once, steps until
-    every bracket is below 1e-6 d (0.09 s).  A night asked for again in the
+    every bracket is below 1e-6 d (0.09 s); the end of the bracket with the
+    Sun at or below the level is returned.  A night asked for again in the
     same run (same date, site position and step) is not solved again.
     """
     memo = (parse_date(date), float(site.latitude_deg), float(site.longitude_deg), float(site.elevation_m),
@@ -237,7 +238,9 @@ def _solve_crossings(mjd, alt, found, loc, xtol=1e-6, max_steps=40):
         side = np.where(left, 1, np.where(right, -1, 0))
         if np.all(np.abs(fx[open_]) < 1e-9):
             a, b = np.where(open_, x, a), np.where(open_, x, b)
-    return list(np.where(np.abs(b - a) <= xtol, np.where(np.abs(fa) < np.abs(fb), a, b), x))
+    # the end of the final bracket on the dark side of the level (Sun at or below it), so a dark
+    # interval bounded by these times never starts or ends a hair above its Sun altitude
+    return list(np.where(np.abs(b - a) <= xtol, np.where(fa <= 0, a, b), x))
 
 
 def dark_interval(twilights, sun_limit="astronomical"):
