@@ -16,7 +16,8 @@ Each entry is one ``.npz`` file named by the SHA-256 of its key: the key
 holds the content (not the name) of every input, so an entry is never
 stale: a changed passband curve, law, package version or build code gives
 a new name, and the old file is simply no longer read.  Files are written
-to a temporary name in the same folder and renamed into place, so two
+to a temporary name in the same folder and renamed into place
+(`stelltemp.safeio.atomic_path`), so two
 processes building the same entry at once each write a whole file and the
 last rename wins with identical content; a reader never sees half a file.
 An unreadable or damaged entry is rebuilt; a folder that cannot be
@@ -26,7 +27,6 @@ written leaves the run without a disk cache (nothing fails).
 import hashlib
 import os
 import sys
-import tempfile
 import zipfile
 from pathlib import Path
 
@@ -99,23 +99,16 @@ def load_or_build(kind, key, build):
 
 
 def _store(folder, path, arrays):
-    """Write ``arrays`` to ``path`` through a temporary file and a rename; give up quietly on OSError."""
-    tmp = None
+    """Write ``arrays`` to ``path`` through `stelltemp.safeio.atomic_path`; give up quietly when it cannot."""
+    from .errors import StelltempError
+    from .safeio import atomic_path
+
     try:
         folder.mkdir(parents=True, exist_ok=True)
-        fd, tmp = tempfile.mkstemp(prefix=path.stem + ".", suffix=".tmp", dir=folder)
-        with os.fdopen(fd, "wb") as fh:
+        with atomic_path(path, overwrite=True) as tmp, open(tmp, "wb") as fh:
             np.savez(fh, **arrays)
-        os.replace(tmp, path)
-        tmp = None
-    except OSError:
+    except (OSError, StelltempError):
         pass  # read-only or full: this run goes on without a disk cache
-    finally:
-        if tmp is not None:
-            try:
-                os.unlink(tmp)
-            except OSError:
-                pass
 
 
 def file_digest(path):
@@ -125,3 +118,69 @@ def file_digest(path):
         for block in iter(lambda: fh.read(1 << 20), b""):
             h.update(block)
     return h.hexdigest()
+
+
+def read_ecsv(path):
+    """An ECSV file as an astropy Table, parsed once and then kept in the disk cache.
+
+    Parsing ECSV (YAML header, text columns) takes tenths of a second per
+    file and pulls in astropy's YAML machinery (astropy.coordinates,
+    astropy.time); the built-in registries and passband curves are read on
+    every run, so their columns, units, descriptions, formats and metadata
+    are stored as one entry keyed by the file's content.  A table the
+    entry cannot hold (object columns, metadata that is not JSON) is simply
+    read again each time.
+
+    Parameters
+    ----------
+    path : path-like
+
+    Returns
+    -------
+    astropy.table.Table
+    """
+    import json
+
+    from astropy.table import Column, MaskedColumn, Table
+
+    path = Path(path)
+    key = digest("ecsv", file_digest(path))
+    spilled = []
+
+    def build():
+        table = Table.read(path, format="ascii.ecsv")
+        spilled.append(table)
+        info, arrays = [], {}
+        for i, name in enumerate(table.colnames):
+            col = table[name]
+            if col.dtype.kind == "O" or col.ndim != 1:
+                return {}  # not storable without pickle: read it each time
+            mask = np.ma.getmaskarray(col) if getattr(col, "mask", None) is not None else None
+            arrays[f"c{i}"] = np.asarray(col.data if mask is not None else col)
+            if mask is not None:
+                arrays[f"m{i}"] = mask
+            info.append({"name": name, "unit": None if col.unit is None else col.unit.to_string(),
+                         "description": col.info.description, "format": col.info.format,
+                         "masked": mask is not None})
+        try:
+            text = json.dumps({"columns": info, "meta": dict(table.meta)})
+        except (TypeError, ValueError):
+            return {}
+        if json.loads(text)["meta"] != dict(table.meta):  # not JSON-exact (e.g. tuples): keep parsing
+            return {}
+        arrays["info"] = np.array(text)
+        return arrays
+
+    stored = load_or_build("ecsv", key, build)
+    if spilled:  # built in this run: the parsed table itself
+        return spilled[0]
+    if "info" not in stored:
+        return Table.read(path, format="ascii.ecsv")
+    info = json.loads(str(stored["info"]))
+    out = Table(meta=info["meta"])
+    for i, c in enumerate(info["columns"]):
+        kind = MaskedColumn if c["masked"] else Column
+        extra = {"mask": stored[f"m{i}"]} if c["masked"] else {}
+        out[c["name"]] = kind(stored[f"c{i}"], unit=c["unit"], description=c["description"],
+                              format=c["format"], **extra)
+    return out

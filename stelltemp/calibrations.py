@@ -487,11 +487,11 @@ def load_relations(path):
     -------
     list of Relation
     """
-    from astropy.table import Table  # imported here: only needed when loading
+    from .cache import read_ecsv  # parsed once, then from the disk cache
 
     path = Path(path)
     try:
-        table = Table.read(path, format="ascii.ecsv")
+        table = read_ecsv(path)
     except Exception as exc:  # noqa: BLE001 - any reader failure is bad input
         raise StelltempError(f"cannot read calibration table {path.name}: {exc}") from None
     meta = table.meta

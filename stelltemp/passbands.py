@@ -39,6 +39,7 @@ import numpy as np
 from astropy import units as u
 from astropy.table import Table
 
+from . import cache
 from .errors import RenamedWarning, StelltempError, plain_reason
 
 import warnings
@@ -220,7 +221,7 @@ def registry_table():
 def _registry():
     path = resources.files("stelltemp") / "data" / "passbands.ecsv"
     with resources.as_file(path) as p:
-        return Table.read(p, format="ascii.ecsv")
+        return cache.read_ecsv(p)
 
 
 def builtin_keys():
@@ -312,7 +313,7 @@ def _builtin(key):
     row = reg[reg["key"] == key][0]
     curve = resources.files("speclite") / "data" / "filters" / f"{row['curve_file']}.ecsv"
     with resources.as_file(curve) as p:
-        tab = Table.read(p, format="ascii.ecsv")
+        tab = cache.read_ecsv(p)
     wave = u.Quantity(tab["wavelength"], u.AA if tab["wavelength"].unit is None else None)
     wave, response = _close_gaps(*_checked_curve(wave.to_value(u.AA), tab["response"], key))
     citation = str(row["curve_source"])

@@ -23,12 +23,12 @@ CODATA 2018 (Tiesinga et al. 2021, Rev. Mod. Phys. 93, 025010) through
 ``astropy.constants``.
 """
 
+import math
 from functools import lru_cache
 
 import numpy as np
 from astropy import constants as const
 from astropy import units as u
-from scipy.optimize import brentq
 
 from .errors import StelltempError
 
@@ -119,7 +119,19 @@ def wien_root(power):
     peak" depends on the variable one differentiates against and on whether
     one counts energy or photons (Rybicki & Lightman 1979, §1.5).
     """
-    return brentq(lambda x: power * -np.expm1(-x) - x, 1e-3, power + 1.0, xtol=1e-15, rtol=1e-15)
+    # Newton's method from x = power (the root lies just below it for power ≥ 2); plain floats,
+    # so the derived quantities need no root finder (scipy.optimize costs ~0.4 s of start-up).
+    p = float(power)
+    if not p > 1.0:
+        raise StelltempError(f"wien_root needs a power above 1, got {power!r}")
+    x = p
+    for _ in range(60):
+        f = p * -math.expm1(-x) - x
+        step = f / (p * math.exp(-x) - 1.0)
+        x -= step
+        if abs(step) <= 1e-15 * x:
+            break
+    return x
 
 
 def wien_b_lambda():

@@ -113,3 +113,42 @@ def test_two_processes_building_at_once_both_get_the_table(tmp_path):
     assert all(p.suffix == ".npz" for p in entries)  # whole files only, no temporary left
     with np.load(next(p for p in entries if p.name.startswith("band-"))) as z:
         assert float(np.sum(z["coef"])) == pytest.approx(sums[0], rel=0, abs=0)
+
+
+def _same_table(a, b):
+    assert a.colnames == b.colnames
+    assert dict(a.meta) == dict(b.meta)
+    for name in a.colnames:
+        x, y = a[name], b[name]
+        assert type(x) is type(y) and x.dtype == y.dtype and x.unit == y.unit
+        assert x.info.description == y.info.description and x.info.format == y.info.format
+        assert np.array_equal(np.ma.getmaskarray(x), np.ma.getmaskarray(y))
+        if x.dtype.kind == "f":
+            np.testing.assert_array_equal(np.ma.filled(x, 0.0), np.ma.filled(y, 0.0))
+        else:
+            assert list(x) == list(y)
+
+
+def test_ecsv_from_the_cache_equals_a_fresh_parse(tmp_path, monkeypatch):
+    from astropy.table import Table
+
+    from stelltemp.calibrations import CALIBRATION_DIR
+
+    monkeypatch.setenv(cache.ENV_VAR, str(tmp_path / "c"))
+    path = tmp_path / "t.ecsv"
+    t = Table({"key": ["a", "bb", "c"], "x": [1.5, np.nan, 3.0], "n": [1, 2, 3]},
+              meta={"citation": "invented", "terms": ["1", "X"], "scale": 5040.0})
+    t["x"].unit = "mag"
+    t["x"].info.description = "a number"
+    t["n"] = np.ma.MaskedArray([1, 2, 3], mask=[False, True, False])
+    t.write(path, format="ascii.ecsv")
+    fresh = Table.read(path, format="ascii.ecsv")
+    first = cache.read_ecsv(path)  # parsed and stored
+    assert len(list((tmp_path / "c").glob("ecsv-*.npz"))) == 1
+    _same_table(fresh, first)
+    _same_table(fresh, cache.read_ecsv(path))  # from the entry
+    for builtin in sorted(CALIBRATION_DIR.glob("*.ecsv"))[:3]:
+        cache.read_ecsv(builtin)
+        _same_table(Table.read(builtin, format="ascii.ecsv"), cache.read_ecsv(builtin))
+    path.write_text(path.read_text().replace("3.0", "4.0"))  # new content: a new entry
+    assert cache.read_ecsv(path)["x"][2] == 4.0

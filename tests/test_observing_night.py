@@ -4,6 +4,7 @@ import math
 
 import numpy as np
 import pytest
+from astropy import units as u
 from astropy.time import Time
 
 from stelltemp.errors import StelltempError
@@ -151,3 +152,62 @@ def test_dates_and_grid_errors():
         night.night_grid("2025-01-01", SITE, 0.0)
     # far-future dates work offline (IERS extrapolated, no download)
     assert night.night_grid("2031-01-05", SITE, 60.0).shape == (25,)
+
+
+def test_twilights_solved_together_agree_with_brent_per_crossing():
+    # reference: scipy's Brent root finder on astropy's Sun altitude, one crossing at a time
+    from scipy.optimize import brentq
+
+    site = Site(-30.2, -70.7, 2200.0, 1.0)
+    tw = night.twilight_times("2026-12-02", site, step_min=15.0)
+    loc = site.location()
+    grid = night.night_grid("2026-12-02", site, 15.0)
+    alt = night.sun_altitude(grid, loc)
+
+    def f(mjd, level):
+        return float(night.sun_altitude(Time(mjd, format="mjd", scale="utc"), loc)) - level
+
+    checked = set()
+    for name, level in night.SUN_ALTITUDES.items():
+        for i, direction in night._crossings(grid, alt, level):
+            key = f"{name}_{'evening' if direction == 'down' else 'morning'}"
+            if key in checked:
+                continue
+            checked.add(key)
+            root = brentq(f, grid[i].mjd, grid[i + 1].mjd, args=(level,), xtol=1e-7)
+            assert abs(tw[key].mjd - root) * 86400 < 0.2  # seconds
+    assert len(checked) == 8
+    assert night.twilight_times("2026-12-02", site, step_min=15.0) == tw  # asked again: the same night
+
+
+def test_cached_earth_orientation_table_gives_astropys_positions(tmp_path, monkeypatch):
+    # reference: astropy's own offline table (bundled IERS-A/B files), read by astropy itself
+    from astropy.coordinates import AltAz, get_body, get_sun
+    from astropy.utils import iers
+
+    from stelltemp import cache
+
+    monkeypatch.setenv(cache.ENV_VAR, str(tmp_path))
+    monkeypatch.setattr(night, "_EOP", {})
+    loc = SITE.location()
+    times = Time("2026-12-02T00:00:00") + np.linspace(0.0, 48.0, 40) * u.hour
+    with iers.conf.set_temp("auto_download", False), iers.conf.set_temp("iers_degraded_accuracy", "ignore"):
+        frame = AltAz(obstime=times, location=loc)
+        sun_ref = get_sun(times).transform_to(frame).alt.deg
+        moon_ref = get_body("moon", times, loc).transform_to(frame).alt.deg
+    for _ in range(2):  # built, then read from the disk cache
+        monkeypatch.setattr(night, "_EOP", {})
+        with night.offline_iers():
+            frame = AltAz(obstime=times, location=loc)
+            sun = get_sun(times).transform_to(frame).alt.deg
+            moon = get_body("moon", times, loc).transform_to(frame).alt.deg
+        np.testing.assert_allclose(sun, sun_ref, rtol=0, atol=1e-9)
+        np.testing.assert_allclose(moon, moon_ref, rtol=0, atol=1e-9)
+    assert len(list(tmp_path.glob("eop-*.npz"))) == 1
+
+
+def test_twilight_times_lie_on_the_dark_side_of_their_level(twilights):
+    loc = SITE.location()
+    for name, level in night.SUN_ALTITUDES.items():
+        for when in ("evening", "morning"):
+            assert float(night.sun_altitude(twilights[f"{name}_{when}"], loc)) <= level

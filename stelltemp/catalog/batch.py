@@ -403,11 +403,31 @@ def _without(chunk, drop):
     return chunk[keep]
 
 
+class _NoBar:
+    """Stands in for a hidden progress bar."""
+
+    disable = True
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        return False
+
+    def update(self, n=1):
+        pass
+
+    def close(self):
+        pass
+
+
 def progress_bar(total, quiet):
     """A tqdm bar of rows on stderr, hidden when `quiet` or stderr is not a terminal."""
+    hidden = quiet or not sys.stderr.isatty()
+    if hidden:  # tqdm.auto pulls in asyncio: not worth its start-up for a bar nobody sees
+        return _NoBar()
     from tqdm.auto import tqdm
 
-    hidden = quiet or not sys.stderr.isatty()
     return tqdm(total=total, unit="row", unit_scale=True, disable=hidden, delay=1.0, file=sys.stderr,
                 desc="stelltemp")
 

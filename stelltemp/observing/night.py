@@ -9,8 +9,8 @@ silenced.
 
 The night of a date is the 24 h from local noon of that date to local noon
 of the next day, local noon being 12 h UT minus longitude/15°.  Twilight
-times are found by root finding (Brent) on the Sun's altitude after
-bracketing the crossings on a coarse time grid; refraction is not applied
+times are found by root finding (regula falsi, all crossings together) on
+the Sun's altitude after bracketing the crossings on a coarse time grid; refraction is not applied
 (the −0.833° sunset altitude includes it by convention).
 """
 
@@ -26,7 +26,6 @@ from astropy import units as u
 from astropy.coordinates import AltAz, SkyCoord, get_body, get_sun
 from astropy.time import Time
 from astropy.utils import iers
-from scipy.optimize import brentq
 
 from ..errors import StelltempError
 from .airmass import airmass_kasten_young
@@ -49,6 +48,50 @@ __all__ = [
 SUN_ALTITUDES = {"sun": -0.833, "civil": -6.0, "nautical": -12.0, "astronomical": -18.0}
 
 
+#: columns of the Earth-orientation table that time and alt-az transforms read
+_EOP_COLUMNS = ("MJD", "UT1_UTC", "PM_x", "PM_y", "UT1Flag", "PolPMFlag")
+_EOP = {}
+
+
+def _eop_table():
+    """The bundled Earth-orientation table (IERS-A with IERS-B), parsed once and then disk-cached.
+
+    astropy parses the bundled text files (about 20,000 daily rows) in the
+    first transform of every process, about 1 s of a short run.  The
+    columns it uses are kept in stelltemp's disk cache, keyed by the bytes
+    of those files and astropy's version, and set as astropy's table: the
+    same numbers, so positions are identical to astropy's own offline ones.
+    """
+    if "table" in _EOP:
+        return _EOP["table"]
+    from astropy import __version__ as astropy_version
+    from astropy.table import QTable
+
+    from .. import cache
+
+    def build():
+        full = iers.IERS_Auto.open()
+        cols = {c: np.asarray(getattr(full[c], "value", full[c])) for c in _EOP_COLUMNS}
+        cols["predictive_mjd"] = np.asarray(getattr(full.meta["predictive_mjd"], "value",
+                                                    full.meta["predictive_mjd"]), float)
+        cols["predictive_index"] = np.asarray(full.meta["predictive_index"], int)
+        return cols
+
+    try:
+        key = cache.digest("eop", 2, _EOP_COLUMNS, astropy_version, cache.file_digest(iers.IERS_A_FILE),
+                           cache.file_digest(iers.IERS_B_FILE))
+        cols = cache.load_or_build("eop", key, build)
+        units = {"MJD": u.day, "UT1_UTC": u.s, "PM_x": u.arcsec, "PM_y": u.arcsec}
+        meta = {"predictive_mjd": float(cols["predictive_mjd"]), "predictive_index": int(cols["predictive_index"]),
+                "data_path": iers.IERS_A_FILE}
+        table = iers.IERS_Auto(QTable({c: (cols[c] * units[c] if c in units else cols[c]) for c in _EOP_COLUMNS},
+                                      meta=meta))
+    except (OSError, KeyError, AttributeError, ValueError):  # an unusual astropy install: let astropy read it
+        table = None
+    _EOP["table"] = table
+    return table
+
+
 @contextmanager
 def offline_iers():
     """Run astropy time/coordinate code with no IERS downloads and quiet extrapolation."""
@@ -62,6 +105,9 @@ def offline_iers():
 
         warnings.simplefilter("ignore", ErfaWarning)  # "dubious year" for dates beyond the leap-second table
         warnings.simplefilter("ignore", AstropyWarning)  # polar motion / UT1 extrapolation notices
+        table = _eop_table()
+        if table is not None:
+            stack.enter_context(iers.earth_orientation_table.set(table))
         yield
 
 
@@ -109,6 +155,10 @@ def _crossings(grid, alt, level):
     return [(i, "down" if d[i] > 0 else "up") for i in idx]
 
 
+#: twilights already solved in this run, by (date, site position, grid step)
+_TWILIGHTS = {}
+
+
 def twilight_times(date, site, step_min=10.0):
     """Sunset, sunrise and the civil, nautical and astronomical twilights of one night.
 
@@ -127,26 +177,70 @@ def twilight_times(date, site, step_min=10.0):
         Keys ``"<name>_evening"`` and ``"<name>_morning"`` for name in
         ``sun, civil, nautical, astronomical``; values are astropy Time or
         None when the Sun does not cross that altitude that night.
+
+    Notes
+    -----
+    All crossings are solved together by the Illinois variant of regula
+    falsi (Dowell & Jarratt 1971, BIT 11, 168) on their grid brackets: one
+    Sun-position evaluation per step for every crossing at once, steps until
+    every bracket is below 1e-6 d (0.09 s); the end of the bracket with the
+    Sun at or below the level is returned.  A night asked for again in the
+    same run (same date, site position and step) is not solved again.
     """
+    memo = (parse_date(date), float(site.latitude_deg), float(site.longitude_deg), float(site.elevation_m),
+            float(step_min))
+    if memo in _TWILIGHTS:
+        return dict(_TWILIGHTS[memo])
     loc = site.location()
     grid = night_grid(date, site, step_min)
     alt = sun_altitude(grid, loc)
-
-    def f(mjd, level):
-        with offline_iers():
-            t = Time(mjd, format="mjd", scale="utc")
-        return float(sun_altitude(t, loc)) - level
-
+    found = [(name, level, i, direction) for name, level in SUN_ALTITUDES.items()
+             for i, direction in _crossings(grid, alt, level)]
+    roots = _solve_crossings(grid.mjd, alt, found, loc)
     out = {}
-    for name, level in SUN_ALTITUDES.items():
+    for name in SUN_ALTITUDES:
         out[f"{name}_evening"] = out[f"{name}_morning"] = None
-        for i, direction in _crossings(grid, alt, level):
-            root = brentq(f, grid[i].mjd, grid[i + 1].mjd, args=(level,), xtol=1e-6)
-            key = f"{name}_evening" if direction == "down" else f"{name}_morning"
-            if out[key] is None:  # first crossing of each kind after local noon
-                with offline_iers():
-                    out[key] = Time(root, format="mjd", scale="utc")
+    for (name, _, _, direction), root in zip(found, roots):
+        key = f"{name}_evening" if direction == "down" else f"{name}_morning"
+        if out[key] is None:  # first crossing of each kind after local noon
+            with offline_iers():
+                out[key] = Time(root, format="mjd", scale="utc")
+    _TWILIGHTS[memo] = dict(out)
     return out
+
+
+def _solve_crossings(mjd, alt, found, loc, xtol=1e-6, max_steps=40):
+    """MJDs where the Sun's altitude equals each crossing's level (Illinois regula falsi, vectorised)."""
+    if not found:
+        return []
+    level = np.array([f[1] for f in found])
+    idx = np.array([f[2] for f in found])
+    a, b = mjd[idx].copy(), mjd[idx + 1].copy()
+    fa, fb = alt[idx] - level, alt[idx + 1] - level
+    side = np.zeros(len(found), int)
+    x = a.copy()
+    for _ in range(max_steps):
+        open_ = np.abs(b - a) > xtol
+        if not open_.any():
+            break
+        x = np.where(fb != fa, (a * fb - b * fa) / np.where(fb != fa, fb - fa, 1.0), 0.5 * (a + b))
+        with offline_iers():
+            fx = sun_altitude(Time(x, format="mjd", scale="utc"), loc) - level
+        exact = fx == 0
+        left = (np.sign(fx) == np.sign(fa)) & ~exact  # root in [x, b]
+        right = ~left & ~exact  # root in [a, x]
+        # Illinois: halve the value kept twice on the same side, so both ends move
+        fb = np.where(left & (side == 1), 0.5 * fb, fb)
+        fa = np.where(right & (side == -1), 0.5 * fa, fa)
+        a, fa = np.where(left, x, a), np.where(left, fx, fa)
+        b, fb = np.where(right, x, b), np.where(right, fx, fb)
+        a, b = np.where(exact, x, a), np.where(exact, x, b)
+        side = np.where(left, 1, np.where(right, -1, 0))
+        if np.all(np.abs(fx[open_]) < 1e-9):
+            a, b = np.where(open_, x, a), np.where(open_, x, b)
+    # the end of the final bracket on the dark side of the level (Sun at or below it), so a dark
+    # interval bounded by these times never starts or ends a hair above its Sun altitude
+    return list(np.where(np.abs(b - a) <= xtol, np.where(fa <= 0, a, b), x))
 
 
 def dark_interval(twilights, sun_limit="astronomical"):

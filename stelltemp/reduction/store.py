@@ -35,13 +35,13 @@ a :class:`~stelltemp.reduction.fit.Transformation` that
 
 from __future__ import annotations
 
-import hashlib
 import math
 import tomllib
 from pathlib import Path
 
 import numpy as np
 
+from ..cache import file_digest
 from ..errors import StelltempError
 from ..safeio import atomic_path
 from .equations import PARAMETER_UNITS, PARAMETERS, BandSetup
@@ -52,13 +52,8 @@ __all__ = ["FORMAT", "transformation_text", "write_transformation", "read_transf
 FORMAT = "stelltemp transformation 1"
 
 
-def file_sha256(path):
-    """Hex SHA-256 of a file's bytes (for provenance)."""
-    h = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for block in iter(lambda: fh.read(1 << 20), b""):
-            h.update(block)
-    return h.hexdigest()
+#: hex SHA-256 of a file's bytes (for provenance): the one digest function of the package
+file_sha256 = file_digest
 
 
 def _value(v):

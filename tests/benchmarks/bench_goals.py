@@ -19,8 +19,10 @@ Goals (2-core machine):
   file, 5 bands + E(B−V), end to end ≤ 3 × a pyarrow read of the input
   plus a write of the same output;
 * ``fixed_cost``: a ``catalogue`` run on 10,000 rows in a fresh process
-  ≤ 0.8 s (reference: ``stelltemp --help`` in a fresh process);
-* ``tour``: ``stelltemp tour`` in a fresh process ≤ 4 s;
+  ≤ 0.8 s (reference: ``stelltemp --help`` in a fresh process, 0.29 s on a
+  quiet machine, so also reported as a ratio against 0.8 / 0.29);
+* ``tour``: ``stelltemp tour`` in a fresh process ≤ 4 s (same reference
+  and ratio form, 4 / 0.29);
 * ``dask``: 4e6 rows on 2 process workers ≥ 1.6 × faster than the local
   engine on the same file, identical results.
 
@@ -225,21 +227,33 @@ def goal_fixed_cost(repeats):
     with tempfile.TemporaryDirectory() as tmp:
         src, _ = make_catalogue(tmp, 10_000, csv=False)
         pq.read_table(src)
-        _fresh(["-m", "stelltemp.cli", "catalogue", str(src), str(Path(tmp) / "prime.parquet"), "--quiet"])
+        def run(out):  # the same command primes the disk cache and is then timed
+            return _fresh(["-m", "stelltemp.cli", "catalogue", str(src), "-o", str(Path(tmp) / out),
+                           "--ebv", "ebv", "--quiet"])
+
+        run("prime.parquet")
         for r in range(repeats):
             refs.append(_fresh(["-m", "stelltemp.cli", "--help"]))
-            times.append(_fresh(["-m", "stelltemp.cli", "catalogue", str(src), str(Path(tmp) / f"o{r}.parquet"),
-                                 "--ebv", "ebv", "--quiet"]))
-    return _summary(times, refs, 0.8, "seconds")
+            times.append(run(f"o{r}.parquet"))
+    out = _summary(times, refs, 0.8, "seconds")
+    # the goal, 0.8 s beside 0.29 s for --help on a quiet machine, as a ratio that load does not move
+    out["ratio_goal"] = round(0.8 / 0.29, 2)
+    out["met_by_ratio"] = out["ratio_median"] <= out["ratio_goal"]
+    return out
 
 
 def goal_tour(repeats):
     times = []
     with tempfile.TemporaryDirectory() as tmp:
-        _fresh(["-m", "stelltemp.cli", "tour", "--out", str(Path(tmp) / "prime")], cwd=ROOT)
+        _fresh(["-m", "stelltemp.cli", "tour", "--output", str(Path(tmp) / "prime")], cwd=ROOT)
         for r in range(repeats):
-            times.append(_fresh(["-m", "stelltemp.cli", "tour", "--out", str(Path(tmp) / f"t{r}")], cwd=ROOT))
-    return _summary(times, None, 4.0, "seconds")
+            refs.append(_fresh(["-m", "stelltemp.cli", "--help"]))
+            times.append(_fresh(["-m", "stelltemp.cli", "tour", "--output", str(Path(tmp) / f"t{r}")], cwd=ROOT))
+    out = _summary(times, refs, 4.0, "seconds")
+    out["reference"] = "stelltemp --help in a fresh process (same run)"
+    out["ratio_goal"] = round(4.0 / 0.29, 2)  # the goal beside --help's 0.29 s on a quiet machine
+    out["met_by_ratio"] = out["ratio_median"] <= out["ratio_goal"]
+    return out
 
 
 def _one_core(fn, *args, **kwargs):
