@@ -4,7 +4,10 @@ Each quantity has a documented physical range (`RANGES`) and each size the
 user controls has a documented limit (`SIZE_LIMITS`).  The command line and
 the Python API call the same functions, so both refuse the same value with
 the same one-line message (a :class:`~stelltemp.errors.StelltempError`),
-before any work starts.  Catalogue rows use the same ranges, row by row, to
+before any work starts.  The API's message names the parameter
+(``ebv_err``); the command line's names the option typed (``--ebv-err``),
+through the error's ``parameter`` and the parser's own option names
+(``stelltemp.cli.option_names``).  Catalogue rows use the same ranges, row by row, to
 flag a bad cell instead of refusing the run (:mod:`stelltemp.catalog.hygiene`).
 
 Ranges
@@ -24,6 +27,7 @@ name                range                unit    why
 ``parallax``        −1000 … 1000         mas     no star above ~770 mas (from memory)
 ``parallax_err``    0 … 1000             mas
 ``feh``             −10 … 2              dex     known stars −7 … +1 (from memory)
+``feh_err``         0 … 12               dex     as ``feh``
 ``logg``            −2 … 10              dex     supergiants ~0, white dwarfs ~8–9
                                                  (from memory)
 ``seeing``          > 0 … 30             arcsec  worst usable seeing a few arcsec
@@ -118,6 +122,7 @@ RANGES = {
     "parallax": Range(-1000.0, 1000.0, "mas", "parallax"),
     "parallax_err": Range(0.0, 1000.0, "mas", "parallax error"),
     "feh": Range(-10.0, 2.0, "dex", "[Fe/H]"),
+    "feh_err": Range(0.0, 12.0, "dex", "[Fe/H] error"),
     "logg": Range(-2.0, 10.0, "dex", "log g"),
     "seeing": Range(0.0, 30.0, "arcsec", "seeing FWHM", lo_open=True),
     "airmass": Range(1.0, 40.0, "", "airmass"),
@@ -153,12 +158,13 @@ MEMORY_LIMIT_BYTES = 2 << 30
 
 def parse_number(value, name, option=None):
     """A float from a number or text; `StelltempError` naming `option` if it is none."""
+    param = None if option else name
     if isinstance(value, bool):
-        raise StelltempError(f"{option or name} must be a number, got {value!r}")
+        raise StelltempError(f"{option or name} must be a number, got {value!r}", param)
     try:
         return float(value)
     except (TypeError, ValueError, OverflowError):
-        raise StelltempError(f"{option or name} must be a number, got {_short(value)}") from None
+        raise StelltempError(f"{option or name} must be a number, got {_short(value)}", param) from None
 
 
 def check_number(name, value, option=None, rng=None):
@@ -193,7 +199,8 @@ def check_number(name, value, option=None, rng=None):
         label = option or name
         if rng.what.lower() != label.strip("-").replace("_", " ").lower():
             label += f" ({rng.what})"
-        raise StelltempError(f"{label} must be a finite number in {rng.text()}, got {_short(value)}")
+        raise StelltempError(f"{label} must be a finite number in {rng.text()}, got {_short(value)}",
+                             None if option else name)
     return v
 
 
@@ -222,7 +229,8 @@ def check_size(name, value, option=None):
     except (TypeError, ValueError, OverflowError):
         ok = False
     if not ok or not (lo <= int(f) <= hi):
-        raise StelltempError(f"{label} must be a whole number from {lo} to {hi}, got {_short(value)}")
+        raise StelltempError(f"{label} must be a whole number from {lo} to {hi}, got {_short(value)}",
+                             None if option else name)
     return int(f)
 
 
