@@ -393,7 +393,10 @@ class ChunkReader:
                 warnings.simplefilter("ignore")  # unit-parsing chatter of foreign files
                 self._table = Table.read(self.path, format=_ASTROPY_FORMAT[self.fmt])
         except Exception as exc:  # astropy raises many types for malformed files
-            raise StelltempError(f"{self.path}: not a readable {self.fmt.upper()} table ({_first_line(exc)})") from None
+            raise StelltempError(f"{self.path}: not a readable {self.fmt.upper()} table "
+                                 f"({_astropy_reason(exc, self.path, self.fmt)})") from None
+        if self.fmt == "ecsv":
+            _refuse_multiline_cells(self._table, self.path)
         if self.fmt == "votable":
             self._table.meta.update(_votable_infos(self.path))
             if "tool_name" in self._table.meta:  # the description held our run record, now unpacked
@@ -474,6 +477,57 @@ def _dedupe(names, notes):
 def _first_line(exc):
     text = str(exc).strip().splitlines()
     return text[0] if text else type(exc).__name__
+
+
+def _astropy_reason(exc, path, fmt):
+    """Why astropy could not read a table, for people: the file's line where astropy counts data lines.
+
+    Python's own errors (a header whose structure is not the format's) are
+    not shown raw.
+    """
+    from stelltemp.errors import decode_position
+
+    if isinstance(exc, UnicodeDecodeError):
+        try:
+            Path(path).read_bytes().decode("utf-8")
+        except UnicodeDecodeError as whole:  # where in the file, not in astropy's buffer
+            where, byte = decode_position(whole)
+            return f"not UTF-8 text: byte {byte} at {where}"
+        return "not UTF-8 text"
+    if not isinstance(exc, ValueError):  # TypeError, KeyError ... from a damaged header
+        return "its header is damaged" if fmt in ("ecsv", "csv") else "its structure is damaged"
+    text = _first_line(exc)
+    found = re.search(r"at data line (\d+)", text)
+    if found and fmt in ("ecsv", "csv"):
+        text = text.replace(found.group(0), f"at line {_text_data_line(path, int(found.group(1)))}")
+    return text
+
+
+def _refuse_multiline_cells(table, path):
+    """A text cell holding a line break: an unclosed quote swallowed the lines after it (rows lost)."""
+    for name in table.colnames:
+        col = table[name]
+        if getattr(col, "ndim", 1) != 1 or col.dtype.kind not in "US":
+            continue
+        text = np.asarray(col).astype(str)
+        bad = (np.char.find(text, "\n") >= 0) | (np.char.find(text, "\r") >= 0)
+        if bad.any():
+            row = int(np.flatnonzero(bad)[0])
+            raise StelltempError(
+                f"{path}: line {_text_data_line(path, row)}, column '{name}': a quoted cell runs over several "
+                "lines (an unclosed quote?); the file's structure cannot be trusted, so nothing was computed")
+
+
+def _text_data_line(path, index):
+    """File line (1-based) of data line `index` (0-based) of a text table: '#' lines, blanks and the names skipped."""
+    seen = -2  # the first line that is not a comment holds the column names
+    with open(path, "rb") as fh:
+        for number, line in enumerate(fh, 1):
+            if line.strip() and not line.lstrip().startswith(b"#"):
+                seen += 1
+                if seen == index:
+                    return number
+    return "?"
 
 
 _LINE_BREAK = re.compile(rb"\r\n|\r|\n")

@@ -73,6 +73,12 @@ class Parser(argparse.ArgumentParser):
         kwargs.setdefault("formatter_class", HelpWithDefaults)
         super().__init__(*args, **kwargs)
 
+    def _get_values(self, action, arg_strings):
+        # ``--clip=--`` would otherwise give an option of one value an empty list
+        if action.nargs is None and action.option_strings and arg_strings == ["--"]:
+            self.error(f"argument {'/'.join(action.option_strings)}: expected one value, got '--'")
+        return super()._get_values(action, arg_strings)
+
     def error(self, message):
         self.exit(EXIT_BAD_INPUT, f"stelltemp: error: {message} (see `{self.prog} --help`)\n")
 
