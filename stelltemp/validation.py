@@ -40,8 +40,9 @@ name                range                unit    why
 ``teff``            1000 … 100000        K       the kernel's temperature grid
 ``temperature``     > 0 … 1e9            K       Planck physics has no upper end;
                                                  1e9 K keeps numbers finite
-``wavelength``      > 0 … 1e9            nm      1 m: beyond it a star's Planck
-                                                 curve is radio, not photometry
+``wavelength``      1e-3 … 1e9           nm      1 pm to 1 m: beyond, a star's Planck
+                                                 curve is radio, not photometry, and
+                                                 below 1 pm its numbers underflow
 ``radius``          > 0 … 1e5            R_sun   larger than any star (from memory)
 ``curve_wavelength``  10 … 1e5           nm      user passband curves: the reference
                                                  spectra and extinction laws end
@@ -131,7 +132,7 @@ RANGES = {
     "min_alt": Range(0.0, 90.0, "deg", "lowest altitude"),
     "teff": Range(1000.0, 100000.0, "K", "temperature"),
     "temperature": Range(0.0, 1e9, "K", "temperature", lo_open=True),
-    "wavelength": Range(0.0, 1e9, "nm", "wavelength", lo_open=True),
+    "wavelength": Range(1e-3, 1e9, "nm", "wavelength"),
     "radius": Range(0.0, 1e5, "R_sun", "radius", lo_open=True),
     "curve_wavelength": Range(10.0, 1e5, "nm", "passband curve wavelength"),
 }
