@@ -20,6 +20,8 @@ name                range                unit    why
                                                  practice); beyond are sentinels
 ``mag_err``         0 … 5                mag     above 5 mag an error carries no
                                                  information (common practice)
+``colour``          −20 … 20             mag     a difference of two ``mag`` values far
+                                                 beyond any star's (common practice)
 ``ebv``             −0.5 … 6             mag     the kernel's tabulated E(B−V) grid
                                                  (:mod:`stelltemp.bandgrid`)
 ``ebv_err``         0 … 6                mag     as ``ebv``
@@ -116,6 +118,7 @@ class Range:
 RANGES = {
     "mag": Range(-40.0, 40.0, "mag", "magnitude"),
     "mag_err": Range(0.0, 5.0, "mag", "magnitude error"),
+    "colour": Range(-20.0, 20.0, "mag", "colour index"),
     "ebv": Range(-0.5, 6.0, "mag", "E(B-V)"),
     "ebv_err": Range(0.0, 6.0, "mag", "E(B-V) error"),
     "av": Range(-1.5, 36.0, "mag", "A_V"),

@@ -45,6 +45,10 @@ def run(args, out=None, err=None):
         return 0
     if args.colour is None:
         raise StelltempError("--use needs --colour")
+    from ..validation import check_number
+
+    check_number("colour", args.colour, "--colour")
+    check_number("mag_err", args.colour_err, "--colour-err")
     rel = get_relation(args.use)
     res = combine_teff({args.use: [args.colour]}, {args.use: [args.colour_err]},
                        feh=None if args.feh is None else [args.feh],
