@@ -2,7 +2,21 @@
 
 
 class StelltempError(ValueError):
-    """Bad input: the message is one line that names the problem."""
+    """Bad input: the message is one line that names the problem.
+
+    Parameters
+    ----------
+    message : str
+        The line.
+    parameter : str, optional
+        The API parameter the message begins with (e.g. ``ebv_err``), so the
+        command line can name the option the user typed instead
+        (``--ebv-err``; see ``stelltemp.cli.for_people``).
+    """
+
+    def __init__(self, message="", parameter=None):
+        super().__init__(message)
+        self.parameter = parameter
 
 
 class RenamedWarning(DeprecationWarning):

@@ -4,7 +4,10 @@ Each quantity has a documented physical range (`RANGES`) and each size the
 user controls has a documented limit (`SIZE_LIMITS`).  The command line and
 the Python API call the same functions, so both refuse the same value with
 the same one-line message (a :class:`~stelltemp.errors.StelltempError`),
-before any work starts.  Catalogue rows use the same ranges, row by row, to
+before any work starts.  The API's message names the parameter
+(``ebv_err``); the command line's names the option typed (``--ebv-err``),
+through the error's ``parameter`` and the parser's own option names
+(``stelltemp.cli.option_names``).  Catalogue rows use the same ranges, row by row, to
 flag a bad cell instead of refusing the run (:mod:`stelltemp.catalog.hygiene`).
 
 Ranges
@@ -17,6 +20,8 @@ name                range                unit    why
                                                  practice); beyond are sentinels
 ``mag_err``         0 … 5                mag     above 5 mag an error carries no
                                                  information (common practice)
+``colour``          −20 … 20             mag     a difference of two ``mag`` values far
+                                                 beyond any star's (common practice)
 ``ebv``             −0.5 … 6             mag     the kernel's tabulated E(B−V) grid
                                                  (:mod:`stelltemp.bandgrid`)
 ``ebv_err``         0 … 6                mag     as ``ebv``
@@ -37,8 +42,9 @@ name                range                unit    why
 ``teff``            1000 … 100000        K       the kernel's temperature grid
 ``temperature``     > 0 … 1e9            K       Planck physics has no upper end;
                                                  1e9 K keeps numbers finite
-``wavelength``      > 0 … 1e9            nm      1 m: beyond it a star's Planck
-                                                 curve is radio, not photometry
+``wavelength``      1e-3 … 1e9           nm      1 pm to 1 m: beyond, a star's Planck
+                                                 curve is radio, not photometry, and
+                                                 below 1 pm its numbers underflow
 ``radius``          > 0 … 1e5            R_sun   larger than any star (from memory)
 ``curve_wavelength``  10 … 1e5           nm      user passband curves: the reference
                                                  spectra and extinction laws end
@@ -112,6 +118,7 @@ class Range:
 RANGES = {
     "mag": Range(-40.0, 40.0, "mag", "magnitude"),
     "mag_err": Range(0.0, 5.0, "mag", "magnitude error"),
+    "colour": Range(-20.0, 20.0, "mag", "colour index"),
     "ebv": Range(-0.5, 6.0, "mag", "E(B-V)"),
     "ebv_err": Range(0.0, 6.0, "mag", "E(B-V) error"),
     "av": Range(-1.5, 36.0, "mag", "A_V"),
@@ -128,7 +135,7 @@ RANGES = {
     "min_alt": Range(0.0, 90.0, "deg", "lowest altitude"),
     "teff": Range(1000.0, 100000.0, "K", "temperature"),
     "temperature": Range(0.0, 1e9, "K", "temperature", lo_open=True),
-    "wavelength": Range(0.0, 1e9, "nm", "wavelength", lo_open=True),
+    "wavelength": Range(1e-3, 1e9, "nm", "wavelength"),
     "radius": Range(0.0, 1e5, "R_sun", "radius", lo_open=True),
     "curve_wavelength": Range(10.0, 1e5, "nm", "passband curve wavelength"),
 }
@@ -155,12 +162,13 @@ MEMORY_LIMIT_BYTES = 2 << 30
 
 def parse_number(value, name, option=None):
     """A float from a number or text; `StelltempError` naming `option` if it is none."""
+    param = None if option else name
     if isinstance(value, bool):
-        raise StelltempError(f"{option or name} must be a number, got {value!r}")
+        raise StelltempError(f"{option or name} must be a number, got {value!r}", param)
     try:
         return float(value)
     except (TypeError, ValueError, OverflowError):
-        raise StelltempError(f"{option or name} must be a number, got {_short(value)}") from None
+        raise StelltempError(f"{option or name} must be a number, got {_short(value)}", param) from None
 
 
 def check_number(name, value, option=None, rng=None):
@@ -195,7 +203,8 @@ def check_number(name, value, option=None, rng=None):
         label = option or name
         if rng.what.lower() != label.strip("-").replace("_", " ").lower():
             label += f" ({rng.what})"
-        raise StelltempError(f"{label} must be a finite number in {rng.text()}, got {_short(value)}")
+        raise StelltempError(f"{label} must be a finite number in {rng.text()}, got {_short(value)}",
+                             None if option else name)
     return v
 
 
@@ -224,7 +233,8 @@ def check_size(name, value, option=None):
     except (TypeError, ValueError, OverflowError):
         ok = False
     if not ok or not (lo <= int(f) <= hi):
-        raise StelltempError(f"{label} must be a whole number from {lo} to {hi}, got {_short(value)}")
+        raise StelltempError(f"{label} must be a whole number from {lo} to {hi}, got {_short(value)}",
+                             None if option else name)
     return int(f)
 
 

@@ -46,13 +46,18 @@ def _err_line(capsys):
     (["--av", "100"], dict(av=100.0)),
     (["--monte-carlo", "1000000000"], dict(monte_carlo=1_000_000_000)),
     (["--monte-carlo", "-3"], dict(monte_carlo=-3)),
+    (["--feh-err=-1"], dict(feh_err=-1.0)),
 ])
 def test_star_option_refused_with_the_api_message(capsys, argv, api):
+    """One rule, two vocabularies: the CLI names the option typed, the API its parameter."""
     assert main(STAR + argv) == 2
     line = _err_line(capsys)
     with pytest.raises(StelltempError) as exc:
         estimate({"B_JC": 10.6, "V_JC": 10.0}, **api)
-    assert line == str(exc.value)
+    (param,) = [k for k in api if k != "parallax" or len(api) == 1]
+    option = "--" + param.replace("_", "-")
+    assert str(exc.value).startswith(param + " ") and exc.value.parameter == param
+    assert line == option + str(exc.value)[len(param):]
 
 
 def test_monte_carlo_bounded_by_memory_before_work():
@@ -71,11 +76,11 @@ def test_per_star_arrays_are_flagged_not_refused():
 @pytest.mark.parametrize("argv, message", [
     (["exposure", "--mag", "V_JC=inf", "--snr", "50"], "magnitude in 'V_JC=inf' (magnitude) must be a finite number in [-40, 40] mag, got inf"),
     (["exposure", "--mag", "V_JC=12", "--snr", "50", "--seeing", "0"],
-     "seeing (seeing FWHM) must be a finite number in (0, 30] arcsec, got 0"),
+     "--seeing (seeing FWHM) must be a finite number in (0, 30] arcsec, got 0"),
     (["exposure", "--mag", "V_JC=12", "--snr", "nan"],
-     "snr (signal-to-noise ratio) must be a finite number in (0, 1e+06], got nan"),
+     "--snr (signal-to-noise ratio) must be a finite number in (0, 1e+06], got nan"),
     (["exposure", "--mag", "V_JC=12", "--snr", "50", "--airmass", "0.5"],
-     "airmass must be a finite number in [1, 40], got 0.5"),
+     "--airmass must be a finite number in [1, 40], got 0.5"),
 ])
 def test_exposure_options(capsys, argv, message):
     assert main(argv + ["--instrument", str(INSTRUMENT)]) == 2
@@ -89,10 +94,10 @@ def test_exposure_api_same_message():
 
 
 @pytest.mark.parametrize("extra, message", [
-    (["--seeing", "-1"], "seeing (seeing FWHM) must be a finite number in (0, 30] arcsec, got -1"),
-    (["--step", "1e-6"], "step (time step) must be a finite number in [0.5, 60] min, got 1e-06"),
-    (["--step", "0.001"], "step (time step) must be a finite number in [0.5, 60] min, got 0.001"),
-    (["--min-alt", "nan"], "min_alt (lowest altitude) must be a finite number in [0, 90] deg, got nan"),
+    (["--seeing", "-1"], "--seeing (seeing FWHM) must be a finite number in (0, 30] arcsec, got -1"),
+    (["--step", "1e-6"], "--step (time step) must be a finite number in [0.5, 60] min, got 1e-06"),
+    (["--step", "0.001"], "--step (time step) must be a finite number in [0.5, 60] min, got 0.001"),
+    (["--min-alt", "nan"], "--min-alt (lowest altitude) must be a finite number in [0, 90] deg, got nan"),
 ])
 def test_nightplan_options_refused_before_work(capsys, extra, message):
     t0 = time.perf_counter()
@@ -116,7 +121,7 @@ def test_night_plan_memory_estimate():
      "--steps (number of temperatures) must be a whole number from 2 to 100000, got 99999999999999999999"),
     (["colourgrid", "B_JC", "V_JC", "--tmin", "nan"],
      "--tmin (temperature) must be a finite number in [1000, 100000] K, got nan"),
-    (["blackbody", "5000", "--radius", "inf"], "radius must be a finite number in (0, 100000] R_sun, got inf"),
+    (["blackbody", "5000", "--radius", "inf"], "--radius must be a finite number in (0, 100000] R_sun, got inf"),
     (["blackbody", "1e300"], "temperature must be a finite number in (0, 1e+09] K, got 1e+300"),
 ])
 def test_other_commands(capsys, argv, message):

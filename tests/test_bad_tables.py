@@ -149,7 +149,7 @@ def test_ebv_option_outside_the_kernel_grid_says_why(tmp_path, capsys):
     inp.write_text("\n".join([HEADER] + _lines(3)) + "\n")
     assert main(["catalogue", str(inp), "-o", str(tmp_path / "o.csv"), "--ebv", "10"]) == 2
     err = capsys.readouterr().err.strip().splitlines()
-    assert err == ["stelltemp: error: ebv (E(B-V)) must be a finite number in [-0.5, 6] mag, got 10"]
+    assert err == ["stelltemp: error: --ebv (E(B-V)) must be a finite number in [-0.5, 6] mag, got 10"]
 
 
 def test_engine_api_bad_reddening_per_star_gives_nan_not_zero_reddening():

@@ -551,7 +551,8 @@ def test_cli_relations(capsys):
     assert "c10_vk" in out and "c10_bv" not in out
     assert main(["relations", "--use", "c10_vk", "--colour", "1.56"]) == 0
     assert "Teff = 5755" in capsys.readouterr().out
-    assert main(["relations", "--use", "c10_vk", "--colour", "5.0"]) == 1
+    assert main(["relations", "--use", "c10_vk", "--colour", "5.0"]) == 2  # outside: refused in one line
+    assert "does not apply: colour 5.000 mag (valid" in capsys.readouterr().err
 
 # ----------------------------------------------------- through the engine
 def test_engine_calibrates_across_the_hr_diagram_or_says_why():

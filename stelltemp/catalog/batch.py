@@ -202,8 +202,10 @@ def resolve_mapping(colnames, mapping=None, ebv=None, ebv_err=None, vector_colum
         cmap = mapping_from_dict(mapping)
     else:
         cmap = load_mapping(mapping)
+    for name, val in cmap.values.items():  # the map's own values: named as the map names them
+        check_number(name, val, f"{name} in the column map's [values]")
     cmap = cmap.with_ebv(ebv, ebv_err, feh_err)
-    for name, val in cmap.values.items():
+    for name, val in cmap.values.items():  # now the ebv / ebv_err arguments too
         check_number(name, val)
     cmap.check(colnames)
     vectors = [c for c in cmap.required_columns() if c in set(vector_columns)]

@@ -48,8 +48,10 @@ a half-written target nor the temporary file.
 
 from __future__ import annotations
 
+import codecs
 import contextlib
 import csv
+import io
 import json
 import re
 from pathlib import Path
@@ -295,7 +297,7 @@ class ChunkReader:
 
         fh.seek(self._csv_offset)
         return pcsv.open_csv(
-            fh,
+            io.BufferedReader(_MarkedUtf8(fh), 1 << 20),  # pyarrow decodes a malformed line's text itself
             # no read-ahead thread: a failure then never leaves a parser thread behind
             read_options=pcsv.ReadOptions(column_names=self.colnames, block_size=self._block, use_threads=False),
             parse_options=pcsv.ParseOptions(invalid_row_handler=on_bad_row),
@@ -391,7 +393,10 @@ class ChunkReader:
                 warnings.simplefilter("ignore")  # unit-parsing chatter of foreign files
                 self._table = Table.read(self.path, format=_ASTROPY_FORMAT[self.fmt])
         except Exception as exc:  # astropy raises many types for malformed files
-            raise StelltempError(f"{self.path}: not a readable {self.fmt.upper()} table ({_first_line(exc)})") from None
+            raise StelltempError(f"{self.path}: not a readable {self.fmt.upper()} table "
+                                 f"({_astropy_reason(exc, self.path, self.fmt)})") from None
+        if self.fmt == "ecsv":
+            _refuse_multiline_cells(self._table, self.path)
         if self.fmt == "votable":
             self._table.meta.update(_votable_infos(self.path))
             if "tool_name" in self._table.meta:  # the description held our run record, now unpacked
@@ -474,6 +479,57 @@ def _first_line(exc):
     return text[0] if text else type(exc).__name__
 
 
+def _astropy_reason(exc, path, fmt):
+    """Why astropy could not read a table, for people: the file's line where astropy counts data lines.
+
+    Python's own errors (a header whose structure is not the format's) are
+    not shown raw.
+    """
+    from stelltemp.errors import decode_position
+
+    if isinstance(exc, UnicodeDecodeError):
+        try:
+            Path(path).read_bytes().decode("utf-8")
+        except UnicodeDecodeError as whole:  # where in the file, not in astropy's buffer
+            where, byte = decode_position(whole)
+            return f"not UTF-8 text: byte {byte} at {where}"
+        return "not UTF-8 text"
+    if not isinstance(exc, ValueError):  # TypeError, KeyError ... from a damaged header
+        return "its header is damaged" if fmt in ("ecsv", "csv") else "its structure is damaged"
+    text = _first_line(exc)
+    found = re.search(r"at data line (\d+)", text)
+    if found and fmt in ("ecsv", "csv"):
+        text = text.replace(found.group(0), f"at line {_text_data_line(path, int(found.group(1)))}")
+    return text
+
+
+def _refuse_multiline_cells(table, path):
+    """A text cell holding a line break: an unclosed quote swallowed the lines after it (rows lost)."""
+    for name in table.colnames:
+        col = table[name]
+        if getattr(col, "ndim", 1) != 1 or col.dtype.kind not in "US":
+            continue
+        text = np.asarray(col).astype(str)
+        bad = (np.char.find(text, "\n") >= 0) | (np.char.find(text, "\r") >= 0)
+        if bad.any():
+            row = int(np.flatnonzero(bad)[0])
+            raise StelltempError(
+                f"{path}: line {_text_data_line(path, row)}, column '{name}': a quoted cell runs over several "
+                "lines (an unclosed quote?); the file's structure cannot be trusted, so nothing was computed")
+
+
+def _text_data_line(path, index):
+    """File line (1-based) of data line `index` (0-based) of a text table: '#' lines, blanks and the names skipped."""
+    seen = -2  # the first line that is not a comment holds the column names
+    with open(path, "rb") as fh:
+        for number, line in enumerate(fh, 1):
+            if line.strip() and not line.lstrip().startswith(b"#"):
+                seen += 1
+                if seen == index:
+                    return number
+    return "?"
+
+
 _LINE_BREAK = re.compile(rb"\r\n|\r|\n")
 
 
@@ -548,28 +604,59 @@ class _PhysicalLines:
                 return
 
 
+#: stands for a byte that is not UTF-8 text while pyarrow parses (a noncharacter: never in real text)
+_NOT_UTF8 = "\U0010fffe"
+codecs.register_error("stelltemp-not-utf8", lambda exc: (_NOT_UTF8, exc.end))
+
+
+class _MarkedUtf8(io.RawIOBase):
+    """A binary file's bytes from its position on, each byte that is not UTF-8 text replaced by `_NOT_UTF8`.
+
+    pyarrow decodes the text of a malformed line strictly before handing it
+    to our handler; an undecodable byte there would abort the parse.  Cells
+    keep the mark until `_decode_text` turns it into U+FFFD with a row note.
+    """
+
+    def __init__(self, fh):
+        self._fh, self._buf, self._at = fh, b"", 0
+        self._decoder = codecs.getincrementaldecoder("utf-8")("stelltemp-not-utf8")
+
+    def readable(self):
+        return True
+
+    def readinto(self, b):
+        while self._at >= len(self._buf):
+            block = self._fh.read(1 << 20)
+            if block.isascii() and not self._decoder.getstate()[0]:
+                self._buf = block  # the common case: plain ASCII passes untouched
+            else:
+                self._buf = self._decoder.decode(block, final=not block).encode("utf-8")
+            self._at = 0
+            if not block:
+                break
+        n = min(len(b), len(self._buf) - self._at)
+        b[:n] = self._buf[self._at:self._at + n]
+        self._at += n
+        return n
+
+
 def _decode_text(table, names):
     """Binary CSV columns as UTF-8 text; undecodable bytes become U+FFFD with a row note."""
     cols, notes = [], []
     for name, col in zip(names, table.columns):
-        try:
-            cols.append(col.cast(pa.string()))
-            continue
-        except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
-            pass
-        values = []
-        for i, raw in enumerate(col.to_pylist()):
-            try:
-                values.append(raw.decode("utf-8"))
-            except UnicodeDecodeError:
-                values.append(raw.decode("utf-8", errors="replace"))
-                notes.append((i, f"{name}: bytes that are not UTF-8 text replaced by U+FFFD", False))
-        cols.append(pa.array(values, pa.string()))
+        col = col.cast(pa.string())  # valid: `_MarkedUtf8` replaced every undecodable byte
+        hit = pc.fill_null(pc.match_substring(col, _NOT_UTF8), False)
+        if pc.any(hit).as_py():
+            notes += [(int(i), f"{name}: bytes that are not UTF-8 text replaced by U+FFFD", False)
+                      for i in np.flatnonzero(np.asarray(hit))]
+            col = pc.replace_substring(col, _NOT_UTF8, "\ufffd")
+        cols.append(col)
     return pa.Table.from_arrays(cols, names=names), sorted(notes)
 
 
 def _text_row(text, names):
     """One malformed CSV line as a row of text cells (missing cells empty, extra cells dropped)."""
+    text = text.replace(_NOT_UTF8, "\ufffd")
     try:
         fields = next(csv.reader([text]), [])
     except csv.Error:

@@ -45,6 +45,7 @@ No module outside this package imports from it.
 """
 
 import argparse
+import functools
 import os
 import sys
 import warnings
@@ -55,7 +56,8 @@ from . import blackbody, catalogue, colourgrid, exposure, nightplan, passbands, 
 from .options import HelpWithDefaults
 from .output import emit_json
 
-__all__ = ["COMMANDS", "EXIT_BAD_INPUT", "build_parser", "emit_json", "main", "run_parsed"]
+__all__ = ["COMMANDS", "EXIT_BAD_INPUT", "build_parser", "emit_json", "for_people", "main", "option_names",
+           "run_parsed"]
 
 EXIT_BAD_INPUT = 2
 #: exit status after the reader of stdout went away (128 + SIGPIPE, as Unix tools report it)
@@ -70,6 +72,12 @@ class Parser(argparse.ArgumentParser):
     def __init__(self, *args, **kwargs):
         kwargs.setdefault("formatter_class", HelpWithDefaults)
         super().__init__(*args, **kwargs)
+
+    def _get_values(self, action, arg_strings):
+        # ``--clip=--`` would otherwise give an option of one value an empty list
+        if action.nargs is None and action.option_strings and arg_strings == ["--"]:
+            self.error(f"argument {'/'.join(action.option_strings)}: expected one value, got '--'")
+        return super()._get_values(action, arg_strings)
 
     def error(self, message):
         self.exit(EXIT_BAD_INPUT, f"stelltemp: error: {message} (see `{self.prog} --help`)\n")
@@ -116,6 +124,39 @@ def check_written_paths(args):
             check_output_path(path, replace)
 
 
+@functools.lru_cache(maxsize=None)
+def option_names(command):
+    """{API parameter: long option} of a subcommand, read from its parser (argparse's ``dest``).
+
+    This is the one mapping between the two vocabularies: an option stores
+    into the parameter of the same name (``--ebv-err`` into ``ebv_err``).
+    """
+    sub = next(a for a in build_parser()._actions if isinstance(a, argparse._SubParsersAction))
+    parser = sub.choices.get(command)
+    names = {}
+    for action in getattr(parser, "_actions", ()):
+        spelled = [o for o in action.option_strings if o.startswith("--")]
+        if spelled and action.help is not argparse.SUPPRESS:  # old spellings are hidden
+            names.setdefault(action.dest, spelled[0])
+    return names
+
+
+def for_people(exc, command):
+    """The message of a StelltempError, naming the option typed rather than the API parameter.
+
+    Examples
+    --------
+    >>> for_people(StelltempError("ebv_err (E(B-V) error) must be ...", "ebv_err"), "star")
+    '--ebv-err (E(B-V) error) must be ...'
+    """
+    text = str(exc)
+    param = getattr(exc, "parameter", None)
+    option = option_names(command).get(param) if param and command else None
+    if option and text.startswith(param):
+        text = option + text[len(param):]
+    return text
+
+
 def one_line(text):
     """A message as one line (line breaks of library messages folded)."""
     return " ".join(str(text).split())
@@ -155,7 +196,7 @@ def run_parsed(args, **run_options):
     except BrokenPipeError:
         return _closed_pipe()
     except StelltempError as exc:
-        print(f"stelltemp: error: {one_line(exc)}", file=sys.stderr)
+        print(f"stelltemp: error: {one_line(for_people(exc, getattr(args, 'command', None)))}", file=sys.stderr)
         return EXIT_BAD_INPUT
     except (OSError, ValueError, MemoryError, OverflowError, RecursionError) as exc:
         print(f"stelltemp: error: {one_line(plain_reason(exc))}", file=sys.stderr)
@@ -171,9 +212,13 @@ def run_parsed(args, **run_options):
         return 1
 
 
-def main(argv=None):
-    """Run ``stelltemp`` with ``argv`` (default: the process arguments); return the exit code."""
-    parser = build_parser()
+def main(argv=None, parser=None):
+    """Run ``stelltemp`` with ``argv`` (default: the process arguments); return the exit code.
+
+    ``parser`` is a parser from :func:`build_parser` to reuse (tests that run
+    thousands of command lines in one process pass one).
+    """
+    parser = parser or build_parser()
     args = parser.parse_args(argv)
     if not getattr(args, "command", None):
         parser.print_help()

@@ -91,7 +91,7 @@ def run(args, out=None, err=None, engine=None):
                                     renew_results=args.renew_results, **common)
     except StelltempError as exc:
         text = str(exc).replace("(allow replacing it explicitly)", "(add --replace to replace it)")
-        raise StelltempError(text) from None
+        raise StelltempError(text, exc.parameter) from None
     figure = None
     if args.plot:
         from ..catalog.figure import plot_results

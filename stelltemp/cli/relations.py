@@ -45,21 +45,26 @@ def run(args, out=None, err=None):
         return 0
     if args.colour is None:
         raise StelltempError("--use needs --colour")
+    from ..validation import check_number
+
+    check_number("colour", args.colour, "--colour")
+    check_number("mag_err", args.colour_err, "--colour-err")
     rel = get_relation(args.use)
     res = combine_teff({args.use: [args.colour]}, {args.use: [args.colour_err]},
                        feh=None if args.feh is None else [args.feh],
                        logg=None if args.logg is None else [args.logg])
-    applied = not res.none_applicable[0]
+    if res.none_applicable[0]:  # a refusal like any other: one line, exit 2
+        raise StelltempError(
+            f"{rel.label} does not apply: colour {args.colour:.3f} mag (valid {rel.colour_range[0]:.2f} to "
+            f"{rel.colour_range[1]:.2f}), [Fe/H] {0.0 if args.feh is None else args.feh:g} (valid "
+            f"{rel.feh_range[0]:.1f} to {rel.feh_range[1]:.1f})" + (", or log g" if rel.needs_logg else ""))
+    applied = True
     if args.json:
         emit_json({"relation": relation_summary(rel), "colour_mag": args.colour,
                    "teff_K": float(res.teff[0]) if applied else None,
                    "teff_err_K": float(res.teff_err[0]) if applied else None,
                    "feh_assumed": bool(res.feh_assumed[0]), "inside_range": bool(applied)}, out)
-        return 0 if applied else 1
-    if not applied:
-        print(f"{rel.label}: Teff — (colour {args.colour:.3f} mag, [Fe/H] or log g outside the published "
-              "range of this relation)", file=out)
-        return 1
+        return 0
     note = " ([Fe/H] = 0 assumed)" if res.feh_assumed[0] else ""
     print(f"{rel.label}: Teff = {measure(res.teff[0], res.teff_err[0], 'K')}{note}  ({rel.citation})", file=out)
     return 0

@@ -216,7 +216,7 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
     if fit_ebv and len(keys) < 3:
         raise StelltempError("fitting E(B−V) needs at least three bands")
     _check_scalars(ebv=ebv, ebv_err=ebv_err, av=av, av_err=av_err, parallax=parallax,
-                   parallax_err=parallax_err, feh=feh, logg=logg)
+                   parallax_err=parallax_err, feh=feh, feh_err=feh_err, logg=logg)
     monte_carlo = check_size("monte_carlo", monte_carlo)
     n_rows = max((np.size(v) for v in mags.values()), default=0)
     # the Monte Carlo holds about (4 per band + 16) float64 arrays of n_rows × samples
