@@ -122,12 +122,9 @@ def prepare_output(out_dir, replace=False):
 
 
 def _read_csv(path):
-    from astropy.table import Table
+    from .catalog.tableio import read_table
 
-    try:
-        return Table.read(path, format="ascii.csv")
-    except Exception as exc:  # astropy raises many types for malformed tables
-        raise StelltempError(f"cannot read {path}: {str(exc).splitlines()[0]}") from None
+    return read_table(path)  # the one table reader; its errors are one line naming the file
 
 
 def _floats(col):

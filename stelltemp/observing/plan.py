@@ -477,18 +477,20 @@ def target_photometry(instrument: Instrument, target) -> dict:
 
 
 def read_targets(path):
-    """Read a target list (CSV or ECSV) and check it with `parse_targets`."""
+    """Read a target list (any table format of `stelltemp.catalog.tableio`) and check it with `parse_targets`."""
     from pathlib import Path
 
-    p = Path(path)
-    fmt = "ascii.ecsv" if p.suffix.lower() == ".ecsv" else "ascii.csv"
+    from ..catalog.tableio import read_table, table_format
     from ..errors import plain_reason
     from ..safeio import read_text_file
 
-    text = read_text_file(p, "target list").splitlines()  # missing, unreadable or not UTF-8: one plain line
+    p = Path(path)
+    if table_format(p) in ("csv", "ecsv"):
+        read_text_file(p, "target list")  # missing, unreadable or not UTF-8: one plain line
     try:
-        # CSV: '#' lines are comments, as in the catalogue reader
-        t = Table.read(text, format=fmt) if fmt == "ascii.ecsv" else Table.read(text, format=fmt, comment="#")
+        t = read_table(p)  # the one table reader: CSV '#' lines are comments, a CSV sidecar gives units
+    except StelltempError as exc:
+        raise StelltempError(f"cannot read target list {p.name}: {exc}") from None
     except Exception as exc:  # astropy raises many types for malformed tables
         raise StelltempError(f"cannot read target list {p.name}: {plain_reason(exc)}") from None
     return parse_targets(t)
