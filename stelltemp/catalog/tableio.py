@@ -602,12 +602,16 @@ def _text_row(text, names):
     return pa.table({n: pa.array([f], pa.string()) for n, f in zip(names, fields)})
 
 
-def read_table(path):
-    """Read a whole table file into an astropy Table (small files; see `ChunkReader`)."""
-    reader = ChunkReader(path, chunk_rows=1 << 62)
-    chunks = list(reader)
+def read_table(path, max_rows=None):
+    """Read a table file into an astropy Table, with its units and metadata (small files; see `ChunkReader`).
+
+    ``max_rows`` keeps only the first rows (read in one chunk of that size).
+    """
+    reader = ChunkReader(path, chunk_rows=max_rows or 1 << 62)
+    chunks = list(reader) if max_rows is None else [c for c in [next(iter(reader), None)] if c is not None]
     if reader.fmt not in STREAMING:
-        return chunks[0] if chunks else reader.empty_chunk()
+        out = chunks[0] if chunks else reader.empty_chunk()
+        return out[:max_rows] if max_rows is not None else out
     table = pa.concat_tables(chunks) if chunks else reader.empty_chunk()
     if reader.fmt == "csv":
         table = apply_types(table, narrowest_types([table], table.column_names))
