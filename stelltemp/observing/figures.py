@@ -369,10 +369,14 @@ def night_figure(tracks, min_alt_deg=30.0, plan=None, chosen=None, reason=None):
             caption.append(moon_txt + ".")
         if without:
             caption.append(f"No window ({len(without)}): " + ", ".join(without[:8]) + (" …" if len(without) > 8 else ""))
+        import textwrap
+
+        plain = "\n".join(caption)  # unwrapped, for tests and notebooks
+        caption = [part for line in caption for part in textwrap.wrap(line, 150, subsequent_indent="  ")]
         fig.text(0.01, 0.0, "\n".join(caption), fontsize=8, color=PALETTE["ink"], ha="left", va="bottom")
         room = (0.16 * len(caption) + 0.08) / fig.get_figheight()  # the caption's lines, in figure height
         fig.get_layout_engine().set(rect=(0, room, 1, 1 - room))
-    fig.caption = "\n".join(caption)  # for tests and notebooks
+    fig.caption = plain
     return fig
 
 
