@@ -53,7 +53,7 @@ def altitude_at_airmass(x):
     Examples
     --------
     >>> round(altitude_at_airmass(2.0), 2)
-    29.97
+    29.9
     """
     from scipy.optimize import brentq
 
