@@ -421,6 +421,8 @@ def load_passband_file(path, wave_unit=None, detector="photon", magsys="AB", key
         Unreadable file, unknown unit, non-monotonic wavelengths, negative or
         all-zero response.
     """
+    from .catalog.tableio import read_table
+
     path = Path(path)
     origin = str(path)
     if detector not in DETECTORS:
@@ -432,13 +434,13 @@ def load_passband_file(path, wave_unit=None, detector="photon", magsys="AB", key
     suffix = path.suffix.lower()
     try:
         if suffix == ".ecsv":
-            tab = Table.read(path, format="ascii.ecsv")
+            tab = read_table(path)
             wave_col, resp_col = _pick_columns(tab, origin)
             col_unit = tab[wave_col].unit
             unit = _parse_wave_unit(wave_unit or col_unit, origin) if (wave_unit or col_unit) else None
             wave, resp = np.asarray(tab[wave_col], float), np.asarray(tab[resp_col], float)
         elif suffix == ".csv":
-            tab = Table.read(path, format="ascii.csv")
+            tab = read_table(path)  # the one table reader (CSV '#' lines are comments)
             wave_col, resp_col = _pick_columns(tab, origin)
             unit_text = wave_unit
             if unit_text is None and "[" in wave_col and wave_col.endswith("]"):

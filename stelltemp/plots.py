@@ -71,13 +71,6 @@ _STYLE = {
 MAS_PER_RAD = 180.0 / math.pi * 3600e3
 
 
-def _temperature_flag_mask():
-    """Flag bits that concern the temperature itself (the others speak of T_eff or reddening)."""
-    from .engine import flags as fl
-
-    return fl.BAD_INPUT | fl.NO_SOLUTION | fl.AT_GRID_EDGE | fl.RJ_LIMIT | fl.POOR_FIT | fl.ABSURD_VALUE
-
-
 def _colour(name):
     return PALETTE.get(name, name)
 
@@ -157,7 +150,7 @@ def _power_of_ten(values):
 
 
 # ------------------------------------------------------------------ spectrum
-def spectrum_figure(temperature_k, bands):
+def spectrum_figure(temperature_k, bands, ebv=0.0, law="G23", rv=3.1):
     """B_λ of a blackbody with passband curves over it and the Wien peak marked.
 
     Parameters
@@ -166,10 +159,17 @@ def spectrum_figure(temperature_k, bands):
         Temperature, K.
     bands : sequence of str
         Passband keys or files (drawn with their tabulated response, peak 1).
+    ebv : float
+        E(B−V), mag: above 0 the reddened blackbody is drawn too (solid, the
+        unreddened one dotted), through ``law`` with ``rv``; 0 draws the
+        unreddened blackbody and says so in the title.
+    law, rv : str, float
+        Extinction law and R_V (see :mod:`stelltemp.extinction`).
 
     Returns
     -------
     matplotlib.figure.Figure
+        The title counts the passbands drawn (``1 passband``, ``9 passbands``).
     """
     from astropy import units as u
 
@@ -214,7 +214,19 @@ def spectrum_figure(temperature_k, bands):
         ax2.set_ylim(0, 1.67)
         ax2.set_ylabel("passband response (relative, peak = 1)")
 
-        ax.plot(wave, b / 10.0**k, color=PALETTE["ink"], lw=2.0, gid="spectrum")
+        reddened = ebv > 0
+        ax.plot(wave, b / 10.0**k, color=PALETTE["ink"], lw=1.3 if reddened else 2.0, ls=":" if reddened else "-",
+                gid="spectrum", label="blackbody, unreddened")
+        if reddened:
+            from .extinction import law_class, transmission
+
+            x_lo, x_hi = law_class(law).x_range
+            inside = (1e3 / wave >= x_lo) & (1e3 / wave <= x_hi)  # x in inverse microns, wave in nm
+            fade = np.full(wave.shape, np.nan)
+            fade[inside] = transmission(wave[inside] * 10.0, ebv, law, rv)
+            ax.plot(wave, b * fade / 10.0**k, color=PALETTE["ink"], lw=2.0, gid="spectrum-reddened",
+                    label=f"reddened by E(B−V) = {ebv:.3g} ({law}, R$_V$ = {rv:g})")
+            ax.legend(loc="upper right")
         b_peak = float(radiance_lambda(t, peak_nm * u.nm).to_value(u.W / u.m**2 / u.nm / u.sr)) / 10.0**k
         # the marker stops at the curve so it does not cross the passband labels above it
         ax.plot([peak_nm, peak_nm], [0, b_peak], color=PALETTE["ember"], ls="--", lw=1.4, gid="wien-peak")
@@ -235,14 +247,16 @@ def spectrum_figure(temperature_k, bands):
             ax.xaxis.set_minor_formatter(NullFormatter())
         ax.set_xlabel("wavelength λ (nm)")
         ax.set_ylabel(f"spectral radiance B$_λ$ (10$^{{{k}}}$ W m$^{{-2}}$ nm$^{{-1}}$ sr$^{{-1}}$)")
-        ax.set_title(f"Blackbody at T = {t:,.0f} K under {len(pbs)} passband(s)")
+        n_txt = f"{len(pbs)} passband" + ("" if len(pbs) == 1 else "s")
+        red_txt = f"reddened by E(B−V) = {ebv:.3g} mag" if reddened else "unreddened"
+        ax.set_title(f"Blackbody at T = {t:,.0f} K ({red_txt}) under {n_txt}")
         ax.grid(True, alpha=0.8)
     return fig
 
 
-def plot_spectrum_with_passbands(temperature_k, bands, path, replace=False):
+def plot_spectrum_with_passbands(temperature_k, bands, path, replace=False, ebv=0.0, law="G23", rv=3.1):
     """Write `spectrum_figure` to ``path``; return the path."""
-    return _save(spectrum_figure(temperature_k, bands), path, replace)
+    return _save(spectrum_figure(temperature_k, bands, ebv=ebv, law=law, rv=rv), path, replace)
 
 
 # -------------------------------------------------------- colour–temperature
@@ -340,10 +354,11 @@ def colour_temperature_figure(bands, ebv=0.0, law="G23", rv=3.1, calibrations=Tr
     return fig
 
 
-def plot_colour_temperature(bands, path, ebv=0.0, law="G23", rv=3.1, calibrations=True, replace=False):
+def plot_colour_temperature(bands, path, ebv=0.0, law="G23", rv=3.1, calibrations=True, replace=False,
+                            tmin=2500.0, tmax=40000.0):
     """Write `colour_temperature_figure` to ``path``; return the path."""
-    return _save(colour_temperature_figure(bands, ebv=ebv, law=law, rv=rv, calibrations=calibrations), path,
-                 replace)
+    return _save(colour_temperature_figure(bands, ebv=ebv, law=law, rv=rv, calibrations=calibrations,
+                                           tmin=tmin, tmax=tmax), path, replace)
 
 
 # ------------------------------------------------------------------ star fit
@@ -526,10 +541,15 @@ def catalogue_figure(results, colour=None, law="G23", rv=3.1):
     Returns
     -------
     matplotlib.figure.Figure
-        Stars coloured by the E(B−V) used; rings mark stars whose
-        temperature carries a flag (bad input, no solution, grid edge,
-        Rayleigh–Jeans limit, poor fit, absurd value); rows without a
-        temperature are counted in a note.
+        Stars coloured by the E(B−V) used (one colour and no colour bar
+        when every star has the same); rings mark the stars by the
+        severity of their worst flag (`stelltemp.engine.flags.SEVERITY`):
+        warning and unusable are ringed, info (notes only) is not.
+        Blackbody reference curves at E(B−V) = 0 and at the percentiles of
+        the stars' E(B−V) (`_ebv_levels`), coloured as the stars.  The title
+        counts the stars with a temperature as the run does
+        (`stelltemp.catalog.batch.success_mask`); rows without one, or
+        without the colour, are named in a note.
     """
     from astropy import units as u
     from matplotlib.lines import Line2D
@@ -559,9 +579,20 @@ def catalogue_figure(results, colour=None, law="G23", rv=3.1):
     ebv_name = "ebv_used" if "ebv_used" in results.colnames else ("ebv" if "ebv" in results.colnames else None)
     ebv = _column_values(results, ebv_name, u.mag) if ebv_name else np.zeros(len(results))
     ok = np.isfinite(t) & np.isfinite(x)
-    flagged = (flags & _temperature_flag_mask()) != 0
+    from .catalog.batch import success_mask
+    from .engine import flags as fl
+
+    if any(getattr(results[c], "unit", None) == u.K for c in results.colnames):
+        n_temperature = int(np.count_nonzero(success_mask(results)))  # as the run reports it
+    else:  # a table read without its units: the same rule on the temperature columns by name
+        n_temperature = int(np.count_nonzero(np.isfinite(t) | (np.isfinite(_column_values(results, "teff_cal"))
+                                                               if "teff_cal" in results.colnames else False)))
+    level = fl.row_severity(flags, np.isfinite(t))
     missing = ~np.isfinite(t)
     no_colour = np.isfinite(t) & ~np.isfinite(x)
+    finite_e = ebv[ok & np.isfinite(ebv)]
+    spread_e = finite_e.size and (np.nanmax(finite_e) - np.nanmin(finite_e)) > 1e-6
+    levels_e = _ebv_levels(finite_e)
 
     t_floor, t_ceil = bg.T_MIN, bg.T_MAX
     if ok.any():
@@ -570,29 +601,36 @@ def catalogue_figure(results, colour=None, law="G23", rv=3.1):
     err_lo = np.clip(t - lo, 0, None)
     err_hi = np.where(np.isfinite(hi), hi - t, t_ceil * 10 - t)  # open upper limits run off the top
 
-    fig = _new_figure(8.2, 5.6)
+    fig = _new_figure(8.4, 5.8)
     with _styled():
+        from matplotlib.colors import Normalize
+
         ax = fig.add_subplot(111)
         grid_t = np.geomspace(t_floor, t_ceil, 300)
-        curve = bg.blackbody_mag(blue, grid_t, 0.0, law, rv) - bg.blackbody_mag(red, grid_t, 0.0, law, rv)
-        ax.plot(curve, grid_t, color=PALETTE["ink"], lw=1.4, gid="blackbody-0",
-                label="blackbody, E(B−V) = 0")
-        e_med = float(np.nanmedian(ebv[ok])) if ok.any() else 0.0
-        if abs(e_med) > 0.02:
-            curve_e = (bg.blackbody_mag(blue, grid_t, e_med, law, rv)
-                       - bg.blackbody_mag(red, grid_t, e_med, law, rv))
-            ax.plot(curve_e, grid_t, color=PALETTE["ink"], lw=1.2, ls="--", gid="blackbody-median",
-                    label=f"blackbody, E(B−V) = {e_med:.2f} (median used)")
+        cmap = _value_cmap()
+        norm = Normalize(np.nanmin(finite_e), np.nanmax(finite_e)) if spread_e else None
+        for i, (e_ref, why) in enumerate(levels_e):
+            curve = bg.blackbody_mag(blue, grid_t, e_ref, law, rv) - bg.blackbody_mag(red, grid_t, e_ref, law, rv)
+            colour = cmap(norm(e_ref)) if norm is not None and e_ref else PALETTE["ink"]
+            ax.plot(curve, grid_t, color=colour, lw=1.5, ls=("-", "--", "-.", ":")[i % 4], gid=f"blackbody-{e_ref:g}",
+                    label=f"blackbody, E(B−V) = {e_ref:.2f}" + (f" ({why})" if why else ""))
         ax.errorbar(x[ok], t[ok], xerr=ex[ok], yerr=[err_lo[ok], err_hi[ok]], fmt="none",
                     ecolor=PALETTE["slate"], elinewidth=0.8, alpha=0.7, capsize=0, zorder=2)
-        sc = ax.scatter(x[ok], t[ok], c=ebv[ok], cmap=_value_cmap(), s=36, edgecolors=PALETTE["ink"],
-                        linewidths=0.5, zorder=3, gid="stars")
-        n_flag = int(np.count_nonzero(ok & flagged))
-        if n_flag:
-            ax.scatter(x[ok & flagged], t[ok & flagged], s=150, facecolors="none", edgecolors=PALETTE["kelp"],
-                       linewidths=1.6, zorder=4, gid="flagged")
-        cb = fig.colorbar(sc, ax=ax, pad=0.01)
-        cb.set_label(f"E(B−V) {'used' if ebv_name == 'ebv_used' else 'given'} (mag)")
+        if spread_e:
+            sc = ax.scatter(x[ok], t[ok], c=ebv[ok], cmap=cmap, norm=norm, s=36, edgecolors=PALETTE["ink"],
+                            linewidths=0.5, zorder=3, gid="stars")
+            cb = fig.colorbar(sc, ax=ax, pad=0.01)
+            cb.set_label(f"E(B−V) {'used' if ebv_name == 'ebv_used' else 'given'} (mag)")
+        else:  # one E(B-V) for every star: no colour bar, the value goes in the legend
+            ax.scatter(x[ok], t[ok], color=PALETTE["harbour"], s=36, edgecolors=PALETTE["ink"], linewidths=0.5,
+                       zorder=3, gid="stars")
+        rings = {}
+        for sev, colour, lw, size in ((fl.WARNING, _colour("ember"), 1.6, 150), (fl.UNUSABLE, _colour("rust"), 2.4, 230)):
+            sel = ok & (level == sev)
+            rings[sev] = int(np.count_nonzero(sel))
+            if rings[sev]:
+                ax.scatter(x[sel], t[sel], s=size, facecolors="none", edgecolors=colour, linewidths=lw, zorder=4,
+                           gid=f"flagged-{fl.LEVELS[sev]}")
         ax.set_yscale("log")
         ax.set_ylim(t_floor, t_ceil)
         _temperature_ticks(ax.yaxis, t_floor, t_ceil, at_most=14)
@@ -601,18 +639,32 @@ def catalogue_figure(results, colour=None, law="G23", rv=3.1):
             ax.set_xlim(np.nanmin(x[ok]) - 0.08 * span - 0.05, np.nanmax(x[ok]) + 0.08 * span + 0.05)
         ax.set_xlabel(f"{blue} − {red} (mag, observed)")
         ax.set_ylabel("blackbody colour temperature T$_{bb}$ (K)")
-        ax.set_title(f"Catalogue run: {int(ok.sum())} stars with a temperature, against {blue} − {red}")
+        drawn = int(ok.sum())
+        ax.set_title(f"Catalogue run: {n_temperature} of {len(results)} stars with a temperature"
+                     + (f", {drawn} drawn against {blue} − {red}" if drawn != n_temperature
+                        else f", against {blue} − {red}"))
         ax.grid(True, which="both", alpha=0.8)
         handles, labels = ax.get_legend_handles_labels()
-        handles.append(Line2D([], [], ls="none", marker="o", ms=6, mfc=_colour("brass"), mec=PALETTE["ink"],
-                              label="star (colour: E(B−V)); bars: 1σ"))
-        if n_flag:
-            handles.append(Line2D([], [], ls="none", marker="o", ms=11, mfc="none", mec=PALETTE["kelp"], mew=1.6,
-                                  label=f"temperature flagged ({n_flag})"))
+        if spread_e:
+            star_label = "star (colour: E(B−V)); bars: 1σ"
+        else:
+            one_e = float(finite_e[0]) if finite_e.size else 0.0
+            star_label = f"star (E(B−V) = {one_e:g} for every star); bars: 1σ"
+        handles.append(Line2D([], [], ls="none", marker="o", ms=6, mfc=_colour("brass") if spread_e
+                              else PALETTE["harbour"], mec=PALETTE["ink"], label=star_label))
+        if rings[fl.WARNING]:
+            handles.append(Line2D([], [], ls="none", marker="o", ms=11, mfc="none", mec=_colour("ember"), mew=1.6,
+                                  label=f"ringed: a warning flag ({rings[fl.WARNING]})"))
+        if rings[fl.UNUSABLE]:
+            handles.append(Line2D([], [], ls="none", marker="o", ms=13, mfc="none", mec=_colour("rust"), mew=2.4,
+                                  label=f"ringed: unusable ({rings[fl.UNUSABLE]})"))
+        n_info = int(np.count_nonzero(ok & (level == fl.INFO)))
+        if n_info:
+            handles.append(Line2D([], [], ls="none", label=f"not ringed: {n_info} with notes only (severity info)"))
         ax.legend(handles=handles, loc="upper right")
         notes = []
         for mask, what in ((missing, "without a temperature (flagged)"),
-                           (no_colour, f"with a temperature but no usable {blue} − {red}")):
+                           (no_colour, f"with a temperature but no usable {blue} − {red}, not drawn")):
             if mask.any():
                 names = results["name"][mask] if "name" in results.colnames else np.nonzero(mask)[0]
                 shown = ", ".join(str(n) for n in list(names)[:5]) + (" …" if mask.sum() > 5 else "")
@@ -621,6 +673,32 @@ def catalogue_figure(results, colour=None, law="G23", rv=3.1):
             ax.text(0.01, 0.02, "\n".join(notes), transform=ax.transAxes, fontsize=8.5, color=PALETTE["rust"],
                     va="bottom")
     return fig
+
+
+def _ebv_levels(ebv):
+    """E(B−V) values of the catalogue diagram's reference curves, each with why it was chosen.
+
+    E(B−V) = 0 always; then the median, 10th and 90th percentiles of the
+    stars' values (each the value of an actual star, not interpolated
+    between groups), each kept only when it differs by more than 0.03 mag
+    from one already taken, so a cluster away from the median gets its own
+    curve.
+
+    Examples
+    --------
+    >>> _ebv_levels(np.zeros(5))
+    [(0.0, '')]
+    >>> [round(e, 2) for e, _ in _ebv_levels(np.r_[np.full(10, 0.05), np.full(20, 0.25)])]
+    [0.0, 0.05, 0.25]
+    """
+    out = [(0.0, "")]
+    if not np.size(ebv):
+        return out
+    for q, why in ((50, "median of the stars"), (10, "10th percentile"), (90, "90th percentile")):
+        e = round(float(np.percentile(ebv, q, method="nearest")), 2)  # a value some star has
+        if all(abs(e - e0) > 0.03 for e0, _ in out):
+            out.append((e, why))
+    return sorted(out)
 
 
 def plot_catalogue_results(results_table, path, colour=None, law="G23", rv=3.1, replace=False):

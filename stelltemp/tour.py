@@ -58,7 +58,7 @@ DEFAULT_OUT = "tour_output"
 SPECTRUM_BANDS = ("B_JC", "V_JC", "Rc_JC", "Ic_JC", "J_2MASS", "H_2MASS", "Ks_2MASS")
 COLOUR_BANDS = ("B_JC", "V_JC", "Ic_JC", "Ks_2MASS")
 #: targets drawn in the altitude chart besides the showcase star (more would crowd the legend)
-CHART_TARGETS = 7
+CHART_TARGETS = 5
 
 _SCENARIO_KEYS = {"title": str, "date": str, "instrument": str, "targets": str, "truth": str,
                   "extinction_law": str, "r_v": (int, float), "snr_goal": (int, float), "showcase_star": str}
@@ -122,12 +122,9 @@ def prepare_output(out_dir, replace=False):
 
 
 def _read_csv(path):
-    from astropy.table import Table
+    from .catalog.tableio import read_table
 
-    try:
-        return Table.read(path, format="ascii.csv")
-    except Exception as exc:  # astropy raises many types for malformed tables
-        raise StelltempError(f"cannot read {path}: {str(exc).splitlines()[0]}") from None
+    return read_table(path)  # the one table reader; its errors are one line naming the file
 
 
 def _floats(col):
@@ -294,8 +291,11 @@ def run_tour(out_dir=DEFAULT_OUT, *, replace=False, demo_dir=None, quiet=False, 
     files["fit_figure"] = plots.plot_star_fit(fit_table, typed, out / f"fit_{star}.png", law=law, rv=rv,
                                               replace=True)
     star_t = float(fit_table["t_bb"][0].value)
-    files["spectrum_figure"] = plots.plot_spectrum_with_passbands(star_t, list(SPECTRUM_BANDS),
-                                                                  out / f"spectrum_{star}.png", replace=True)
+    star_ebv = float(fit_table["ebv_used"][0].value) if "ebv_used" in fit_table.colnames else 0.0
+    fitted = [k for k, m, _ in typed if m is not None and math.isfinite(float(m))]  # the bands of the fit
+    files["spectrum_figure"] = plots.plot_spectrum_with_passbands(
+        star_t, fitted or list(SPECTRUM_BANDS), out / f"spectrum_{star}.png", replace=True,
+        ebv=star_ebv if math.isfinite(star_ebv) else 0.0, law=law, rv=rv)
 
     # 4. the night plan
     instrument = load_instrument(sc["instrument"])
@@ -321,8 +321,11 @@ def run_tour(out_dir=DEFAULT_OUT, *, replace=False, demo_dir=None, quiet=False, 
                   _separation_deg(centre["ra_deg"], centre["dec_deg"], t["ra_deg"], t["dec_deg"]) < 1.0}
     chart_names = _chart_subset(plan, star, skip=companions)
     tracks = night_tracks(instrument, [by_name[n] for n in chart_names if n in by_name], sc["date"])
+    reason = (f"the showcase star {star} (its {len(companions)} cluster companions share its track) and "
+              f"{len(chart_names) - 1} others spread through the night by best time") if companions else \
+        f"the showcase star {star} and {len(chart_names) - 1} others spread through the night by best time"
     files["night_figure"] = plot_night(tracks, str(out / "night_altitude.png"), plan.meta["min_altitude_deg"],
-                                       replace=True)
+                                       replace=True, plan=plan, chosen=chart_names, reason=reason)
     star_plan = plan[plan["target"] == star]
     airmass = float(np.nanmin(np.asarray(star_plan["min_airmass"], float))) if len(star_plan) else 1.0
     p = by_name[star]

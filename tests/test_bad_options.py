@@ -241,8 +241,13 @@ def test_an_output_name_beyond_the_limit_is_refused_first(tmp_path, capsys):
     assert main(["catalogue", str(inp), "-o", str(out)]) == 2
     assert _err_line(capsys).endswith("the file name is longer than the file system allows")
     assert sorted(p.name for p in tmp_path.iterdir()) == ["in.csv"]
-    ok = tmp_path / ("r" * 246 + ".csv")
+    # a CSV fits but its sidecar <stem>.meta.json (255 bytes at most) would not: refused before any work
+    near = tmp_path / ("r" * 246 + ".csv")
+    assert main(["catalogue", str(inp), "-o", str(near)]) == 2
+    assert "cannot write metadata file" in _err_line(capsys) and not near.exists()
+    ok = tmp_path / ("r" * 245 + ".csv")
     assert main(["catalogue", str(inp), "-o", str(ok), "--quiet"]) == 0 and ok.is_file()
+    assert (tmp_path / ("r" * 245 + ".meta.json")).is_file()
 
 
 @pytest.mark.parametrize("plot, reason", [

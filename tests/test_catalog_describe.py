@@ -10,6 +10,7 @@ import pytest
 from astropy.table import Table
 
 from stelltemp.catalog import run_catalogue
+from stelltemp.catalog.tableio import read_table
 from stelltemp.catalog.describe import RESULT_DESCRIPTIONS, describe_result, record_from_text
 from stelltemp.engine import RESULT_COLUMNS
 from stelltemp.engine import flags as F
@@ -23,8 +24,8 @@ def _astropy_read(path):
     """Table.read as a user would call it, every warning recorded."""
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        if path.suffix == ".csv":  # the CSV carries an ECSV header
-            table = Table.read(path, format="ascii.ecsv")
+        if path.suffix == ".csv":  # plain CSV; units and record in the sidecar, applied by read_table
+            table = read_table(path)
         elif path.suffix == ".vot":  # VOTable IDs cannot start with a digit (J_2MASS); names can
             table = Table.read(path, use_names_over_ids=True)
         else:
@@ -173,3 +174,35 @@ def test_cli_refuses_a_result_table_in_one_line_and_renews_on_request(outputs, t
     assert main(["catalogue", str(outputs["csv"]), "-o", str(out), "--renew-results", "--plot", str(fig)]) == 0
     text = capsys.readouterr().out
     assert f"figure: {fig}" in text and "replaced" in text and fig.is_file()
+
+
+def test_csv_output_reads_whole_with_any_csv_reader(outputs, reference):
+    """The catalogue's CSV is plain CSV: astropy's CSV reader, csv and pandas get every row and column."""
+    import csv
+    import json
+
+    path = outputs["csv"]
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        plain = Table.read(path, format="ascii.csv")
+    assert plain.colnames == reference.colnames and len(plain) == 60
+    np.testing.assert_allclose(np.asarray(plain["t_bb"], float), np.asarray(reference["t_bb"], float),
+                               rtol=1e-15, equal_nan=True)
+    assert [str(v) for v in plain["name"]] == [str(v) for v in reference["name"]]
+    rows = list(csv.reader(path.open(newline="", encoding="utf-8")))
+    assert rows[0] == reference.colnames and len(rows) == 61
+    assert all(len(r) == len(reference.colnames) for r in rows)
+    # text cells holding commas (lists of relations used) are quoted, and come back whole
+    used = reference.colnames.index("cal_used")
+    assert [r[used] for r in rows[1:]] == [_text(v) for v in reference["cal_used"]]
+    pd = pytest.importorskip("pandas")
+    frame = pd.read_csv(path, keep_default_na=False)
+    assert list(frame.columns) == reference.colnames and frame.shape == (60, len(reference.colnames))
+    # the metadata: units, descriptions and the run record in <stem>.meta.json
+    side = json.loads(path.with_name("demo.meta.json").read_text())
+    assert side["columns"]["t_bb"]["unit"] == "K"
+    assert side["columns"]["t_bb"]["description"] == reference["t_bb"].info.description
+    meta = dict(side["meta"])
+    ref = dict(reference.meta)
+    assert meta.pop("run_time_utc") and ref.pop("run_time_utc")
+    assert meta == ref

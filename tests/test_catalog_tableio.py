@@ -43,15 +43,53 @@ def test_round_trip_keeps_values_units_and_run_record(tmp_path, ext):
     assert [p.name for p in tmp_path.iterdir() if p.name.startswith(".")] == []
 
 
-def test_csv_carries_an_ecsv_header(tmp_path):
+def test_csv_is_plain_csv_with_a_json_sidecar(tmp_path):
+    import csv
+
     path = tmp_path / "out.csv"
     write_table(_table(), path, run_meta=RUN)
     lines = path.read_text().splitlines()
-    assert lines[0] == "# %ECSV 1.0"
-    assert [x for x in lines if not x.startswith("#")][0] == "name,V_JC,t_bb,flags"
-    back = Table.read(path, format="ascii.ecsv")
-    assert back["t_bb"].unit == u.K and back.meta["extinction_law"] == "G23"
-    assert not (tmp_path / "out.csv.meta.json").exists()
+    assert lines[0] == "name,V_JC,t_bb,flags" and len(lines) == 4  # nothing before the names, one line a row
+    # any CSV reader takes it as it is: astropy's plain CSV reader, Python's csv module, pandas
+    for fmt in ("ascii.csv", "csv"):
+        plain = Table.read(path, format=fmt)
+        assert plain.colnames == ["name", "V_JC", "t_bb", "flags"] and len(plain) == 3
+        assert list(plain["name"]) == ["invented-1", "invented-2", "invented-3"]
+        assert list(plain["flags"]) == [0, 1, 2] and float(plain["t_bb"][1]) == 6000.0
+    rows = list(csv.reader(path.open(newline="")))
+    assert rows[0] == ["name", "V_JC", "t_bb", "flags"] and len(rows) == 4 and all(len(r) == 4 for r in rows)
+    assert rows[2] == ["invented-2", "11.5", "6000", "1"] and rows[3] == ["invented-3", "nan", "nan", "2"]
+    pd = pytest.importorskip("pandas")
+    frame = pd.read_csv(path)
+    assert list(frame.columns) == ["name", "V_JC", "t_bb", "flags"] and frame.shape == (3, 4)
+    assert frame["t_bb"].iloc[0] == 5000.0 and frame["flags"].tolist() == [0, 1, 2]
+    # the metadata: the sidecar of the same stem, JSON, as documented in tableio
+    side = json.loads((tmp_path / "out.meta.json").read_text())
+    assert side["layout"] == tableio.SIDECAR_LAYOUT and side["table"] == "out.csv"
+    assert side["meta"] == RUN
+    assert list(side["columns"]) == ["name", "V_JC", "t_bb", "flags"]
+    assert side["columns"]["t_bb"] == {"datatype": "float64", "unit": "K"}
+    assert side["columns"]["flags"]["datatype"] == "int64"
+
+
+def test_csv_sidecar_is_never_silently_replaced(tmp_path):
+    path = tmp_path / "out.csv"
+    (tmp_path / "out.meta.json").write_text("{}")
+    with pytest.raises(StelltempError, match="already exists"):
+        tableio.check_output(path)
+    with pytest.raises(StelltempError, match="already exists"):
+        write_table(_table(), path, run_meta=RUN)
+    assert not path.exists() and (tmp_path / "out.meta.json").read_text() == "{}"
+    write_table(_table(), path, run_meta=RUN, overwrite=True)
+    assert json.loads((tmp_path / "out.meta.json").read_text())["meta"] == RUN
+
+
+def test_csv_of_earlier_versions_still_reads_with_its_header(tmp_path):
+    # earlier versions wrote an ECSV header as '#' lines above the names
+    path = tmp_path / "old.csv"
+    _table().write(path, format="ascii.ecsv", delimiter=",")
+    back = read_table(path)
+    assert back["t_bb"].unit == u.K and list(back["flags"]) == [0, 1, 2]
 
 
 def test_unknown_extension_and_missing_file(tmp_path):

@@ -57,6 +57,27 @@ def test_hot_star_peak_inside_the_drawn_range():
     assert lo < marker.get_xdata()[0] < hi
 
 
+def test_spectrum_title_counts_passbands_and_says_unreddened():
+    assert plots.spectrum_figure(5800, ["V_JC"]).axes[0].get_title().endswith("(unreddened) under 1 passband")
+    title = plots.spectrum_figure(5800, BANDS).axes[0].get_title()
+    assert title.endswith(f"under {len(BANDS)} passbands")
+
+
+def test_spectrum_draws_the_reddened_blackbody():
+    from stelltemp.extinction import transmission
+
+    fig = plots.spectrum_figure(6000.0, BANDS, ebv=0.3, law="G23", rv=3.1)
+    (clear,) = [a for a in _by_gid(fig, "spectrum") if a.get_gid() == "spectrum"]
+    (red,) = _by_gid(fig, "spectrum-reddened")
+    w = red.get_xdata()
+    ratio = red.get_ydata() / clear.get_ydata()
+    ok = np.isfinite(ratio)
+    # reddening through G23 (Gordon et al. 2023, ApJ 950, 86): the drawn ratio is the law's transmission
+    np.testing.assert_allclose(ratio[ok], transmission(w[ok] * 10.0, 0.3, "G23", 3.1), rtol=1e-10)
+    assert np.all(ratio[ok] < 1) and ratio[ok][0] < ratio[ok][-1]  # blue light is dimmed more
+    assert "reddened by E(B−V) = 0.3 mag" in fig.axes[0].get_title()
+
+
 def test_plot_spectrum_writes_png(tmp_path):
     path = tmp_path / "spec.png"
     assert plots.plot_spectrum_with_passbands(5800, ["V_JC"], path) == str(path)
@@ -179,12 +200,53 @@ def test_catalogue_points_are_the_run_temperatures():
     assert "inv-4" in notes and "inv-3" in notes
 
 
-def test_catalogue_rings_flagged_temperatures():
+def _ringed(fig, level):
+    rings = _by_gid(fig, f"flagged-{level}")
+    return len(rings[0].get_offsets()) if rings else 0
+
+
+def test_catalogue_rings_stars_by_severity():
+    from stelltemp.engine import flags as F
+
     results, _ = _small_run()
-    results["flags"][1] |= 1 << 5  # pretend a poor fit on star 1
+    results["flags"][:] = 0
+    results["flags"][1] = F.POOR_FIT  # a note only (severity info): not ringed
+    assert _ringed(plots.catalogue_figure(results), "warning") == 0
+    results["flags"][1] = F.POOR_FIT | F.COLOURS_DISAGREE  # worst flag a warning: ringed
+    results["flags"][2] = F.COLOURS_DISAGREE
     fig = plots.catalogue_figure(results)
-    (ring,) = _by_gid(fig, "flagged")
-    assert len(ring.get_offsets()) == 1
+    assert _ringed(fig, "warning") == 2
+    legend = " ".join(t.get_text() for t in fig.axes[0].get_legend().get_texts())
+    assert "ringed: a warning flag (2)" in legend and "not ringed: 0" not in legend
+
+
+def test_catalogue_title_counts_as_the_run():
+    from stelltemp.catalog.batch import success_mask
+
+    results, _ = _small_run()
+    fig = plots.catalogue_figure(results)
+    n = int(success_mask(results).sum())
+    assert n == 4  # stars 0-3 have a temperature; star 3 has no usable B-V, so 3 are drawn
+    assert fig.axes[0].get_title().startswith(f"Catalogue run: {n} of 5 stars with a temperature, 3 drawn")
+
+
+def test_catalogue_reference_curves_follow_the_reddening():
+    results, _ = _small_run()
+    results["ebv_used"] = np.array([0.0, 0.3, 0.3, 0.3, 0.3])  # most stars in one reddened group
+    fig = plots.catalogue_figure(results)
+    refs = sorted(a.get_gid() for a in _by_gid(fig, "blackbody-"))
+    assert refs == ["blackbody-0", "blackbody-0.3"]  # not the median of a spread, the group's own value
+    assert len(fig.axes) == 2  # a colour bar for a spread of E(B-V)
+
+
+def test_catalogue_without_reddening_has_no_colour_bar():
+    results, _ = _small_run()
+    results["ebv_used"] = np.zeros(5)
+    fig = plots.catalogue_figure(results)
+    assert len(fig.axes) == 1  # no -0.1 ... 0.1 colour bar
+    legend = " ".join(t.get_text() for t in fig.axes[0].get_legend().get_texts())
+    assert "E(B−V) = 0 for every star" in legend
+    assert [a.get_gid() for a in _by_gid(fig, "blackbody-")] == ["blackbody-0"]
 
 
 def test_catalogue_rejects_a_table_without_results():
@@ -203,3 +265,32 @@ def test_importing_the_package_does_not_load_matplotlib():
     code = "import sys, stelltemp, stelltemp.plots; print('matplotlib' in sys.modules)"
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "False"
+
+
+def test_colourgrid_plot_spans_tmin_tmax_and_prints_the_path(tmp_path, monkeypatch, capsys):
+    from stelltemp.cli import main
+
+    drawn = {}
+    real = plots.colour_temperature_figure
+
+    def spy(*args, **kwargs):
+        drawn["fig"] = real(*args, **kwargs)
+        return drawn["fig"]
+
+    monkeypatch.setattr(plots, "colour_temperature_figure", spy)
+    path = tmp_path / "grid.png"
+    assert main(["colourgrid", "B_JC", "V_JC", "--tmin", "4000", "--tmax", "9000", "--plot", str(path)]) == 0
+    assert _is_png(path) and f"figure: {path}" in capsys.readouterr().out
+    assert drawn["fig"].axes[0].get_xlim() == pytest.approx((4000.0, 9000.0))
+
+
+def test_catalogue_plot_of_a_csv_run_counts_as_the_run(tmp_path, capsys):
+    from stelltemp.cli import main
+
+    src = tmp_path / "in.csv"
+    src.write_text("name,B_JC,V_JC,Ks_2MASS\ninv-1,10.6,10.0,8.6\ninv-2,9.1,9.0,8.9\ninv-3,,,\n")
+    fig_path = tmp_path / "diagram.png"
+    assert main(["catalogue", str(src), "-o", str(tmp_path / "out.csv"), "--plot", str(fig_path)]) == 0
+    out = capsys.readouterr().out
+    assert f"figure: {fig_path}" in out and _is_png(fig_path)
+    assert "2 with a temperature" in out

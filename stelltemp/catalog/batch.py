@@ -16,6 +16,7 @@ import sys
 import time
 from dataclasses import asdict, dataclass, field
 from datetime import datetime, timezone
+from pathlib import Path
 
 import numpy as np
 
@@ -124,10 +125,19 @@ class RunSummary:
             f"{self.rows} rows in {self.wall_time_s:.2f} s ({self.backend}), "
             f"{self.successes} with a temperature, {self.clean_rows} without flags",
             f"flags: {flagged}",
-            f"written: {self.output}",
+            f"written: {self.output}" + _sidecar_note(self.output),
         ]
         lines += [f"note: {n}" for n in self.notes]
         return "\n".join(lines)
+
+
+def _sidecar_note(output):
+    """`` (units and run record: <stem>.meta.json)`` for a CSV output, else nothing."""
+    from .tableio import EXTENSIONS, csv_sidecar_path
+
+    if output and EXTENSIONS.get(Path(str(output)).suffix.lower()) == "csv":
+        return f" (units and run record: {csv_sidecar_path(output)})"
+    return ""
 
 
 def success_mask(results):

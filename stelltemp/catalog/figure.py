@@ -25,11 +25,9 @@ def plot_results(results_path, figure_path, law="G23", rv=3.1, replace=False):
     Path of the figure.
     """
     from ..plots import plot_catalogue_results
-    from .tableio import STREAMING, ChunkReader, arrow_to_astropy
+    from .tableio import read_table
 
-    reader = ChunkReader(results_path, chunk_rows=PLOT_ROWS)
-    first = next(iter(reader), None)
-    if first is None:
+    table = read_table(results_path, max_rows=PLOT_ROWS)  # typed, with the units of the file or its sidecar
+    if not len(table):
         raise StelltempError(f"{results_path}: no rows to plot")
-    table = arrow_to_astropy(first) if reader.fmt in STREAMING else first[:PLOT_ROWS]
     return plot_catalogue_results(table, figure_path, law=law, rv=rv, replace=replace)

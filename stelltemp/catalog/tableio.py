@@ -25,9 +25,19 @@ Every format carries the column units and descriptions and the run record
 that astropy's ``Table.read`` gets them back without a warning:
 
 * ECSV: its YAML header;
-* CSV: the same ECSV header as ``#`` lines above the column names, comma
-  delimited (``Table.read(path, format="ascii.ecsv")`` reads it all; plain
-  CSV readers skip ``#`` lines, e.g. pandas with ``comment="#"``);
+* CSV: plain CSV (one line of column names, then the rows, nothing else),
+  so every CSV reader takes it as it is (``Table.read(path,
+  format="ascii.csv")``, ``pandas.read_csv``, Python's ``csv`` module).  The
+  units, descriptions, data types and the run record go beside it, in the
+  JSON file of the same stem, ``<stem>.meta.json`` (`csv_sidecar_path`;
+  layout in `csv_sidecar`); `read_table` applies it.  By hand::
+
+      side = json.loads(Path("out.meta.json").read_text())
+      side["meta"]                      # the run record
+      side["columns"]["t_bb"]["unit"]   # 'K'
+
+  CSV files written by earlier versions (an ECSV header as ``#`` lines, or
+  ``<output>.meta.json``) are still read with their units and record;
 * FITS: ``TUNIT``/``TCOMM`` per column, the record as header cards (long
   keys as HIERARCH cards, which keep their case; long text continued);
 * VOTable: ``unit`` (VOUnit: a flux in erg s⁻¹ cm⁻² is written in the equal
@@ -81,8 +91,22 @@ STREAMING = ("parquet", "csv")
 #: astropy registry names of the accumulated formats
 _ASTROPY_FORMAT = {"ecsv": "ascii.ecsv", "fits": "fits", "votable": "votable"}
 
-#: CSV outputs of earlier versions kept their record beside them in ``<output>.meta.json``
+#: ending of the JSON file beside a CSV output holding its units, descriptions and run record
 SIDECAR_SUFFIX = ".meta.json"
+#: value of the sidecar's ``"layout"`` entry
+SIDECAR_LAYOUT = "stelltemp CSV sidecar 1"
+
+
+def csv_sidecar_path(path):
+    """The metadata file beside a CSV table: same folder, same stem, ``.meta.json``.
+
+    Examples
+    --------
+    >>> csv_sidecar_path("runs/out.csv").as_posix()
+    'runs/out.meta.json'
+    """
+    path = Path(path)
+    return path.with_name(path.stem + SIDECAR_SUFFIX)
 
 
 def table_format(path):
@@ -665,12 +689,16 @@ def _text_row(text, names):
     return pa.table({n: pa.array([f], pa.string()) for n, f in zip(names, fields)})
 
 
-def read_table(path):
-    """Read a whole table file into an astropy Table (small files; see `ChunkReader`)."""
-    reader = ChunkReader(path, chunk_rows=1 << 62)
-    chunks = list(reader)
+def read_table(path, max_rows=None):
+    """Read a table file into an astropy Table, with its units and metadata (small files; see `ChunkReader`).
+
+    ``max_rows`` keeps only the first rows (read in one chunk of that size).
+    """
+    reader = ChunkReader(path, chunk_rows=max_rows or 1 << 62)
+    chunks = list(reader) if max_rows is None else [c for c in [next(iter(reader), None)] if c is not None]
     if reader.fmt not in STREAMING:
-        return chunks[0] if chunks else reader.empty_chunk()
+        out = chunks[0] if chunks else reader.empty_chunk()
+        return out[:max_rows] if max_rows is not None else out
     table = pa.concat_tables(chunks) if chunks else reader.empty_chunk()
     if reader.fmt == "csv":
         table = apply_types(table, narrowest_types([table], table.column_names))
@@ -688,6 +716,8 @@ def read_table(path):
 
 def csv_header_info(path):
     """Column attributes and table metadata of an ECSV header above a CSV table (None without one).
+
+    Earlier versions wrote CSV so; the current one writes plain CSV and a sidecar.
 
     Returns
     -------
@@ -719,14 +749,39 @@ def _header_info(lines):
     return cols, dict(header.get("meta", {}))
 
 
-def _apply_csv_header(path, table):
-    """Units, descriptions and metadata of a CSV's ECSV header onto ``table`` (or of an old sidecar)."""
+def csv_metadata(path):
+    """Column attributes and run record of a CSV table, from its sidecar (None without one).
+
+    Looks, in order, for ``<stem>.meta.json`` (`csv_sidecar`), an ECSV
+    header as ``#`` lines at the top of the file and ``<name>.meta.json``
+    (both written by earlier versions).
+
+    Returns
+    -------
+    (dict, dict) or None
+        Column name -> {"unit", "description"} and the table metadata.
+    """
+    side = csv_sidecar_path(path)
+    if side.is_file():
+        try:
+            record = json.loads(side.read_text(encoding="utf-8"))
+        except (OSError, ValueError) as exc:
+            raise StelltempError(f"{side}: not a readable metadata file ({_first_line(exc)})") from None
+        if isinstance(record, dict) and record.get("layout") == SIDECAR_LAYOUT:
+            cols = {n: {k: a[k] for k in ("unit", "description") if a.get(k)}
+                    for n, a in record.get("columns", {}).items()}
+            return cols, dict(record.get("meta", {}))
     info = csv_header_info(path)
-    side = Path(str(path) + SIDECAR_SUFFIX)
-    if info is None and side.is_file():  # outputs of earlier versions
-        record = json.loads(side.read_text())
+    old = Path(str(path) + SIDECAR_SUFFIX)
+    if info is None and old.is_file():
+        record = json.loads(old.read_text())
         info = ({n: {"unit": v} for n, v in record.get("units", {}).items()}, record.get("run", {}))
-    _apply_header(table, info)
+    return info
+
+
+def _apply_csv_header(path, table):
+    """Units, descriptions and metadata of a CSV's sidecar (`csv_metadata`) onto ``table``."""
+    _apply_header(table, csv_metadata(path))
 
 
 def _apply_header(table, info):
@@ -834,6 +889,8 @@ def check_output(path, overwrite=False, input_path=None):
         if same:
             raise StelltempError(f"{path}: the output would replace the input")
     check_output_path(path, overwrite)
+    if table_format(path) == "csv":
+        check_output_path(csv_sidecar_path(path), overwrite, what="metadata file")
 
 
 # --------------------------------------------------------------------- sinks
@@ -880,7 +937,7 @@ class ParquetSink(Sink):
         import pyarrow.parquet as pq
 
         if self.writer is None:
-            self.header = astropy_header(chunk.schema, self.run_meta, delimiter=None)
+            self.header = astropy_header(chunk.schema, self.run_meta)
             self.schema = chunk.schema.remove_metadata()
             # dictionary pages only for text: on float columns they cost time and save nothing
             text = [f.name for f in self.schema if _is_text(f.type)]
@@ -904,40 +961,28 @@ def _is_text(typ):
     return pa.types.is_string(typ) or pa.types.is_large_string(typ)
 
 
-def astropy_header(schema, run_meta, delimiter=","):
-    """astropy's YAML header (as ECSV writes it) for an arrow schema and a run record.
-
-    With ``delimiter`` the ECSV header lines (``#``-prefixed) and the column
-    names line of a comma-delimited ECSV; with None the bare YAML that
-    astropy keeps in Parquet's ``table_meta_yaml``.
-    """
-    import io
-
+def astropy_header(schema, run_meta):
+    """astropy's YAML table header (as kept in Parquet's ``table_meta_yaml``) for an arrow schema and a run record."""
     from astropy.table import meta as astropy_meta
 
     empty = arrow_to_astropy(schema.empty_table())
-    for field in schema:
-        if pa.types.is_nested(field.type) and delimiter:  # written as JSON text in CSV
-            empty[field.name] = empty[field.name].astype(str)
     empty.meta.update(run_meta)
-    if delimiter is None:
-        return "\n".join(astropy_meta.get_yaml_from_table(empty))
-    buf = io.StringIO()
-    empty.write(buf, format="ascii.ecsv", delimiter=delimiter)
-    return buf.getvalue()
+    return "\n".join(astropy_meta.get_yaml_from_table(empty))
 
 
 class CsvSink(Sink):
-    """Appends chunks to a CSV file.
+    """Appends chunks to a plain CSV file; its metadata goes to the sidecar at `close`.
 
     Cells are quoted only when they contain a comma, quote or line break, so
     text columns read from a CSV are written back exactly as read.  Numbers
     use the shortest text that reads back to the same float64; nulls are empty.
+    The first line holds the column names, nothing precedes it.
     """
 
-    def __init__(self, tmp, run_meta):
+    def __init__(self, tmp, run_meta, sidecar_tmp=None, name="table.csv"):
         self.tmp, self.run_meta, self.writer, self.schema = tmp, run_meta, None, None
-        #: column -> arrow type declared in the header for text columns whose every cell parses as
+        self.sidecar_tmp, self.name = sidecar_tmp, name
+        #: column -> arrow type recorded in the sidecar for text columns whose every cell parses as
         #: that type (the text itself is written as read)
         self.declared_types = {}
 
@@ -945,10 +990,7 @@ class CsvSink(Sink):
         if self.writer is None:
             self.schema = chunk.schema
             self.writer = open(self.tmp, "wb")
-            declared = pa.schema([f.with_type(self.declared_types.get(f.name, f.type)) if _is_text(f.type) else f
-                                  for f in self.schema])
-            # the ECSV header (units, descriptions, run record) as '#' lines, then the names line
-            self.writer.write(astropy_header(declared, self.run_meta).encode())
+            self.writer.write((_csv_names_line(self.schema.names) + "\n").encode())
         chunk = chunk.cast(self.schema)
         if chunk.num_rows:
             self.writer.write(_csv_text(chunk))
@@ -956,6 +998,72 @@ class CsvSink(Sink):
     def close(self):
         if self.writer is not None:
             self.writer.close()
+        if self.sidecar_tmp is not None:
+            declared = None
+            if self.schema is not None:
+                declared = pa.schema([f.with_type(self.declared_types.get(f.name, f.type)) if _is_text(f.type)
+                                      else f for f in self.schema])
+            text = json.dumps(csv_sidecar(declared, self.run_meta, self.name), indent=1, ensure_ascii=False)
+            Path(self.sidecar_tmp).write_text(text + "\n", encoding="utf-8")
+
+
+def _csv_names_line(names):
+    """The header line of column names, quoted only where a name needs it."""
+    import io
+
+    buf = io.StringIO()
+    csv.writer(buf, lineterminator="").writerow(names)
+    return buf.getvalue()
+
+
+def _datatype(typ):
+    """A short data-type name of an arrow type (ECSV's names where they exist)."""
+    if _is_text(typ):
+        return "string"
+    if pa.types.is_boolean(typ):
+        return "bool"
+    if pa.types.is_integer(typ) or pa.types.is_floating(typ):
+        return str(np.dtype(typ.to_pandas_dtype()))
+    return str(typ)
+
+
+def csv_sidecar(schema, run_meta, name):
+    """The content of a CSV table's sidecar (``<stem>.meta.json``) as a dict.
+
+    Parameters
+    ----------
+    schema : pyarrow.Schema or None
+        The table's columns (units and descriptions in the field metadata).
+    run_meta : dict
+        The run record (layout in :mod:`stelltemp.catalog.describe`).
+    name : str
+        File name of the CSV table the sidecar describes.
+
+    Returns
+    -------
+    dict
+        ``layout`` (`SIDECAR_LAYOUT`), ``table`` (the CSV file's name),
+        ``columns`` (name -> ``datatype``, and ``unit``, ``description``
+        where known; in the file's column order) and ``meta`` (the run record).
+
+    Examples
+    --------
+    >>> import pyarrow as pa
+    >>> field = pa.field("t_bb", pa.float64(), metadata={"unit": "K"})
+    >>> side = csv_sidecar(pa.schema([field]), {"R_V": 3.1}, "out.csv")
+    >>> side["columns"], side["meta"]
+    ({'t_bb': {'datatype': 'float64', 'unit': 'K'}}, {'R_V': 3.1})
+    """
+    columns = {}
+    for field in schema or ():
+        attrs = {"datatype": _datatype(field.type)}
+        unit, text = unit_of_field(field), description_of_field(field)
+        if unit:
+            attrs["unit"] = unit
+        if text:
+            attrs["description"] = text
+        columns[field.name] = attrs
+    return {"layout": SIDECAR_LAYOUT, "table": name, "columns": columns, "meta": dict(run_meta)}
 
 
 def _csv_text(chunk):
@@ -1172,11 +1280,13 @@ def open_sink(path, run_meta, overwrite=False):
     path = Path(path)
     fmt = table_format(path)
     with contextlib.ExitStack() as stack:
+        if fmt == "csv":  # the sidecar is renamed into place after the table
+            side_tmp = stack.enter_context(atomic_path(csv_sidecar_path(path), overwrite))
         tmp = stack.enter_context(atomic_path(path, overwrite))
         if fmt == "parquet":
             sink = ParquetSink(tmp, run_meta)
         elif fmt == "csv":
-            sink = CsvSink(tmp, run_meta)
+            sink = CsvSink(tmp, run_meta, side_tmp, path.name)
         else:
             sink = AstropySink(tmp, fmt, run_meta)
         sink.kind = "arrow" if fmt in STREAMING else "astropy"

@@ -49,7 +49,9 @@ def run(args, out=None, err=None):
     if args.plot:
         from ..plots import plot_colour_temperature
 
-        plot_colour_temperature(bands, args.plot, ebv=args.ebv, law=args.law, rv=args.rv, replace=args.replace)
+        # the figure spans the temperatures of the table (--tmin/--tmax or the listed --temps)
+        plot_colour_temperature(bands, args.plot, ebv=args.ebv, law=args.law, rv=args.rv, replace=args.replace,
+                                tmin=float(np.min(temps)), tmax=float(np.max(temps)))
     if args.json:
         emit_json({"scale": "blackbody of radius 1 R_sun at 10 pc", "ebv": args.ebv, "law": args.law,
                    "R_V": args.rv, "temperature_K": temps, "magnitudes": mags, "colours": colours}, out)

@@ -73,7 +73,7 @@ def run(args, out=None, err=None):
         from ..observing.figures import plot_night
 
         plot_night(night_tracks(instrument, targets, args.date, args.step, args.dark), args.plot, args.min_alt,
-                   replace=args.replace)
+                   replace=args.replace, plan=table)
     if args.output:
         _save(table, args.output, args.replace)
     m = table.meta

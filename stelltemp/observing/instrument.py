@@ -497,11 +497,10 @@ def _resolve_path(ctx: _Ctx, tab: _Table, key: str) -> Path:
 
 
 def _read_curve_file(tab: _Table, key: str, path: Path, outside: str) -> Curve:
-    from astropy.table import Table
+    from ..catalog.tableio import read_table
 
-    fmt = "ascii.ecsv" if path.suffix.lower() == ".ecsv" else "ascii.csv"
     try:
-        t = Table.read(path, format=fmt)
+        t = read_table(path)  # the one table reader (CSV '#' lines are comments)
     except Exception as exc:  # astropy raises many types for malformed tables
         raise tab.error(key, f"cannot read curve file {path.name}: {str(exc).splitlines()[0]}") from None
     if "wavelength" not in t.colnames or "value" not in t.colnames:

@@ -477,18 +477,20 @@ def target_photometry(instrument: Instrument, target) -> dict:
 
 
 def read_targets(path):
-    """Read a target list (CSV or ECSV) and check it with `parse_targets`."""
+    """Read a target list (any table format of `stelltemp.catalog.tableio`) and check it with `parse_targets`."""
     from pathlib import Path
 
-    p = Path(path)
-    fmt = "ascii.ecsv" if p.suffix.lower() == ".ecsv" else "ascii.csv"
+    from ..catalog.tableio import read_table, table_format
     from ..errors import plain_reason
     from ..safeio import read_text_file
 
-    text = read_text_file(p, "target list").splitlines()  # missing, unreadable or not UTF-8: one plain line
+    p = Path(path)
+    if table_format(p) in ("csv", "ecsv"):
+        read_text_file(p, "target list")  # missing, unreadable or not UTF-8: one plain line
     try:
-        # CSV: '#' lines are comments, as in the catalogue reader
-        t = Table.read(text, format=fmt) if fmt == "ascii.ecsv" else Table.read(text, format=fmt, comment="#")
+        t = read_table(p)  # the one table reader: CSV '#' lines are comments, a CSV sidecar gives units
+    except StelltempError as exc:
+        raise StelltempError(f"cannot read target list {p.name}: {exc}") from None
     except Exception as exc:  # astropy raises many types for malformed tables
         raise StelltempError(f"cannot read target list {p.name}: {plain_reason(exc)}") from None
     return parse_targets(t)
@@ -564,7 +566,9 @@ def night_tracks(instrument: Instrument, targets, date, step_min=10.0, sun_limit
         ``names``, ``alt`` and ``airmass`` (n_targets × n_times, Kasten &
         Young; NaN below the horizon), ``rates`` {filter: e⁻ s⁻¹ array
         (n_targets × n_times), NaN below the horizon; each star's rate
-        anchored to its own photometry}, ``twilight``.
+        anchored to its own photometry}, ``twilight``; for the night chart
+        ``moon_alt`` (deg) and ``moon_illuminated`` (fraction) on the grid,
+        ``site`` and ``utc_offset_hours``.
     """
     night, loc, tw, dark, grid = _night_setup(instrument, date, step_min, sun_limit)
     good = [t for t in targets if not t["error"]]
@@ -572,7 +576,8 @@ def night_tracks(instrument: Instrument, targets, date, step_min=10.0, sun_limit
     mask = _dark_mask(grid, dark)
     if not good:
         return {"times": grid, "sun_alt": sun_alt, "dark": mask, "names": [], "alt": np.empty((0, len(grid))),
-                "airmass": np.empty((0, len(grid))), "rates": {}, "twilight": tw}
+                "airmass": np.empty((0, len(grid))), "rates": {}, "twilight": tw,
+                **_figure_context(instrument, night, grid, loc)}
     alt, _ = night.altaz_of(([t["ra_deg"] for t in good], [t["dec_deg"] for t in good]), grid, loc)
     x = airmass_kasten_young(alt)
     rates = {f: np.full(alt.shape, np.nan) for f in instrument.filters}
@@ -584,7 +589,14 @@ def night_tracks(instrument: Instrument, targets, date, step_min=10.0, sun_limit
             rates[f][i] = src[f].rate * np.where(np.isfinite(x[i]), counts.extinction_factor(k, np.nan_to_num(x[i])),
                                                  np.nan)
     return {"times": grid, "sun_alt": sun_alt, "dark": mask, "names": [t["name"] for t in good], "alt": alt,
-            "airmass": x, "rates": rates, "twilight": tw}
+            "airmass": x, "rates": rates, "twilight": tw, **_figure_context(instrument, night, grid, loc)}
+
+
+def _figure_context(instrument, night, grid, loc):
+    """What the night chart shows besides the targets: the Moon's track and phase, the site and its UTC offset."""
+    m = night.moon_geometry(grid, loc)
+    return {"moon_alt": m["alt_deg"], "moon_illuminated": m["illuminated"], "site": instrument.site.name,
+            "utc_offset_hours": instrument.site.utc_offset[0]}
 
 
 def _moon_at_best(night, grid, loc, coords, windows, good, v_filter):
