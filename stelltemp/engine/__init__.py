@@ -46,7 +46,10 @@ DEFAULT_MAG_ERR = 0.03
 
 
 def _column(values, n, name, default=None, unit=u.mag):
-    """A per-star input as a float array of length n (Quantities converted to ``unit``)."""
+    """A per-star input as a float array of length n (Quantities converted to ``unit``).
+
+    A scalar is broadcast to every star; an array must have exactly n values.
+    """
     if values is None:
         return None if default is None else np.full(n, float(default))
     if isinstance(values, u.Quantity):
@@ -58,9 +61,12 @@ def _column(values, n, name, default=None, unit=u.mag):
         arr = np.asarray(values, dtype=float)
     except (TypeError, ValueError):
         raise StelltempError(f"{name} must be numeric") from None
-    if arr.ndim > 1 or (arr.ndim == 1 and arr.size not in (1, n)):
-        raise StelltempError(f"{name} has {arr.size} values for {n} stars")
-    return np.broadcast_to(arr.reshape(-1) if arr.ndim else arr, (n,)).astype(float)
+    # only a scalar is broadcast: a length-1 array for many stars is a mistake, not a shorthand
+    if arr.ndim > 1 or (arr.ndim == 1 and arr.size != n):
+        values_word = "value" if arr.size == 1 else "values"
+        raise StelltempError(f"{name} has {arr.size} {values_word} for {n} stars "
+                             "(give one per star, or a single number for all)")
+    return np.broadcast_to(arr, (n,)).astype(float)
 
 
 def _clean_photometry(mags, errs, keys, n, notes=None):
