@@ -39,6 +39,9 @@ from .passbands import get_passband
 from .photometry import mag_offset
 from .planck import dlnb_dlnt, planck_lambda_cgs
 
+__all__ = ["blackbody_mag", "band_table", "colour_table", "constant_coefficient", "inside", "band_weights",
+           "blackbody_band_terms"]
+
 T_MIN, T_MAX = 1000.0, 100000.0
 N_T = 241
 E_MIN, E_MAX, E_STEP = -0.5, 6.0, 0.1

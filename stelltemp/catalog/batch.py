@@ -455,6 +455,18 @@ def run_catalogue(
     StelltempError
         Unreadable input, unknown extension, missing columns, existing output,
         bad options.  Bad rows never raise: they are flagged.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> from astropy.table import Table
+    >>> from stelltemp.catalog import read_table, write_table
+    >>> d = pathlib.Path(tempfile.mkdtemp())
+    >>> _ = write_table(Table({"B_JC": [10.65, 9.9], "V_JC": [10.0, 9.3]}), d / "in.csv")
+    >>> summary = run_catalogue(d / "in.csv", d / "out.ecsv", quiet=True)
+    >>> summary.rows, len(read_table(d / "out.ecsv"))
+    (2, 2)
+
     """
     t0 = time.perf_counter()
     opts = RunOptions(rv=float(rv), law=law, method=method, fit_ebv=bool(fit_ebv))

@@ -579,7 +579,18 @@ def _text_row(text, names):
 
 
 def read_table(path):
-    """Read a whole table file into an astropy Table (small files; see `ChunkReader`)."""
+    """Read a whole table file into an astropy Table (small files; see `ChunkReader`).
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> from astropy.table import Table
+    >>> path = pathlib.Path(tempfile.mkdtemp()) / "stars.ecsv"
+    >>> _ = write_table(Table({"V_JC": [10.0, 11.0]}), path)
+    >>> list(read_table(path)["V_JC"])
+    [np.float64(10.0), np.float64(11.0)]
+
+    """
     reader = ChunkReader(path, chunk_rows=1 << 62)
     chunks = list(reader)
     if reader.fmt not in STREAMING:
@@ -1103,7 +1114,18 @@ def open_sink(path, run_meta, overwrite=False):
 
 
 def write_table(table, path, run_meta=None, overwrite=False):
-    """Write an astropy Table to `path` (format by extension), atomically."""
+    """Write an astropy Table to `path` (format by extension), atomically.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> from astropy.table import Table
+    >>> path = pathlib.Path(tempfile.mkdtemp()) / "stars.csv"
+    >>> _ = write_table(Table({"V_JC": [10.5]}), path)
+    >>> path.read_text().splitlines()[-1]
+    '10.5'
+
+    """
     with open_sink(path, dict(run_meta or {}), overwrite=overwrite) as sink:
         sink.write(astropy_to_arrow(table) if sink.kind == "arrow" else table)
 

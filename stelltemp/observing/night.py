@@ -127,6 +127,16 @@ def twilight_times(date, site, step_min=10.0):
         Keys ``"<name>_evening"`` and ``"<name>_morning"`` for name in
         ``sun, civil, nautical, astronomical``; values are astropy Time or
         None when the Sun does not cross that altitude that night.
+
+    Examples
+    --------
+    >>> from stelltemp.observing import load_instrument
+    >>> from stelltemp.tour import find_demo_dir
+    >>> site = load_instrument(find_demo_dir() / "instruments" / "quillmere_04m_ccd.toml").site
+    >>> tw = twilight_times("2026-03-15", site)
+    >>> tw["sun_evening"] < tw["astronomical_evening"] < tw["astronomical_morning"] < tw["sun_morning"]
+    True
+
     """
     loc = site.location()
     grid = night_grid(date, site, step_min)
