@@ -26,10 +26,9 @@ How to add a subcommand
 1. Write ``stelltemp/cli/<name>.py`` with two functions, like the others::
 
        def add(subparsers):            # register the parser; shared groups from .options
-           p = subparsers.add_parser("<name>", help="…", description="…")
-           options.add_json(p)
-           p.set_defaults(run=run)
-           return p
+           p = options.subcommand(subparsers, NAME, run, help="…", description="…")
+           ...                          # its own options, then the shared closing ones:
+           return options.add_closing(p, plot="…", replace="--plot file")
 
        def run(args, out=None, err=None):   # parse → call the public API → format; return 0
            ...

@@ -16,8 +16,8 @@ DEFAULT_CHUNK_ROWS = 50_000
 
 
 def add(subparsers):
-    p = subparsers.add_parser(
-        NAME, help="temperatures for every row of a table file (CSV, ECSV, FITS, VOTable, Parquet)",
+    p = options.subcommand(subparsers, NAME, run,
+        help="temperatures for every row of a table file (CSV, ECSV, FITS, VOTable, Parquet)",
         description=(
             "Run the temperature engine over a table file. Magnitude columns are named by "
             "passband key (V_JC, Ks_2MASS ...) with errors in <key>_err, unless a column map "
@@ -45,7 +45,6 @@ def add(subparsers):
     p.add_argument("--workers", type=int, metavar="N", help="local Dask workers (default: all cores)")
     p.add_argument("--dask-local", choices=("threads", "processes"), default="threads",
                    help="local Dask workers as threads or processes")
-    p.set_defaults(run=run)
     return p
 
 

@@ -14,9 +14,10 @@ COLUMNS = [("filter", "{}"), ("rate_source", "{}"), ("airmass", "{:.2f}"), ("sta
 
 
 def add(subparsers):
-    p = subparsers.add_parser(NAME, help="count rates, S/N, exposure time and saturation for one star",
-                              description="Count rates, S/N, exposure time and saturation advice for one star "
-                                          "through each filter of an instrument.")
+    p = options.subcommand(subparsers, NAME, run,
+                           help="count rates, S/N, exposure time and saturation for one star",
+                           description="Count rates, S/N, exposure time and saturation advice for one star "
+                                       "through each filter of an instrument.")
     p.add_argument("--mag", action="append", required=True, metavar="BAND=MAG[,ERR]",
                    help="a measured magnitude outside the atmosphere, in a passband or instrument filter, e.g. "
                         "--mag V=12.0,0.02 (repeat for each band: every filter's rate is anchored to them)")
@@ -35,7 +36,6 @@ def add(subparsers):
     p.add_argument("--filters", help="comma-separated subset of the instrument's filters (default: all)")
     add_goal_options(p)
     options.add_plot(p, "S/N against exposure time")
-    p.set_defaults(run=run)
     return p
 
 

@@ -20,8 +20,8 @@ SUMMARY_COLUMNS = [("target", "{}"), ("best_time", "{}"), ("best_time_local", "{
 
 
 def add(subparsers):
-    p = subparsers.add_parser(
-        NAME, help="best windows, airmass and exposures for a target list in one night",
+    p = options.subcommand(subparsers, NAME, run,
+        help="best windows, airmass and exposures for a target list in one night",
         description="For a target list (CSV/ECSV with columns name, ra, dec, the star's magnitudes as columns named "
                     "by passband key (with _err) and/or mag, band, and optional teff, ebv, ebv_err), find each "
                     "target's best dark-time window at the instrument's site and plan its exposures from its own "
@@ -39,7 +39,6 @@ def add(subparsers):
     p.add_argument("--time", help=argparse.SUPPRESS)  # old: exposure seconds (see exposure_seconds)
     add_goal_options(p)
     options.add_plot(p, "altitude and airmass of the targets through the night")
-    p.set_defaults(run=run)
     return p
 
 

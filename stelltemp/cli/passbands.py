@@ -9,12 +9,11 @@ NAME = "passbands"
 
 
 def add(subparsers):
-    p = subparsers.add_parser(NAME, help="list built-in passbands with their properties",
-                              description="The built-in passbands: key, system, magnitude system, detector type, "
-                                          "pivot wavelength, FWHM, equivalent width and the source of the curve.")
-    options.add_json(p)
-    p.set_defaults(run=run)
-    return p
+    p = options.subcommand(subparsers, NAME, run,
+                           help="list built-in passbands with their properties",
+                           description="The built-in passbands: key, system, magnitude system, detector type, "
+                                       "pivot wavelength, FWHM, equivalent width and the source of the curve.")
+    return options.add_closing(p)
 
 
 def run(args, out=None, err=None):

@@ -10,8 +10,8 @@ NAME = "standardise"
 
 
 def add(subparsers):
-    p = subparsers.add_parser(
-        NAME, help="standard magnitudes from instrumental ones: fit the night's transformation, apply it",
+    p = options.subcommand(subparsers, NAME, run,
+        help="standard magnitudes from instrumental ones: fit the night's transformation, apply it",
         description=(
             "Fit zero point, extinction and colour term (optionally the colour-dependent extinction) per "
             "filter to the standard stars among the measurements, write the transformation file, and give "
@@ -43,7 +43,6 @@ def add(subparsers):
     options.add_replace(p, "output, targets, temperatures or plot file")
     p.add_argument("--quiet", action="store_true", help="no progress lines")
     options.add_json(p)
-    p.set_defaults(run=run)
     return p
 
 

@@ -10,8 +10,8 @@ DEFAULT_OUT = "tour_output"  # same as stelltemp.tour.DEFAULT_OUT (not imported:
 
 
 def add(subparsers):
-    p = subparsers.add_parser(
-        NAME, help="run the whole job once on the invented demo data",
+    p = options.subcommand(subparsers, NAME, run,
+        help="run the whole job once on the invented demo data",
         description="Temperatures for the invented demo stars, figures, and a night plan with exposures, "
                     "written to one folder, with a short summary.")
     p.add_argument("-o", "--output", default=DEFAULT_OUT, metavar="DIR", help="output folder")
@@ -19,7 +19,6 @@ def add(subparsers):
     options.add_replace(p, "non-empty output folder")
     options.add_json(p)
     p.add_argument("--quiet", action="store_true", help="print nothing on success")
-    p.set_defaults(run=run)
     return p
 
 
