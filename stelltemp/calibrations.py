@@ -350,10 +350,8 @@ class Relation:
         >>> round(float(t)), bool(ok)
         (5755, True)
         """
-        x, _, z_eval, g, inside = self._prepare(colour, feh, logg)
-        t, _, _, valid = self._evaluate(x, z_eval, g)
-        inside = inside & valid
-        return np.where(inside, t, np.nan), inside
+        t, _, _, inside = self.at(colour, feh, logg)
+        return t, inside
 
     def dteff_dcolour(self, colour, feh=DEFAULT_FEH, logg=None):
         """Analytic ∂T_eff/∂X in K mag⁻¹ (NaN outside the validity range).
@@ -361,9 +359,7 @@ class Relation:
         θ form: ∂T/∂X = −S ∂P/∂X / P²;  linear form: S ∂P/∂X;  table: the
         slope of the segment the colour falls in.
         """
-        x, _, z_eval, g, inside = self._prepare(colour, feh, logg)
-        _, d_x, _, valid = self._evaluate(x, z_eval, g)
-        return np.where(inside & valid, d_x, np.nan)
+        return self.at(colour, feh, logg)[1]
 
     def dteff_dfeh(self, colour, feh=DEFAULT_FEH, logg=None):
         """Analytic ∂T_eff/∂[Fe/H] in K dex⁻¹ (NaN outside the validity range).
@@ -371,10 +367,31 @@ class Relation:
         Zero below `feh_floor`, where the formula is held at the floor, and
         for tabulated sequences (no [Fe/H] term).
         """
+        return self.at(colour, feh, logg)[2]
+
+    def at(self, colour, feh=DEFAULT_FEH, logg=None):
+        """T_eff, ∂T_eff/∂X and ∂T_eff/∂[Fe/H] in one pass (what `teff`, `dteff_dcolour`
+        and `dteff_dfeh` return), and where the relation applied.
+
+        Returns
+        -------
+        teff, d_colour, d_feh : ndarray
+            K, K mag⁻¹, K dex⁻¹; NaN outside the validity range.
+        inside : ndarray of bool
+
+        Examples
+        --------
+        >>> t, dx, dz, ok = get_relation("c10_vk").at(1.56, 0.0)
+        >>> round(float(t)), bool(dx < 0), bool(ok)
+        (5755, True, True)
+        """
         x, z, z_eval, g, inside = self._prepare(colour, feh, logg)
-        _, _, d_z, valid = self._evaluate(x, z_eval, g)
-        held = np.zeros(z.shape, bool) if self.feh_floor is None else z < self.feh_floor
-        return np.where(inside & valid, np.where(held, 0.0, d_z), np.nan)
+        t, d_x, d_z, valid = self._evaluate(x, z_eval, g)
+        inside = inside & valid
+        if self.feh_floor is not None:
+            d_z = np.where(z < self.feh_floor, 0.0, d_z)
+        return (np.where(inside, t, np.nan), np.where(inside, d_x, np.nan),
+                np.where(inside, d_z, np.nan), inside)
 
     def applies_to(self, logg=None):
         """Whether the relation's luminosity class fits each star.

@@ -335,3 +335,38 @@ def test_cli_nightplan_prints_a_summary_then_the_filters(tmp_path):
                            "--json")
     assert [r["target"] for r in doc["summary"]["rows"]] == ["Invented-1", "Invented-2"]
     assert len(doc["rows"]) == 8
+
+
+# ---------------------------------------------------------------- one engine call for a whole list
+def test_one_engine_call_for_a_list_equals_one_call_per_star(ccd, monkeypatch):
+    """The night plan fits all its stars' temperatures in one engine call; each star's spectrum is the one a
+    call of its own gives (rows differ in their measured bands: two bands, five bands, a placeholder, one band,
+    a given teff)."""
+    from stelltemp import engine
+
+    rows = plan.read_targets(Path(__file__).resolve().parents[1] / "catalogs_demo" / "targets.csv")
+    picked = [rows[i] for i in (0, 1, 6, 22)]
+    phots = [anchor.clean_photometry(plan.target_photometry(ccd, t)) for t in picked]
+    phots += [{"B_JC": (12.9, 0.02), "V_JC": (12.0, math.nan)}, {"V_JC": (12.0, 0.01)},
+              {"V_JC": (12.0, 0.01), "Ic_JC": (11.0, 0.01)}]
+    teffs = [None] * 6 + [5200.0]
+    ebvs, errs = [t["ebv"] for t in picked] + [0.1, 0.0, 0.2], [t["ebv_err"] for t in picked] + [0.0, 0.0, 0.0]
+    calls = []
+    real = engine.estimate
+    monkeypatch.setattr(engine, "estimate", lambda *a, **k: calls.append(1) or real(*a, **k))
+    joint = anchor.star_spectra(phots, teffs, ebvs, errs)
+    assert len(calls) == 1
+    single = [anchor.star_spectrum(p, t, e, de) for p, t, e, de in zip(phots, teffs, ebvs, errs)]
+    assert joint == single  # teff, E(B-V), origin and note, exactly
+    assert [s.origin for s in joint][-3:] == ["engine", "template", "given"]
+    # and the plan: rates from the joint spectra equal rates computed star by star
+    got = plan._targets_rates(ccd, picked)
+    for t, g in zip(picked, got):
+        one = anchor.anchored_rates(ccd, plan.target_photometry(ccd, t), teff=t["teff"], ebv=t["ebv"],
+                                    ebv_err=t["ebv_err"])
+        assert {f: g[f].rate for f in ccd.filters} == {f: one[f].rate for f in ccd.filters}
+
+
+def test_no_moonlight_is_zero_not_minus_zero():
+    _, dv = moon.moon_sky_vmag(21.5, 5.0, 60.0, 20.0, 100.0, 0.15)  # Moon below the horizon
+    assert float(dv) == 0.0 and math.copysign(1.0, float(dv)) == 1.0

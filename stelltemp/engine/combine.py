@@ -53,6 +53,7 @@ import numpy as np
 from .. import bandgrid as bg
 from ..calibrations import coverage_notes, relations
 from . import flags as fl
+from .patterns import unique_rows
 
 #: Gauss–Newton iterations: each linearises the relations at the current T_eff (and, when
 #: E(B−V) is fitted, re-evaluates the colour excess exactly at the current E(B−V))
@@ -126,9 +127,11 @@ class CalibratedTeff:
 
     def used_names(self):
         """Comma-separated relation keys used, per star."""
+        if not len(self.keys):
+            return np.full(len(self.teff), "", dtype=str)
+        patterns, inverse = unique_rows(self.used)
         keys = np.array(self.keys, dtype=object)
-        return np.array([",".join(keys[row]) for row in self.used], dtype=str) if len(self.keys) \
-            else np.full(len(self.teff), "", dtype=str)
+        return np.array([",".join(keys[row]) for row in patterns], dtype=str)[inverse]
 
 
 def candidate_relations(keys):
@@ -203,9 +206,7 @@ def _evaluate(setup, m, ex, de, dt, feh, logg, allowed=None):
     used = np.zeros((n, r), bool)
     for i, rel in enumerate(setup.rels):
         cand = rel.applies_to(logg) & np.isfinite(x[:, i])
-        ti, inside = rel.teff(x[:, i], feh, logg)
-        si = rel.dteff_dcolour(x[:, i], feh, logg)
-        gi = rel.dteff_dfeh(x[:, i], feh, logg)
+        ti, si, gi, inside = rel.at(x[:, i], feh, logg)
         ok = cand & inside & np.isfinite(ti) & np.isfinite(si)
         if allowed is not None:
             ok &= allowed[:, i]
@@ -236,13 +237,10 @@ def _linearise_at(setup, t_hat, x, y, s, g, used, feh, logg):
         lo, hi = rel.colour_range
         xm = np.clip(x[rows, i], lo, hi)
         for _ in range(_INVERSE_STEPS):
-            ti, _ = rel.teff(xm, z, lg)
-            si = rel.dteff_dcolour(xm, z, lg)
+            ti, si, _, _ = rel.at(xm, z, lg)
             with np.errstate(invalid="ignore", divide="ignore"):
                 xm = np.clip(xm + (target - ti) / si, lo, hi)
-        ti, inside = rel.teff(xm, z, lg)
-        si = rel.dteff_dcolour(xm, z, lg)
-        gi = rel.dteff_dfeh(xm, z, lg)
+        ti, si, gi, inside = rel.at(xm, z, lg)
         good = inside & (np.abs(ti - target) < 0.5) & np.isfinite(si)
         rows, xm, si, gi = rows[good], xm[good], si[good], gi[good]
         y[rows, i] = t_hat[rows] + si * (x[rows, i] - xm)
@@ -266,51 +264,53 @@ def _covariance(setup, s, g, used, sig_m, feh_err, scatter):
 def _gls(c, design, y, used, prior_prec, prior_d):
     """Generalised least squares per star, with an optional Gaussian prior on parameter 1.
 
-    Stars are solved in groups that use the same relations, each with only
-    those rows and columns, so a star's numbers do not depend on the other
-    stars of the call (a file run in chunks equals one call).
+    All stars are solved at once on the full set of relations: a relation a
+    star does not use has an identity row and column in ``c`` (see
+    `_covariance`) and a zero design row and datum, so it adds nothing, and
+    a star's numbers do not depend on the other stars of the call (a file
+    run in chunks equals one call).  The p × p information matrix (p ≤ 2)
+    is inverted in closed form.
 
     Returns estimate (n, p), covariance (n, p, p), χ², and the linear
-    estimator: estimate = Ly @ y + Lp · prior_d.
+    estimator: estimate = Ly @ y + Lp · prior_d (Ly zero for unused relations).
     """
     n, r, p = design.shape
-    est = np.full((n, p), np.nan)
-    cov = np.full((n, p, p), np.nan)
-    chi2 = np.full(n, np.nan)
-    ly = np.zeros((n, p, r))
-    lp = np.zeros((n, p))
     if n == 0:
-        return est, cov, chi2, ly, lp
-    patterns, inverse = np.unique(used, axis=0, return_inverse=True)
-    inverse = np.asarray(inverse).reshape(-1)
-    for k, pattern in enumerate(patterns):
-        cols = np.flatnonzero(pattern)
-        rows = np.flatnonzero(inverse == k)
-        if cols.size == 0:
-            continue
-        ci = np.linalg.inv(c[np.ix_(rows, cols, cols)])
-        a = design[np.ix_(rows, cols, np.arange(p))]
-        yy = y[np.ix_(rows, cols)]
-        cia = ci @ a
-        info = np.einsum("nri,nrj->nij", a, cia)
-        prec = prior_prec[rows]
-        if p > 1:
-            info[:, 1, 1] += prec
-        ok = np.linalg.det(info) > 0
-        info[~ok] = np.eye(p)
-        cv = np.linalg.inv(info)
-        l_y = cv @ np.swapaxes(cia, 1, 2)  # (rows, p, cols)
-        l_p = cv[:, :, 1] * prec[:, None] if p > 1 else np.zeros((rows.size, p))
-        e = np.einsum("npr,nr->np", l_y, yy) + l_p * prior_d[rows, None]
-        resid = yy - np.einsum("nrp,np->nr", a, e)
-        x2 = np.einsum("nr,nrs,ns->n", resid, ci, resid)
-        if p > 1:
-            x2 = x2 + prec * (e[:, 1] - prior_d[rows]) ** 2
-        e[~ok] = np.nan
-        cv[~ok] = np.nan
-        est[rows], cov[rows], chi2[rows], lp[rows] = e, cv, x2, l_p
-        ly[np.ix_(rows, np.arange(p), cols)] = l_y
-    return est, cov, chi2, ly, lp
+        return (np.full((0, p), np.nan), np.full((0, p, p), np.nan), np.full(0, np.nan),
+                np.zeros((0, p, r)), np.zeros((0, p)))
+    a = np.where(used[:, :, None], design, 0.0)
+    yy = np.where(used, y, 0.0)
+    ci = np.linalg.inv(c)
+    cia = ci @ a
+    info = np.einsum("nri,nrj->nij", a, cia)
+    if p > 1:
+        info[:, 1, 1] += prior_prec
+    if p == 1:
+        det = info[:, 0, 0]
+    else:
+        det = info[:, 0, 0] * info[:, 1, 1] - info[:, 0, 1] * info[:, 1, 0]
+    ok = (det > 0) & used.any(axis=1)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        if p == 1:
+            cv = (1.0 / info).reshape(n, 1, 1)
+        else:
+            cv = np.stack([np.stack([info[:, 1, 1], -info[:, 0, 1]], -1),
+                           np.stack([-info[:, 1, 0], info[:, 0, 0]], -1)], 1) / det[:, None, None]
+    cv[~ok] = np.eye(p)
+    l_y = cv @ np.swapaxes(cia, 1, 2)  # (n, p, r)
+    l_p = cv[:, :, 1] * prior_prec[:, None] if p > 1 else np.zeros((n, p))
+    e = np.einsum("npr,nr->np", l_y, yy) + l_p * prior_d[:, None]
+    resid = yy - np.einsum("nrp,np->nr", a, e)
+    chi2 = np.einsum("nr,nrs,ns->n", resid, ci, resid)
+    if p > 1:
+        chi2 = chi2 + prior_prec * (e[:, 1] - prior_d) ** 2
+    e[~ok] = np.nan
+    cv[~ok] = np.nan
+    none = ~used.any(axis=1)  # no relation: nothing estimated
+    chi2[none] = np.nan
+    l_y[none] = 0.0
+    l_p[none] = 0.0
+    return e, cv, chi2, l_y, l_p
 
 
 def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=None, feh_err=None,
@@ -382,13 +382,18 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
                          e_lin)
     t_hat = None
     allowed = None
+    rows = np.arange(n)  # the stars still moving: a converged star is not computed again
+    last = {}  # per star, the quantities of its latest pass
     for it in range(_ITERATIONS):
         if it:
             # the excess of a blackbody at the current T_eff, not at T_bb (which can be far off,
             # and is noisy: the excess changes by 0.02-0.05 mag per 1,000 K at E(B-V) = 1)
             t_ref = np.where(np.isfinite(t_hat), t_hat, t_ref)
-        ex, de, dt = colour_excess(keys, t_ref, e_lin, law, rv)
-        x, kx, kt, y, s, g, used = _evaluate(setup, m, ex, de, dt, feh, logg, allowed)
+            rows = np.flatnonzero(moving)
+        tr, el, fz, lg = t_ref[rows], e_lin[rows], feh[rows], logg[rows]
+        ex, de, dt = colour_excess(keys, tr, el, law, rv)
+        x, kx, kt, y, s, g, used = _evaluate(setup, m[rows], ex, de, dt, fz, lg,
+                                             None if allowed is None else allowed[rows])
         if it == 0:
             setup0, x0 = setup, x
             # relations no star can use drop out of the matrices; with E(B-V) given, a star keeps
@@ -405,39 +410,54 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
                 notes = _notes(setup0, x0, logg, feh_given, fit_ebv, prior_prec, np.zeros(n, int))
                 return _nothing(n, setup0, np.zeros(n, bool), notes)
         if t_hat is not None:
-            y, s, g = _linearise_at(setup, t_hat, x, y, s, g, used, feh, logg)
-        sc = _scatter(setup, t_ref)
+            y, s, g = _linearise_at(setup, t_hat[rows], x, y, s, g, used, fz, lg)
+        sc = _scatter(setup, tr)
         v = s * kx
         # the excess itself depends on T: ∂T_i/∂T = 1 + s_i ∂ΔC_i/∂T (about t_ref)
-        a = np.where(used, 1.0 + s * kt / t_ref[:, None], 1.0)
-        y = y - (1.0 - a) * t_ref[:, None]
-        c = _covariance(setup, s, g, used, sig_m, feh_err, sc)
+        a = np.where(used, 1.0 + s * kt / tr[:, None], 1.0)
+        y = y - (1.0 - a) * tr[:, None]
+        c = _covariance(setup, s, g, used, sig_m[rows], feh_err[rows], sc)
         n_used = used.sum(axis=1)
+        pp = prior_prec[rows]
         if fit_ebv:
             design = np.stack([a, v], axis=-1)
-            est, cov, chi2, ly, lp = _gls(c, design, y, used, prior_prec, ebv - e_lin)
-            bad = (n_used == 0) | ((prior_prec == 0) & (n_used < MIN_RELATIONS_FREE_EBV))
+            est, cov, chi2, ly, lp = _gls(c, design, y, used, pp, ebv[rows] - el)
+            bad = (n_used == 0) | ((pp == 0) & (n_used < MIN_RELATIONS_FREE_EBV))
             step_e = np.where(bad | ~np.isfinite(est[:, 1]), 0.0, est[:, 1])
         else:
             # the given E(B-V) and its error: one shared term of every relation
             vv = np.where(used, v, 0.0)
-            c = c + vv[:, :, None] * vv[:, None, :] * (ebv_err**2)[:, None, None]
-            est, cov, chi2, ly, lp = _gls(c, a[:, :, None], y, used, np.zeros(n), np.zeros(n))
+            c = c + vv[:, :, None] * vv[:, None, :] * (ebv_err[rows] ** 2)[:, None, None]
+            k = rows.size
+            est, cov, chi2, ly, lp = _gls(c, a[:, :, None], y, used, np.zeros(k), np.zeros(k))
             bad = n_used == 0
-            step_e = np.zeros(n)
+            step_e = np.zeros(k)
+        now = dict(x=x, kx=kx, y=y, s=s, used=used, sc=sc, v=v, c=c, n_used=n_used, bad=bad,
+                   est=est, cov=cov, chi2=chi2, ly=ly, lp=lp)
+        if it == 0:
+            last = dict(now, x=x.copy())  # x0 (the first pass) stays as it is
+        else:
+            for name, value in now.items():
+                last[name][rows] = value
         new_t = np.where(bad, np.nan, est[:, 0])
         if t_hat is None:
             t_hat = new_t
             moving = np.ones(n, bool)
         else:
-            step_t = np.where(np.isfinite(new_t - t_hat), new_t - t_hat, 0.0)
+            old = t_hat[rows]
+            step_t = np.where(np.isfinite(new_t - old), new_t - old, 0.0)
             # a star that has converged keeps its linearisation point from then on, so its
-            # result does not depend on how long the other stars of the call need
-            moving &= (np.abs(step_t) >= _TOL_T) | (np.abs(step_e) >= _TOL_E)
-            t_hat = np.where(moving, new_t, t_hat)
+            # result does not depend on how long the other stars of the call need (its next
+            # pass would repeat this one: it is not computed again)
+            still = (np.abs(step_t) >= _TOL_T) | (np.abs(step_e) >= _TOL_E)
+            moving[rows] = still
+            t_hat[rows] = np.where(still, new_t, old)
         if not moving.any() or it == _ITERATIONS - 1:
             break
-        e_lin = np.where(moving, np.clip(e_lin + step_e, bg.E_MIN, bg.E_MAX), e_lin)
+        e_lin[rows] = np.where(moving[rows], np.clip(el + step_e, bg.E_MIN, bg.E_MAX), el)
+    x, kx, y, s, used, sc, v, c, n_used, bad, est, cov, chi2, ly, lp = (
+        last[name] for name in ("x", "kx", "y", "s", "used", "sc", "v", "c", "n_used", "bad", "est",
+                                "cov", "chi2", "ly", "lp"))
 
     teff = np.where(bad, np.nan, est[:, 0])
     teff_err = np.where(bad, np.nan, np.sqrt(cov[:, 0, 0]))

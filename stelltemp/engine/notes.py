@@ -20,6 +20,8 @@ Examples
 
 import numpy as np
 
+from .patterns import unique_rows
+
 SEPARATOR = "; "
 
 
@@ -41,10 +43,10 @@ class RowNotes:
         if not self._items or self.n == 0:
             return np.full(self.n, "", dtype=str)
         bits = np.stack([mask for _, mask in self._items], axis=1)
-        codes, inverse = np.unique(bits, axis=0, return_inverse=True)
+        codes, inverse = unique_rows(bits)
         labels = [SEPARATOR.join(text for (text, _), on in zip(self._items, row) if on)
                   for row in codes]
-        return np.array(labels, dtype=str)[np.asarray(inverse).reshape(-1)]
+        return np.array(labels, dtype=str)[inverse]
 
     def counts(self):
         """Statement → number of rows it applies to (for table metadata)."""

@@ -41,7 +41,7 @@ from ..errors import StelltempError
 from . import counts
 from .instrument import Instrument
 
-__all__ = ["RateSource", "StarSpectrum", "clean_photometry", "star_spectrum", "anchored_rates", "SOURCES"]
+__all__ = ["RateSource", "StarSpectrum", "clean_photometry", "star_spectrum", "star_spectra", "anchored_rates", "SOURCES"]
 
 #: the kinds of rate source, best first
 SOURCES = ("measured", "interpolated", "extrapolated", "template")
@@ -124,16 +124,79 @@ def clean_photometry(photometry) -> dict:
     return out
 
 
-def _engine_temperature(phot, ebv, ebv_err, law, rv):
+def _engine_temperatures(phots, ebvs, ebv_errs, law, rv):
+    """T_bb (K) and flag text for many stars in one engine call.
+
+    Each star's bands not measured are NaN; the engine treats every row on
+    its own (method chosen per row from its measured bands), so the result
+    of one call equals that of one call per star.
+    """
     from ..engine import estimate
     from ..engine import flags as fl
 
-    mags = {k: np.array([m]) for k, (m, _) in phot.items()}
-    errs = {k: np.array([e if math.isfinite(e) else np.nan]) for k, (_, e) in phot.items()}
-    res = estimate(mags, errs, ebv=ebv, ebv_err=ebv_err, law=law, rv=rv)
-    t = float(res["t_bb"][0].value)
-    flags = int(res["flags"][0])
-    return t, fl.describe(flags) if flags else ""
+    keys = list(dict.fromkeys(k for p in phots for k in p))
+    mags = {k: np.array([p[k][0] if k in p else np.nan for p in phots]) for k in keys}
+    errs = {k: np.array([p[k][1] if k in p and math.isfinite(p[k][1]) else np.nan for p in phots]) for k in keys}
+    res = estimate(mags, errs, ebv=np.asarray(ebvs, float), ebv_err=np.asarray(ebv_errs, float), law=law, rv=rv)
+    t = np.asarray(res["t_bb"].value, float)
+    flags = np.asarray(res["flags"], int)
+    return [(float(t[i]), fl.describe(int(flags[i])) if flags[i] else "") for i in range(len(phots))]
+
+
+def _check_ebv(ebv):
+    e = float(ebv)
+    if not math.isfinite(e):
+        raise StelltempError("E(B-V) must be finite")
+    return e
+
+
+def _spectrum_from(photometry, teff, e, engine_result):
+    """The `StarSpectrum` of one star given its engine result ((T_bb, flag text) or None)."""
+    if teff is not None:
+        return StarSpectrum(float(teff), e, "given", f"blackbody T = {float(teff):.0f} K (given), E(B-V) = {e:.3f}")
+    if len(photometry) >= 2:
+        t, why = engine_result
+        bands = ", ".join(photometry)
+        if math.isfinite(t) and t > 0:
+            return StarSpectrum(t, e, "engine",
+                                f"blackbody T_bb = {t:.0f} K fitted to {bands} with E(B-V) = {e:.3f}")
+        reason = f"no temperature from {bands} ({why or 'no solution'})"
+    else:
+        reason = "fewer than two measured bands for a temperature"
+    return StarSpectrum(None, e, "template", f"A0 V template reddened by E(B-V) = {e:.3f}: {reason}")
+
+
+def star_spectra(photometries, teffs, ebvs, ebv_errs, law="G23", rv=3.1) -> list:
+    """`star_spectrum` for many stars, with one temperature-engine call for all that need one.
+
+    Parameters
+    ----------
+    photometries : list of dict
+        `clean_photometry` outputs, one per star.
+    teffs : list of float or None
+        Given blackbody temperatures, K (None: fit with the engine).
+    ebvs, ebv_errs : list of float
+        E(B−V) and its error per star, mag.
+
+    Returns
+    -------
+    list of StarSpectrum
+
+    Examples
+    --------
+    >>> s = star_spectra([{"B_JC": (10.9, 0.01), "V_JC": (10.0, 0.01)}, {"V_JC": (9.0, 0.01)}],
+    ...                  [None, None], [0.0, 0.1], [0.0, 0.0])
+    >>> [x.origin for x in s]
+    ['engine', 'template']
+    """
+    es = [_check_ebv(e) for e in ebvs]
+    need = [i for i, (p, t) in enumerate(zip(photometries, teffs)) if t is None and len(p) >= 2]
+    results = {}
+    if need:
+        found = _engine_temperatures([photometries[i] for i in need], [es[i] for i in need],
+                                     [ebv_errs[i] for i in need], law, rv)
+        results = dict(zip(need, found))
+    return [_spectrum_from(p, t, e, results.get(i)) for i, (p, t, e) in enumerate(zip(photometries, teffs, es))]
 
 
 def star_spectrum(photometry, teff=None, ebv=0.0, ebv_err=0.0, law="G23", rv=3.1) -> StarSpectrum:
@@ -152,21 +215,7 @@ def star_spectrum(photometry, teff=None, ebv=0.0, ebv_err=0.0, law="G23", rv=3.1
     -------
     StarSpectrum
     """
-    e = float(ebv)
-    if not math.isfinite(e):
-        raise StelltempError("E(B-V) must be finite")
-    if teff is not None:
-        return StarSpectrum(float(teff), e, "given", f"blackbody T = {float(teff):.0f} K (given), E(B-V) = {e:.3f}")
-    if len(photometry) >= 2:
-        t, why = _engine_temperature(photometry, e, ebv_err, law, rv)
-        bands = ", ".join(photometry)
-        if math.isfinite(t) and t > 0:
-            return StarSpectrum(t, e, "engine",
-                                f"blackbody T_bb = {t:.0f} K fitted to {bands} with E(B-V) = {e:.3f}")
-        reason = f"no temperature from {bands} ({why or 'no solution'})"
-    else:
-        reason = "fewer than two measured bands for a temperature"
-    return StarSpectrum(None, e, "template", f"A0 V template reddened by E(B-V) = {e:.3f}: {reason}")
+    return star_spectra([photometry], [teff], [ebv], [ebv_err], law, rv)[0]
 
 
 def _pivot(pb) -> float:

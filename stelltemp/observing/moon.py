@@ -90,7 +90,7 @@ def moon_sky_vmag(dark_vmag_zenith, phase_angle_deg, separation_deg, zenith_targ
     x = ks_airmass(np.minimum(np.asarray(zenith_target_deg, float), 90.0))
     b0 = nl_from_vmag(dark_vmag_zenith) * 10.0 ** (-0.4 * k_v * (x - 1.0)) * x
     bm = moon_sky_brightness_nl(phase_angle_deg, separation_deg, zenith_target_deg, zenith_moon_deg, k_v)
-    delta = -2.5 * np.log10((bm + b0) / b0)
+    delta = -2.5 * np.log10((bm + b0) / b0) + 0.0  # + 0.0: no moonlight is ΔV = 0, not −0
     return vmag_from_nl(bm + b0), delta
 
 

@@ -535,12 +535,36 @@ def _dark_mask(grid, dark):
     return (grid.mjd >= dark[0].mjd) & (grid.mjd <= dark[1].mjd)
 
 
-def _target_rates(instrument, t, filters=None):
-    """Anchored rates above the atmosphere for one `parse_targets` row (StelltempError if impossible)."""
-    from .anchor import anchored_rates
+def _targets_rates(instrument, targets, filters=None):
+    """Anchored rates above the atmosphere for `parse_targets` rows: a list of dicts or StelltempErrors.
 
-    return anchored_rates(instrument, target_photometry(instrument, t), teff=t["teff"], ebv=t.get("ebv", 0.0),
-                          ebv_err=t.get("ebv_err", 0.0), filters=filters)
+    The temperature engine runs once for all rows that need it
+    (`anchor.star_spectra`); should that joint call fail, each row is tried
+    on its own so that one bad row is flagged and the rest go on.
+    """
+    from .anchor import anchored_rates, clean_photometry, star_spectra
+
+    out, phots = [None] * len(targets), {}
+    for i, t in enumerate(targets):
+        try:
+            phots[i] = clean_photometry(target_photometry(instrument, t))
+        except StelltempError as exc:
+            out[i] = exc
+    idx = list(phots)
+    args = ([phots[i] for i in idx], [targets[i]["teff"] for i in idx], [targets[i].get("ebv", 0.0) for i in idx],
+            [targets[i].get("ebv_err", 0.0) for i in idx])
+    try:
+        spectra = dict(zip(idx, star_spectra(*args)))
+    except StelltempError:
+        spectra = {}
+    for i in idx:
+        t = targets[i]
+        try:
+            out[i] = anchored_rates(instrument, phots[i], teff=t["teff"], ebv=t.get("ebv", 0.0),
+                                    ebv_err=t.get("ebv_err", 0.0), filters=filters, spectrum=spectra.get(i))
+        except StelltempError as exc:
+            out[i] = exc
+    return out
 
 
 def night_tracks(instrument: Instrument, targets, date, step_min=10.0, sun_limit="astronomical"):
@@ -570,10 +594,8 @@ def night_tracks(instrument: Instrument, targets, date, step_min=10.0, sun_limit
     alt, _ = night.altaz_of(([t["ra_deg"] for t in good], [t["dec_deg"] for t in good]), grid, loc)
     x = airmass_kasten_young(alt)
     rates = {f: np.full(alt.shape, np.nan) for f in instrument.filters}
-    for i, t in enumerate(good):
-        try:
-            src = _target_rates(instrument, t)
-        except StelltempError:
+    for i, src in enumerate(_targets_rates(instrument, good)):
+        if isinstance(src, StelltempError):
             continue
         for f in instrument.filters:
             k = instrument.filters[f].extinction_mag_per_airmass
@@ -674,6 +696,9 @@ def plan_night(instrument: Instrument, targets, date, *, snr=None, exposure_s=No
     keys = ("seeing_arcsec", "aperture_fwhm", "annulus_fwhm", "profile", "beta", "headroom", "c_y", "sky_delta_mag")
     defaults = (None, 1.0, (3.0, 5.0), "moffat", psf.MOFFAT_BETA_TURBULENCE, psf.DEFAULT_HEADROOM, ccd.C_Y_TYPICAL, 0.0)
     opts = [options.get(k, d) for k, d in zip(keys, defaults)]
+    # rates of every target that will be planned, with one temperature-engine call for the list
+    todo = [i for i in good if windows[i].usable and not (i in moon_info and not math.isfinite(moon_info[i][3]))]
+    all_sources = dict(zip(todo, _targets_rates(instrument, [targets[i] for i in todo])))
     rows = []
     for i, t in enumerate(targets):
         base = _blank_row()
@@ -696,13 +721,10 @@ def plan_night(instrument: Instrument, targets, date, *, snr=None, exposure_s=No
             base.update(moon_separation=sep, moon_altitude=malt, moon_illuminated=illum, moon_delta_v=dv)
             if not math.isfinite(dv):
                 flags.append("within 10 deg of the Moon: not planned")
-        sources = None
-        near_moon = i in moon_info and not math.isfinite(moon_info[i][3])
-        if w is not None and w.usable and not t["error"] and not near_moon:
-            try:
-                sources = _target_rates(instrument, t)
-            except StelltempError as exc:
-                flags.append(str(exc))
+        sources = all_sources.get(i)
+        if isinstance(sources, StelltempError):
+            flags.append(str(sources))
+            sources = None
         notes = "; ".join(t.get("notes", []))
         for f in instrument.filters:
             r = dict(base, filter=f, rate_note=notes)
