@@ -23,11 +23,14 @@ one module per subcommand, in :data:`COMMANDS` order:
 
 How to add a subcommand
 -----------------------
-1. Write ``stelltemp/cli/<name>.py`` with two functions, like the others::
+1. Write ``stelltemp/cli/<name>.py`` with three texts and two functions, like the others::
 
-       def add(subparsers):            # register the parser; shared groups from .options
-           p = options.subcommand(subparsers, NAME, run, help="…", description="…")
-           ...                          # its own options, then the shared closing ones:
+       NAME = "<name>"
+       HELP = "…"                      # its line in ``stelltemp --help``
+       DESCRIPTION = "…"               # the text of its own ``--help``
+
+       def add(p):                     # its options; shared groups from .options
+           ...
            return options.add_closing(p, plot="…", replace="--plot file")
 
        def run(args, out=None, err=None):   # parse → call the public API → format; return 0
@@ -51,7 +54,7 @@ import warnings
 from .. import __version__
 from ..errors import RenamedWarning, StelltempError
 from . import blackbody, catalogue, colourgrid, exposure, nightplan, passbands, relations, standardise, star, tour
-from .options import HelpWithDefaults
+from .options import HelpWithDefaults, subcommand
 from .output import emit_json
 
 __all__ = ["COMMANDS", "EXIT_BAD_INPUT", "build_parser", "emit_json", "main", "run_parsed"]
@@ -82,7 +85,7 @@ def build_parser():
     parser.add_argument("--version", action="version", version=f"stelltemp {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="<subcommand>", parser_class=Parser)
     for module in COMMANDS:
-        module.add(sub)
+        subcommand(sub, module)
     return parser
 
 

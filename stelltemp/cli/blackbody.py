@@ -6,15 +6,17 @@ from . import options
 from .output import emit_json, number
 
 NAME = "blackbody"
+HELP = "Planck, Wien and Stefan-Boltzmann quantities for a temperature"
+DESCRIPTION = (
+    "Wien peaks (of B_lambda, of the photon rate and of B_nu), the surface flux and, given a radius, "
+    "the luminosity of a blackbody; optionally the radiance at one wavelength and a figure of the "
+    "spectrum."
+)
 DEFAULT_BANDS = ["B_JC", "V_JC", "Ic_JC", "Ks_2MASS"]
 
 
-def add(subparsers):
-    p = options.subcommand(subparsers, NAME, run,
-                           help="Planck, Wien and Stefan-Boltzmann quantities for a temperature",
-                           description="Wien peaks (of B_lambda, of the photon rate and of B_nu), the surface "
-                                       "flux and, given a radius, the luminosity of a blackbody; optionally "
-                                       "the radiance at one wavelength and a figure of the spectrum.")
+def add(p):
+    """Register the options of this subcommand on ``p`` (made by :func:`stelltemp.cli.options.subcommand`)."""
     p.add_argument("temperature", help="temperature (a number; its unit from --unit)")
     p.add_argument("--unit", default="K", choices=["K", "C", "F"], help="unit of the temperature")
     p.add_argument("--radius", type=float, metavar="R_SUN", help="radius in R_sun, to give the luminosity")

@@ -9,13 +9,15 @@ from . import options
 from .output import emit_json
 
 NAME = "colourgrid"
+HELP = "synthetic magnitudes and colours of blackbodies over temperatures"
+DESCRIPTION = (
+    "Magnitudes of a 1 R_sun blackbody at 10 pc through each passband, and colours of adjacent "
+    "passbands, over log-spaced or listed temperatures."
+)
 
 
-def add(subparsers):
-    p = options.subcommand(subparsers, NAME, run,
-                           help="synthetic magnitudes and colours of blackbodies over temperatures",
-                           description="Magnitudes of a 1 R_sun blackbody at 10 pc through each passband, and "
-                                       "colours of adjacent passbands, over log-spaced or listed temperatures.")
+def add(p):
+    """Register the options of this subcommand on ``p`` (made by :func:`stelltemp.cli.options.subcommand`)."""
     p.add_argument("bands", nargs="+", help="passband keys, e.g. B_JC V_JC Ks_2MASS")
     p.add_argument("--temps", nargs="+", metavar="K", help="explicit temperatures in K (instead of --tmin/--tmax)")
     p.add_argument("--tmin", type=float, default=3000.0, metavar="K", help="lowest temperature, K")

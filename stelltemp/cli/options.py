@@ -62,13 +62,15 @@ def renamed(parser, old, new, dest, base="store", **kwargs):
                         help=argparse.SUPPRESS, **kwargs)
 
 
-def subcommand(subparsers, name, run, *, help, description):  # noqa: A002 - argparse's own keyword
-    """Register ``stelltemp <name>``, run by ``run``.
+def subcommand(subparsers, module):
+    """Register ``stelltemp <module.NAME>``, run by ``module.run``, with its options from ``module.add``.
 
-    ``help`` is its line in ``stelltemp --help``, ``description`` the text of its own ``--help``.
+    ``module.HELP`` is its line in ``stelltemp --help``, ``module.DESCRIPTION``
+    the text of its own ``--help``.
     """
-    p = subparsers.add_parser(name, help=help, description=description)
-    p.set_defaults(run=run)
+    p = subparsers.add_parser(module.NAME, help=module.HELP, description=module.DESCRIPTION)
+    p.set_defaults(run=module.run)
+    module.add(p)
     return p
 
 

@@ -6,13 +6,15 @@ from . import options
 from .output import emit_json
 
 NAME = "passbands"
+HELP = "list built-in passbands with their properties"
+DESCRIPTION = (
+    "The built-in passbands: key, system, magnitude system, detector type, pivot wavelength, FWHM, "
+    "equivalent width and the source of the curve."
+)
 
 
-def add(subparsers):
-    p = options.subcommand(subparsers, NAME, run,
-                           help="list built-in passbands with their properties",
-                           description="The built-in passbands: key, system, magnitude system, detector type, "
-                                       "pivot wavelength, FWHM, equivalent width and the source of the curve.")
+def add(p):
+    """Register the options of this subcommand on ``p`` (made by :func:`stelltemp.cli.options.subcommand`)."""
     return options.add_closing(p)
 
 

@@ -6,14 +6,16 @@ from . import options
 from .output import emit_json, interval, measure, number, plural
 
 NAME = "star"
+HELP = "temperature of one star from its magnitudes"
+DESCRIPTION = (
+    "Blackbody colour temperature (with a 68 %% interval), calibrated effective temperature where a "
+    "relation applies, and the derived Wien peak, angular diameter, bolometric flux, radius and "
+    "luminosity."
+)
 
 
-def add(subparsers):
-    p = options.subcommand(subparsers, NAME, run,
-                           help="temperature of one star from its magnitudes",
-                           description="Blackbody colour temperature (with a 68 %% interval), calibrated "
-                                       "effective temperature where a relation applies, and the derived "
-                                       "Wien peak, angular diameter, bolometric flux, radius and luminosity.")
+def add(p):
+    """Register the options of this subcommand on ``p`` (made by :func:`stelltemp.cli.options.subcommand`)."""
     options.add_magnitudes(p, required=True, example="B_JC=10.65,0.01")
     options.add_reddening(p)
     p.add_argument("--av", type=float, metavar="MAG", help="A_V, mag, instead of --ebv (E(B-V) = A_V / R_V)")
