@@ -37,8 +37,7 @@ def add(p):
                    help="with --time: leave the Moon out of the sky brightness")
     p.add_argument("--filters", help="comma-separated subset of the instrument's filters (default: all)")
     add_goal_options(p)
-    options.add_plot(p, "S/N against exposure time")
-    return p
+    return options.add_closing(p, plot="S/N against exposure time", replace="--output or --plot file")
 
 
 def _magnitudes(args):

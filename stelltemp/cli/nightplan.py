@@ -40,8 +40,7 @@ def add(p):
     options.renamed(p, "--save", "--output", "output", metavar="PATH")
     p.add_argument("--time", help=argparse.SUPPRESS)  # old: exposure seconds (see exposure_seconds)
     add_goal_options(p)
-    options.add_plot(p, "altitude and airmass of the targets through the night")
-    return p
+    return options.add_closing(p, plot="altitude and airmass of the targets through the night", replace="--output or --plot file")
 
 
 def _save(table, path, replace):
