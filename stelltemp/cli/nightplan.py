@@ -82,5 +82,7 @@ def run(args, out=None, err=None):
               f"{m['dark_start'] or '-'} to {m['dark_end'] or '-'} UTC; local time = UTC{sign}"
               f"{abs(m['utc_offset_hours']):g} h ({m['utc_offset_from']}); Moon: "
               f"{'in the sky brightness' if not args.no_moon else 'left out (--no-moon)'}")
+    if m["sun_limit"] != "astronomical":
+        header += "; twilight sky not modelled (windows reaching into it are flagged)"
     return report(table, NAME, COLUMNS, args, out, err, header=header, summary=night_summary(table),
                   summary_columns=SUMMARY_COLUMNS)

@@ -1,7 +1,8 @@
 """Scattered moonlight in V: Krisciunas & Schaefer (1991, PASP 103, 1033).
 
-The model (their eqs. 1, 3, 15–22; transcribed from memory of the paper and
-checked for internal consistency, not against a printed table)::
+The model (their eqs. 1, 3, 15–22; the paper itself was not at hand: the
+constants are checked against two independent public transcriptions of it
+and a documented worked value, see tests/test_observing_own_photometry.py)::
 
     I*(α)   = 10^(−0.4 (3.84 + 0.026 |α| + 4×10⁻⁹ α⁴))        Moon illuminance, α phase angle in deg
     f(ρ)    = 10^5.36 (1.06 + cos² ρ) + 10^(6.15 − ρ/40)     scattering, ρ Moon–target separation in deg

@@ -710,8 +710,13 @@ def plan_night(instrument: Instrument, targets, date, *, snr=None, exposure_s=No
             base.update(max_altitude=w.max_alt_deg, min_airmass=w.min_airmass)
             if w.usable:
                 base.update(window_start=w.start.isot[:19], window_end=w.end.isot[:19], best_time=w.best.isot[:19])
-                if sun_limit != "astronomical" and (astro[0] is None or w.start < astro[0] or w.end > astro[1]):
-                    flags.append("window reaches into twilight: the sky is brighter than the dark-sky values used")
+                if sun_limit != "astronomical":
+                    if astro[0] is None or w.best < astro[0] or w.best > astro[1]:
+                        flags.append("best time is in twilight: the twilight sky is not modelled, so the sky is "
+                                     "brighter and the exposures longer than planned here")
+                    elif w.start < astro[0] or w.end > astro[1]:
+                        flags.append("window reaches into twilight (the twilight sky is not modelled): the numbers "
+                                     "are for the dark sky at the best time")
             else:
                 flags.append(f"no dark time above {min_alt_deg:g} deg" if dark is not None
                              else f"no dark time (Sun never below the {sun_limit} limit)")
@@ -767,6 +772,8 @@ def plan_night(instrument: Instrument, targets, date, *, snr=None, exposure_s=No
         "dark_start": dark[0].isot[:19] if dark else None,
         "dark_end": dark[1].isot[:19] if dark else None,
         "sun_limit": sun_limit,
+        "twilight_sky": ("not modelled: windows may reach into twilight, flagged per target" if sun_limit != "astronomical"
+                         else "not needed: windows lie in astronomical darkness"),
         "min_altitude_deg": min_alt_deg,
         "utc_offset_hours": offset,
         "utc_offset_from": offset_how,
@@ -775,20 +782,13 @@ def plan_night(instrument: Instrument, targets, date, *, snr=None, exposure_s=No
     return _build_table(rows, _FILTER_COLUMNS + _NIGHT_COLUMNS, meta)
 
 
-_SUMMARY_COLUMNS = [
-    ("target", None, "target name"),
-    ("best_time", None, "time of highest altitude in the window, UTC (ISO 8601)"),
-    ("best_time_local", None, "the same in local time (offset in meta)"),
-    ("window_start", None, "start of the best window, UTC"),
-    ("window_end", None, "end of the best window, UTC"),
-    ("window_local", None, "the window in local time, HH:MM-HH:MM"),
-    ("max_altitude", u.deg, "highest altitude in the window"),
-    ("min_airmass", u.dimensionless_unscaled, "lowest airmass in the window (Kasten & Young 1989)"),
-    ("moon_separation", u.deg, "Moon-target separation at the best time"),
-    ("moon_delta_v", u.mag, "V sky change from moonlight at the best time (Krisciunas & Schaefer 1991)"),
-    ("spectrum", None, "spectral shape used for the rates (given teff / engine T_bb / template)"),
-    ("teff", u.K, "its blackbody temperature (NaN: template)"),
-    ("ebv", u.mag, "E(B-V) applied"),
+_COLUMN = {c[0]: c for c in _FILTER_COLUMNS + _NIGHT_COLUMNS}  # one definition of each shared column
+_SUMMARY_COLUMNS = [_COLUMN[n] for n in ("target", "best_time")] + [
+    ("best_time_local", None, "the same in local time (offset in meta)")] + [
+    _COLUMN[n] for n in ("window_start", "window_end")] + [
+    ("window_local", None, "the window in local time, HH:MM-HH:MM")] + [
+    _COLUMN[n] for n in ("max_altitude", "min_airmass", "moon_separation", "moon_delta_v", "spectrum", "teff",
+                         "ebv")] + [
     ("rate_sources", None, "filter:source for each filter"),
     ("total_time", u.s, "sum over filters of the planned time (split frames included)"),
     ("flags", None, "problems with this target ('' when none)"),

@@ -15,20 +15,18 @@ Usage: ``python tests/benchmarks/bench_nightplan.py [--runs 3] [--date YYYY-MM-D
 
 import argparse
 import json
-import statistics
-import time
+import sys
 from pathlib import Path
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from _timing import min_median  # noqa: E402
 
 ROOT = Path(__file__).resolve().parents[2]
 
 
 def _times(fn, runs):
-    out = []
-    for _ in range(runs):
-        t0 = time.perf_counter()
-        fn()
-        out.append(time.perf_counter() - t0)
-    return {"min_s": round(min(out), 3), "median_s": round(statistics.median(out), 3)}
+    t = min_median(fn, runs)
+    return {"min_s": round(t["min"], 3), "median_s": round(t["median"], 3)}
 
 
 def main():

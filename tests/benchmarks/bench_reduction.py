@@ -18,7 +18,6 @@ Prints one JSON object.  Goals on 2 cores: a night's fit under 0.05 s;
 
 import argparse
 import json
-import statistics
 import sys
 import time
 from pathlib import Path
@@ -32,14 +31,8 @@ from test_reduction_fit import SETUPS, TRUE, night, simulate  # noqa: E402
 
 from stelltemp.reduction import Observations, apply_transformation, fit_transformation  # noqa: E402
 
-
-def _times(fn, repeat):
-    out = []
-    for _ in range(repeat):
-        t0 = time.perf_counter()
-        fn()
-        out.append(time.perf_counter() - t0)
-    return {"min": min(out), "median": statistics.median(out)}
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from _timing import min_median as _times  # noqa: E402
 
 
 def main():
