@@ -69,7 +69,23 @@ def __getattr__(name):  # BACKEND, computed (and numba loaded) only when asked
 
 
 def _build(numba):
-    njit = numba.njit(cache=True, nogil=True, error_model="numpy", fastmath=False)
+    def njit(fn=None, **extra):
+        options = dict(cache=True, nogil=True, error_model="numpy", fastmath=False, **extra)
+        return numba.njit(**options)(fn) if fn is not None else (lambda f: numba.njit(**options)(f))
+
+    @njit(inline="always")
+    def cell_cubic(patches, base, s):
+        """Coefficients q0…q3 of the cell's cubic in t, the E(B−V) direction summed at s."""
+        q0 = patches[base + 0] + s * (patches[base + 1] + s * (patches[base + 2] + s * patches[base + 3]))
+        q1 = patches[base + 4] + s * (patches[base + 5] + s * (patches[base + 6] + s * patches[base + 7]))
+        q2 = patches[base + 8] + s * (patches[base + 9] + s * (patches[base + 10] + s * patches[base + 11]))
+        q3 = patches[base + 12] + s * (patches[base + 13] + s * (patches[base + 14] + s * patches[base + 15]))
+        return q0, q1, q2, q3
+
+    @njit(inline="always")
+    def node_colour(nodes, kk, as0, as1, bs0, bs1):
+        """Colour of temperature node kk at the star's E(B−V) (cubic Hermite in E)."""
+        return nodes[2 * kk] * as0 + nodes[2 * kk + 2] * as1 + nodes[2 * kk + 1] * bs0 + nodes[2 * kk + 3] * bs1
 
     @njit
     def invert_cells(c, e, nodes, patches, nt, ne, lnt0, h_t, e0, h_e,
@@ -101,9 +117,9 @@ def _build(numba):
             bs1 = s3 - s2
             # node colours at the star's own E(B−V): cold end (i = 0) and hot end
             kk = j
-            c_cold = nodes[2 * kk] * as0 + nodes[2 * kk + 2] * as1 + nodes[2 * kk + 1] * bs0 + nodes[2 * kk + 3] * bs1
+            c_cold = node_colour(nodes, kk, as0, as1, bs0, bs1)
             kk = (nt - 1) * ne + j
-            c_hot = nodes[2 * kk] * as0 + nodes[2 * kk + 2] * as1 + nodes[2 * kk + 1] * bs0 + nodes[2 * kk + 3] * bs1
+            c_hot = node_colour(nodes, kk, as0, as1, bs0, bs1)
             if ck < c_hot:
                 # Rayleigh–Jeans colour at this E, linear on its uniform grid
                 x = (ek - rj_e0) / rj_h
@@ -126,16 +142,13 @@ def _build(numba):
             while span > 1:
                 half = span >> 1
                 kk = (lo + half) * ne + j
-                cm = nodes[2 * kk] * as0 + nodes[2 * kk + 2] * as1 + nodes[2 * kk + 1] * bs0 + nodes[2 * kk + 3] * bs1
+                cm = node_colour(nodes, kk, as0, as1, bs0, bs1)
                 lo += half * (cm > ck)
                 span -= half
             i = min(lo, nt - 2)
             # the cell's cubic in t with the E direction summed: q0 + q1 t + q2 t² + q3 t³
             base = (i * (ne - 1) + j) * 16
-            q0 = patches[base + 0] + s * (patches[base + 1] + s * (patches[base + 2] + s * patches[base + 3]))
-            q1 = patches[base + 4] + s * (patches[base + 5] + s * (patches[base + 6] + s * patches[base + 7]))
-            q2 = patches[base + 8] + s * (patches[base + 9] + s * (patches[base + 10] + s * patches[base + 11]))
-            q3 = patches[base + 12] + s * (patches[base + 13] + s * (patches[base + 14] + s * patches[base + 15]))
+            q0, q1, q2, q3 = cell_cubic(patches, base, s)
             f1 = q0 + q1 + q2 + q3
             t = (ck - q0) / (f1 - q0)
             t = min(max(t, 0.0), 1.0)
@@ -164,10 +177,7 @@ def _build(numba):
             t = u - i
             s = v - j
             base = (i * (ne - 1) + j) * 16
-            q0 = patches[base + 0] + s * (patches[base + 1] + s * (patches[base + 2] + s * patches[base + 3]))
-            q1 = patches[base + 4] + s * (patches[base + 5] + s * (patches[base + 6] + s * patches[base + 7]))
-            q2 = patches[base + 8] + s * (patches[base + 9] + s * (patches[base + 10] + s * patches[base + 11]))
-            q3 = patches[base + 12] + s * (patches[base + 13] + s * (patches[base + 14] + s * patches[base + 15]))
+            q0, q1, q2, q3 = cell_cubic(patches, base, s)
             value[k] = q0 + t * (q1 + t * (q2 + t * q3))
             d_lnt[k] = (q1 + t * (2 * q2 + 3 * t * q3)) / h_t
             if want_de:

@@ -127,16 +127,26 @@ def _in_blocks(call, n, per_star):
         joined = np.concatenate([np.asarray(getattr(b[name], "value", b[name])) for b in blocks])
         columns[name] = u.Quantity(joined, first[name].unit, copy=False) \
             if isinstance(first[name], u.Quantity) else joined
-    return QTable(columns, meta=first.meta, copy=False)
-
-
-def _whole_table_meta(table):
-    """Metadata counts of a table joined from blocks, recounted over all its rows."""
-    uniq, inverse = np.unique(np.asarray(table["severity"], str), return_inverse=True)
-    levels = np.array([fl.LEVELS.index(x) for x in uniq], np.int64)[inverse.reshape(-1)]
-    table.meta["flag_summary"] = fl.summary(np.asarray(table["flags"]), levels)
-    table.meta["assumptions"] = RowNotes.count_texts(table["assumed"])
+    table = QTable(columns, meta=first.meta, copy=False)
+    table.meta.update(_whole_table_meta([b.meta for b in blocks]))
     return table
+
+
+def _whole_table_meta(metas):
+    """Metadata counts of a table joined from blocks: the blocks' counts added up."""
+    flags, notes = {}, {}
+    for meta in metas:
+        for key, count in meta["flag_summary"].items():
+            if key != "by_flag":
+                flags[key] = flags.get(key, 0) + count
+        for key, count in meta["assumptions"].items():
+            notes[key] = notes.get(key, 0) + count
+    by_flag = {}
+    for meta in metas:
+        for key, count in meta["flag_summary"]["by_flag"].items():
+            by_flag[key] = by_flag.get(key, 0) + count
+    flags["by_flag"] = {name: by_flag[name] for name in fl.NAMES.values() if name in by_flag}
+    return {"flag_summary": flags, "assumptions": notes}
 
 
 def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=DEFAULT_RV,
@@ -239,7 +249,7 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
             table = _in_blocks(lambda **kw: estimate(**kw, rv=rv, law=law, fit_ebv=fit_ebv, method=method,
                                                      cal_ebv=cal_ebv, cal_detail=cal_detail),
                                n_rows, per_star)
-            return _whole_table_meta(table)
+            return table
         # otherwise the unblocked path below names the badly shaped input
     pivots = [get_passband(k).pivot_wavelength.value for k in keys]
     order = np.argsort(pivots)

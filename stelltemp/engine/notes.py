@@ -54,13 +54,3 @@ class RowNotes:
         for text, mask in self._items:
             out[text] = out.get(text, 0) + int(mask.sum())
         return out
-
-    @staticmethod
-    def count_texts(texts):
-        """Statement → number of rows, recounted from joined row texts (e.g. after blocks)."""
-        uniq, counts = np.unique(np.asarray(texts, dtype=str), return_counts=True)
-        out = {}
-        for text, c in zip(uniq, counts):
-            for part in filter(None, str(text).split(SEPARATOR)):
-                out[part] = out.get(part, 0) + int(c)
-        return out
