@@ -3,7 +3,8 @@
 Three functional forms, one evaluation path (`Relation`):
 
 * ``theta`` — θ = S / T_eff = Σ cᵢ Xᵖ [Fe/H]ᑫ (S = 5040 K): the infrared-flux-
-  method relations (Casagrande et al. 2010; Mucciarelli et al. 2021);
+  method relations (Casagrande et al. 2010; González Hernández & Bonifacio
+  2009; Mucciarelli et al. 2021);
 * ``linear`` — T_eff = S · Σ cᵢ Xᵖ [Fe/H]ᑫ (S = 3500 K for Mann et al. 2015);
 * ``table`` — T_eff interpolated linearly in a tabulated intrinsic-colour
   sequence (Pecaut & Mamajek 2013), used only where the colour is monotonic.
@@ -21,6 +22,10 @@ Loaded relations (see each table's metadata for what was verified):
 * Casagrande, Ramírez, Meléndez, Bessell & Asplund 2010, A&A 512, A54,
   Table 4 — FGK dwarfs and subgiants; B−V, V−Rc, (R−I)c, V−Ic, V−J, V−H,
   V−Ks, J−Ks.
+* González Hernández & Bonifacio 2009, A&A 497, 497, Table 5 — giants
+  (log g < 3) in B−V, V−Rc, V−J, V−H, V−Ks, J−Ks, [Fe/H] −4.0 to +0.2
+  (from a public transcription; only J−Ks is cross-checked against a
+  second copy, the other rows are marked unverified in the table).
 * Mucciarelli, Bellazzini & Massari 2021, A&A 653, A90, Table 1 — Gaia
   (BP−RP)₀ for dwarfs (log g ≥ 3) and giants (log g < 3).
 * Mann, Feiden, Gaidos, Boyajian & von Braun 2015, ApJ 804, 64, Table 2 as
@@ -797,10 +802,11 @@ class CombinedTeff:
     Attributes
     ----------
     teff : ndarray
-        Inverse-variance weighted T_eff, K (NaN where no relation applied).
+        T_eff combined by generalised least squares, K (NaN where no
+        relation applied).
     teff_err : ndarray
-        1σ error of ``teff``, K: (Σ wᵢ)^-½ with wᵢ = 1/σᵢ², σᵢ² = (∂T/∂X·σ_X)²
-        + scatterᵢ².  Treats the relations as independent (module notes).
+        1σ error of ``teff``, K: (1ᵀ C⁻¹ 1)^-½ with the covariance C of the
+        relations (see `combine_teff`).
     n_used : ndarray of int
         Number of relations that entered the mean.
     outside_range : ndarray of bool
@@ -814,8 +820,8 @@ class CombinedTeff:
     feh_assumed : ndarray of bool
         [Fe/H] was missing and the solar value 0.0 was assumed.
     chi2 : ndarray
-        Σ wᵢ (Tᵢ − T̄)² over the used relations (n_used − 1 degrees of
-        freedom); NaN when fewer than two were used.
+        (T − T̄)ᵀ C⁻¹ (T − T̄) over the used relations (n_used − 1 degrees
+        of freedom); NaN when fewer than two were used.
     keys : tuple of str
         Relation keys, in the order of the first axis of the next two.
     teff_each, err_each : ndarray, shape (len(keys), *stars)
@@ -848,7 +854,7 @@ class CombinedTeff:
 
 
 def combine_teff(colours, errors=None, feh=None, logg=None):
-    """Weighted effective temperature from several dereddened colours.
+    """Effective temperature from several dereddened colours, combined with their covariance.
 
     Parameters
     ----------
@@ -877,10 +883,21 @@ def combine_teff(colours, errors=None, feh=None, logg=None):
 
     Notes
     -----
-    Vectorised over stars; the only loop is over the (few) relations.  For
-    relation i the total variance is σᵢ² = (∂T/∂X · σ_X)² + scatterᵢ² and
-    the weight wᵢ = 1/σᵢ².  Relations are treated as independent; see the
-    module notes on correlated errors.
+    Vectorised over stars; the only loop is over the (few) relations.  The
+    relations are combined by the generalised least squares of the engine
+    (`stelltemp.engine.combine`, one piece of code): Cᵢⱼ = sᵢ sⱼ σ_X² when
+    relations i and j read the same colour entry (sᵢ = ∂Tᵢ/∂X, e.g. the
+    dwarf and hot-star relations of one V−Ks), plus scatterᵢ² on the
+    diagonal.  Different colour entries are taken as independent: their
+    errors come per colour, so a band they share is unknown here (the
+    engine, which sees the magnitudes, includes it).
+
+    Examples
+    --------
+    >>> res = combine_teff({"c10_vk": [1.6], "c10_bv": [0.65]}, {"c10_vk": [0.02], "c10_bv": [0.02]},
+    ...                    feh=[0.0], logg=[4.4])
+    >>> int(res.n_used[0]), 5500 < float(res.teff[0]) < 6000
+    (2, True)
     """
     if not isinstance(colours, dict) or not colours:
         raise StelltempError("colours must be a non-empty dict of colour arrays")
@@ -919,6 +936,8 @@ def combine_teff(colours, errors=None, feh=None, logg=None):
     used = np.zeros((n, *shape), dtype=bool)
     outside = np.zeros(shape, dtype=bool)
     bad = np.zeros(shape, dtype=bool)
+    slope_err = np.zeros((n, *shape))  # ∂T/∂X · σ_X
+    scatter_each = np.zeros((n, *shape))
     for i, (rel, x, e) in enumerate(entries):
         x = np.broadcast_to(x, shape)
         e = np.broadcast_to(e, shape)
@@ -932,17 +951,15 @@ def combine_teff(colours, errors=None, feh=None, logg=None):
         bad |= np.isfinite(x) & ~good_err  # bad even where the relation does not apply
         used[i] = ok
         teff_each[i] = np.where(ok, t, np.nan)
-        err_each[i] = np.where(ok, np.sqrt((slope * e) ** 2 + rel.scatter_at(t) ** 2), np.nan)
+        slope_err[i] = np.where(ok, slope * e, 0.0)
+        scatter_each[i] = np.where(ok, rel.scatter_at(t), 0.0)
+        err_each[i] = np.where(ok, np.hypot(slope_err[i], scatter_each[i]), np.nan)
 
-    with np.errstate(divide="ignore", invalid="ignore"):
-        w = np.where(used, 1.0 / err_each**2, 0.0)
-        wsum = w.sum(axis=0)
-        tbar = np.where(used, w * teff_each, 0.0).sum(axis=0) / wsum
-        n_used = used.sum(axis=0)
-        none = n_used == 0
-        tbar = np.where(none, np.nan, tbar)
-        terr = np.where(none, np.nan, 1.0 / np.sqrt(wsum))
-        chi2 = np.where(used, w * (teff_each - tbar) ** 2, 0.0).sum(axis=0)
+    tbar, terr, chi2 = _gls_combine(entries, teff_each, slope_err, scatter_each, used)
+    n_used = used.sum(axis=0)
+    none = n_used == 0
+    tbar = np.where(none, np.nan, tbar)
+    terr = np.where(none, np.nan, terr)
     chi2 = np.where(n_used >= 2, chi2, np.nan)
 
     return CombinedTeff(
@@ -950,6 +967,27 @@ def combine_teff(colours, errors=None, feh=None, logg=None):
         none_applicable=none, bad_input=bad, feh_assumed=np.array(feh_assumed),
         chi2=chi2, keys=tuple(rel.key for rel, _, _ in entries),
         teff_each=teff_each, err_each=err_each)
+
+
+def _gls_combine(entries, teff_each, slope_err, scatter_each, used):
+    """GLS mean, error and χ² over the relations (first axis) with the covariance of `combine_teff`."""
+    from stelltemp.engine.combine import _gls  # the engine's combination (imported late: it imports us)
+
+    r = len(entries)
+    shape = teff_each.shape[1:]
+    flat = lambda q: np.moveaxis(q, 0, -1).reshape(-1, r)  # noqa: E731 - (stars, relations)
+    t, se, sc, ok = flat(teff_each), flat(slope_err), flat(scatter_each), flat(used)
+    colour_id = np.array([id(x) for _, x, _ in entries])
+    same_colour = colour_id[:, None] == colour_id[None, :]
+    c = np.where(same_colour[None], se[:, :, None] * se[:, None, :], 0.0)
+    c += np.eye(r)[None] * (sc**2)[:, :, None]
+    both = ok[:, :, None] & ok[:, None, :]
+    c = np.where(both, c, 0.0) + np.where(ok[:, :, None], 0.0, np.eye(r)[None])
+    m = t.shape[0]
+    est, cov, chi2, _, _ = _gls(c, np.ones((m, r, 1)), np.where(ok, t, 0.0), ok, np.zeros(m), np.zeros(m))
+    with np.errstate(invalid="ignore"):
+        err = np.sqrt(cov[:, 0, 0])
+    return est[:, 0].reshape(shape), err.reshape(shape), chi2.reshape(shape)
 
 
 # -------------------------------------------------------------- CLI hook

@@ -24,6 +24,7 @@ name                range                unit    why
 ``parallax``        −1000 … 1000         mas     no star above ~770 mas (from memory)
 ``parallax_err``    0 … 1000             mas
 ``feh``             −10 … 2              dex     known stars −7 … +1 (from memory)
+``feh_err``         0 … 5                dex     as ``mag_err`` (common practice)
 ``logg``            −2 … 10              dex     supergiants ~0, white dwarfs ~8–9
                                                  (from memory)
 ``seeing``          > 0 … 30             arcsec  worst usable seeing a few arcsec
@@ -118,6 +119,7 @@ RANGES = {
     "parallax": Range(-1000.0, 1000.0, "mas", "parallax"),
     "parallax_err": Range(0.0, 1000.0, "mas", "parallax error"),
     "feh": Range(-10.0, 2.0, "dex", "[Fe/H]"),
+    "feh_err": Range(0.0, 5.0, "dex", "[Fe/H] error"),
     "logg": Range(-2.0, 10.0, "dex", "log g"),
     "seeing": Range(0.0, 30.0, "arcsec", "seeing FWHM", lo_open=True),
     "airmass": Range(1.0, 40.0, "", "airmass"),

@@ -65,7 +65,7 @@ def test_all_expected_relations_loaded():
     assert set(M15_TABLE2) | {"pm13_ub_hot", "pm13_bv_hot", "pm13_vks_hot", "pm13_vks_cool"} <= keys
     assert {"c21_bpj_giant", "c21_gks_dwarf", "c21_rph_giant"} <= keys and "c21_bprp_dwarf" not in keys
     for r in cal.relations():
-        assert (r.scatter > 0 or r.scatter_frac > 0) and r.citation.year in (2010, 2013, 2015, 2021)
+        assert (r.scatter > 0 or r.scatter_frac > 0) and r.citation.year in (2009, 2010, 2013, 2015, 2021)
         assert str(r.citation).count(",") >= 3
         assert r.colour_range[0] < r.colour_range[1]
 
@@ -372,7 +372,10 @@ def test_derivatives_match_finite_differences(key):
 # ------------------------------------------------------------ selection
 def test_relations_for_and_applicability():
     keys = [r.key for r in cal.relations_for({"B_JC", "V_JC", "Ks_2MASS"})]
-    assert sorted(keys) == ["c10_bv", "c10_vk", "pm13_bv_hot", "pm13_vks_cool", "pm13_vks_hot"]
+    assert sorted(keys) == ["c10_bv", "c10_vk", "ghb09_bv_giant", "ghb09_vk_giant", "pm13_bv_hot",
+                            "pm13_vks_cool", "pm13_vks_hot"]
+    assert sorted(r.key for r in cal.relations_for({"B_JC", "V_JC", "Ks_2MASS"}, stage="giant")) == [
+        "ghb09_bv_giant", "ghb09_vk_giant"]
     assert [r.key for r in cal.relations_for(["BP_GDR3", "RP_GDR3"], stage="giant")] == [
         "mbm21_bprp_giant"]
     assert cal.relations_for(["V_JC"]) == ()
@@ -398,8 +401,14 @@ def test_coverage_notes_say_why_and_what_was_assumed():
     assert "C10 V-Ks 0.78 to 3.15" in notes[1] and "PM13 V-Ks M dwarfs 3.35 to 9.00" in notes[1]
     assert notes[2] == "log g unknown: dwarf assumed"  # calibrated by C10 at [Fe/H] = -2
     assert notes[3] == "no calibration: none of the calibrated colours was measured"
-    # a giant (log g 2.0) with V-Ks and B-V only: no giant relation in those colours
-    assert notes[4].startswith("no calibration: no relation for a giant (log g 2.00)")
+    # a giant (log g 2.0) with V-Ks 2.0 and B-V 0.9: inside the GHB09 giant relations
+    assert notes[4] == ""
+    # a giant with colours redder than the giant relations, and one with no giant colour at all
+    notes = cal.coverage_notes({("V_JC", "Ks_2MASS"): [4.0, np.nan], ("B_JC", "V_JC"): [1.6, np.nan],
+                                ("U_JC", "B_JC"): [np.nan, 1.0]}, feh=[0.0, 0.0], logg=[2.0, 2.0])
+    assert notes[0].startswith("no calibration: B-V = 1.60 mag outside every giant relation")
+    assert "GHB09 V-Ks giant 1.10 to 3.40" in notes[0]
+    assert notes[1].startswith("no calibration: no relation for a giant (log g 2.00)")
     # Gaia-2MASS colours only, log g unknown: the relations that need log g are named
     notes = cal.coverage_notes({("BP_GDR3", "Ks_2MASS"): [2.0]}, feh=[0.0], logg=None)
     assert "BP-Ks need log g, which is unknown" in notes[0]
@@ -557,9 +566,106 @@ def test_engine_calibrates_across_the_hr_diagram_or_says_why():
     t = np.asarray(res["teff_cal"].value)
     assert t[0] == pytest.approx(3270.0, abs=3 * 0.03 * 3270.0)  # M3.5V: 3270 K
     assert t[1] == pytest.approx(9700.0, abs=3 * 0.04 * 9700.0)  # A0V: 9700 K
-    assert np.isnan(t[2])
-    note = str(res["teff_cal_note"][2])
-    assert note.startswith("no calibration") and "giant" in note
+    # the K giant (B-V 1.00, V-Ks 2.50, log g 2.5): the González Hernández & Bonifacio 2009
+    # giant relations give 4,600-4,800 K (their B-V and V-Ks rows at [Fe/H] = 0: 4,710 and 4,690 K)
+    assert 4550.0 < t[2] < 4850.0
+    assert set(str(res["cal_used"][2]).split(",")) == {"ghb09_bv_giant", "ghb09_vk_giant"}
+    # a giant with a colour no giant relation covers still says why
+    res_u = estimate({"U_JC": [11.0], "B_JC": [10.0]}, {"U_JC": [0.01], "B_JC": [0.01]}, logg=[2.5], feh=0.0)
+    note = str(res_u["teff_cal_note"][0])
+    assert np.isnan(res_u["teff_cal"][0].value) and note.startswith("no calibration") and "giant" in note
     # without log g the class is assumed, and said so
     res = estimate(mags, {k: np.full(3, 0.01) for k in mags}, feh=0.0)
     assert all("log g unknown: dwarf assumed" in str(n) for n in res["teff_cal_note"])
+
+
+# --------------------------------------------- giants: González Hernández & Bonifacio 2009
+GHB09_GIANTS = ("ghb09_bv_giant", "ghb09_vr_giant", "ghb09_vj_giant", "ghb09_vh_giant",
+                "ghb09_vk_giant", "ghb09_jk_giant")
+
+
+def test_ghb09_giant_jks_matches_the_second_public_copy():
+    # Source: González Hernández & Bonifacio 2009, A&A 497, 497, Table 5 (giants), J-Ks row, as
+    # transcribed independently by the (J-K)0-Teff routine of a survey pipeline:
+    # b0..b5 = 0.6517, 0.6312, 0.0168, -0.0381, 0.0256, 0.0013 (theta = 5040 K / Teff).
+    rel = cal.get_relation("ghb09_jk_giant")
+    x, z = 0.6, -0.5
+    theta = 0.6517 + 0.6312 * x + 0.0168 * x**2 - 0.0381 * x * z + 0.0256 * z + 0.0013 * z**2
+    assert float(rel.teff(x, z, 2.0)[0]) == pytest.approx(5040.0 / theta, rel=1e-12)
+    assert rel.stage == "giant" and rel.scatter == 94 and rel.colour_range == (0.1, 0.9)
+
+
+def test_ghb09_giants_apply_to_giants_only():
+    for key in GHB09_GIANTS:
+        rel = cal.get_relation(key)
+        assert rel.applies_to(np.array([1.0, 2.9, 3.0, 4.4, np.nan])).tolist() == [True, True, False, False, False]
+        assert rel.citation.year == 2009 and rel.feh_range[0] == -4.0
+
+
+def _ghb09_colour(key, teff, feh):
+    from scipy.optimize import brentq
+
+    rel = cal.get_relation(key)
+    lo, hi = rel.colour_range
+    return brentq(lambda x: float(rel.teff(x, feh, 2.0)[0]) - teff, lo, hi)
+
+
+@pytest.mark.parametrize("feh", [0.0, -1.0, -2.0])
+def test_ghb09_giant_rows_are_consistent_with_each_other(feh):
+    # Checks the single-copy rows (marked unverified in the table) against the cross-checked
+    # J-Ks row: at one T_eff, (V-Ks) - (V-J) must equal J-Ks within the relations' scatter
+    # (94 K on J-Ks is about 0.03 mag), H-Ks of a K giant is 0.05-0.2 mag (common practice),
+    # and every colour reddens as T_eff falls.
+    prev = None
+    for teff in (5300.0, 5000.0, 4700.0, 4400.0):
+        c = {k: _ghb09_colour(k, teff, feh) for k in GHB09_GIANTS}
+        assert c["ghb09_vk_giant"] - c["ghb09_vj_giant"] == pytest.approx(c["ghb09_jk_giant"], abs=0.035)
+        assert 0.05 < c["ghb09_vk_giant"] - c["ghb09_vh_giant"] < 0.2
+        if prev is not None:
+            assert all(c[k] > prev[k] for k in GHB09_GIANTS)
+        prev = c
+
+
+def test_ghb09_solar_metallicity_k_giant_colours():
+    # A K0-K1 giant of 4,700 K, [Fe/H] = 0: B-V about 1.0 and V-Ks about 2.5 (from memory,
+    # e.g. the giant colour tables of Alonso et al. 1999, A&AS 140, 261); the relations give
+    # 1.01 and 2.48.
+    assert _ghb09_colour("ghb09_bv_giant", 4700.0, 0.0) == pytest.approx(1.0, abs=0.08)
+    assert _ghb09_colour("ghb09_vk_giant", 4700.0, 0.0) == pytest.approx(2.5, abs=0.15)
+
+
+def test_combination_is_the_engines_gls_with_a_shared_colour():
+    # B-V = 0.25 lies in both the C10 dwarf relation and the PM13 hot-star sequence: the two
+    # read the same measured colour, so its error is common to both (by-hand GLS below)
+    bv, sig = 0.25, 0.05
+    res = cal.combine_teff({("B_JC", "V_JC"): [bv]}, {("B_JC", "V_JC"): [sig]}, feh=[0.0], logg=[4.3])
+    used = [k for k, t in zip(res.keys, res.teff_each[:, 0]) if np.isfinite(t)]
+    assert used == ["c10_bv", "pm13_bv_hot"]
+    t = np.array([float(cal.get_relation(k).teff(bv, 0.0, 4.3)[0]) for k in used])
+    s = np.array([float(cal.get_relation(k).dteff_dcolour(bv, 0.0, 4.3)) for k in used])
+    sc = np.array([float(cal.get_relation(k).scatter_at(tk)) for k, tk in zip(used, t)])
+    c = np.outer(s, s) * sig**2 + np.diag(sc**2)
+    ci = np.linalg.inv(c)
+    w = ci.sum(axis=1) / ci.sum()
+    assert res.teff[0] == pytest.approx(w @ t, abs=1e-6)
+    assert res.teff_err[0] == pytest.approx(ci.sum() ** -0.5, rel=1e-9)
+    r = t - w @ t
+    assert res.chi2[0] == pytest.approx(r @ ci @ r, rel=1e-9)
+    # independent weighting: its true variance under C is larger than the GLS one, and the
+    # error it claimed ignored the shared colour
+    w_ind = (1 / np.diag(c)) / np.sum(1 / np.diag(c))
+    assert w_ind @ c @ w_ind > res.teff_err[0] ** 2
+    assert abs(np.sum(1 / np.diag(c)) ** -0.5 - np.sqrt(w_ind @ c @ w_ind)) > 10.0
+
+
+def test_relations_command_uses_the_combination(capsys):
+    from stelltemp.cli import main
+
+    assert main(["relations", "--use", "c10_vk", "--colour", "1.60", "--colour-err", "0.02",
+                 "--feh", "0.0", "--json"]) == 0
+    import json
+
+    doc = json.loads(capsys.readouterr().out)
+    res = cal.combine_teff({"c10_vk": [1.60]}, {"c10_vk": [0.02]}, feh=[0.0])
+    assert doc["teff_K"] == pytest.approx(float(res.teff[0])) and doc["teff_err_K"] == pytest.approx(
+        float(res.teff_err[0]))

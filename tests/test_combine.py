@@ -145,3 +145,32 @@ def test_outside_calibration_only_for_a_colour_that_should_have_worked():
     assert not res["flags"][0] & fl.OUTSIDE_CALIBRATION
     assert res["flags"][1] & fl.OUTSIDE_CALIBRATION and res["cal_used"][1] == "c10_vk"
 
+
+
+def test_reddening_share_is_the_variance_the_ebv_error_adds():
+    # analytic share against the numeric one: the same stars again with E(B-V) exactly known
+    m = np.array([[10.64, 10.0, 8.5], [10.64, 10.0, 8.5], [11.2, 10.0, 7.6], [11.2, 10.0, 7.6]])
+    keys = ["B_JC", "V_JC", "Ks_2MASS"]
+    sig = np.array([[0.005] * 3, [0.02] * 3, [0.005] * 3, [0.03] * 3])
+    t_bb = np.full(4, 5800.0)
+    ebv = np.array([0.0, 0.0, 0.1, 0.1])
+    args = dict(feh=np.zeros(4), logg=np.full(4, 4.4))
+    for ebv_err in (0.005, 0.05, 0.3):
+        err = np.full(4, ebv_err)
+        full = calibrated_teff(m, sig, keys, t_bb, ebv, err, **args)
+        known = calibrated_teff(m, sig, keys, t_bb, ebv, np.zeros(4), **args)
+        numeric = 1 - known.teff_err ** 2 / full.teff_err ** 2
+        # the linearisation point moves a little with the weights: agreement to 0.01
+        assert np.allclose(full.ebv_share, numeric, atol=0.01)
+    # E(B-V) fitted with a prior: the share against E(B-V) held at the fitted value
+    fit = calibrated_teff(m, sig, keys, t_bb, ebv, np.full(4, 0.05), fit_ebv=True, **args)
+    held = calibrated_teff(m, sig, keys, t_bb, fit.ebv, np.zeros(4), **args)
+    assert np.allclose(fit.ebv_share, 1 - held.teff_err ** 2 / fit.teff_err ** 2, atol=0.01)
+
+
+def test_reddening_dominates_is_judged_on_the_calibrated_temperature():
+    m = {"B_JC": [10.64], "V_JC": [10.0], "Ks_2MASS": [8.5]}
+    e = {k: [0.005] for k in m}
+    # 0.05 mag: the error grows from 25 K to 160 K (share 0.98); 0.005 mag: 25 K to 32 K (0.38)
+    assert estimate(m, e, ebv=0.0, ebv_err=0.05, feh=0.0, logg=4.4)["flags"][0] & fl.REDDENING_DOMINATES
+    assert not estimate(m, e, ebv=0.0, ebv_err=0.005, feh=0.0, logg=4.4)["flags"][0] & fl.REDDENING_DOMINATES

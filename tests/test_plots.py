@@ -72,9 +72,10 @@ def test_colour_temperature_curves_and_calibrations():
     for c in curves:  # a hotter blackbody is bluer in every colour (Planck)
         assert np.all(np.diff(c.get_ydata()) < 0)
     cal = {c.get_gid(): c for c in _by_gid(fig, "calibration:")}
-    # no relation for Ic-Ks; B-V and V-Ic have the FGK, hot-dwarf and M-dwarf relations
+    # no relation for Ic-Ks; B-V and V-Ic have the FGK, hot-dwarf and M-dwarf relations, and
+    # B-V the giant relation of González Hernández & Bonifacio 2009
     assert set(cal) == {"calibration:c10_bv", "calibration:c10_vi", "calibration:pm13_bv_hot",
-                        "calibration:m15_vi", "calibration:pm13_vic_cool"}
+                        "calibration:m15_vi", "calibration:pm13_vic_cool", "calibration:ghb09_bv_giant"}
     x = cal["calibration:c10_bv"].get_ydata()
     # drawn only over the published B-V range: Casagrande et al. 2010, A&A 512, A54, Table 4
     assert x.min() >= 0.18 - 1e-9 and x.max() <= 1.29 + 1e-9

@@ -106,6 +106,18 @@ def test_every_row_has_a_temperature_or_a_flag(run):
     assert math.isfinite(t[sentinel]) and flags[sentinel] & fl.ABSURD_VALUE
 
 
+def test_reddening_dominates_only_where_the_reddening_error_is_large(run):
+    from stelltemp.engine import flags as fl
+
+    out, _ = run
+    res = _read(out / "temperatures.ecsv")
+    red = (np.asarray(res["flags"], np.int64) & fl.REDDENING_DOMINATES) > 0
+    ebv_err = _floats(res["ebv_err"])
+    # 0.01-mag photometry: the flag marks a minority of stars, those with the larger E(B-V) errors
+    assert 0 < red.sum() < 0.4 * len(res)
+    assert np.median(ebv_err[red]) > 1.5 * np.median(ebv_err[~red])
+
+
 def test_night_plan_has_each_target_and_filter_with_positive_exposure(run):
     out, summary = run
     plan = _read(out / "plan.ecsv")

@@ -54,12 +54,19 @@ class RunOptions:
         Engine method (``"auto"`` lets the engine choose).
     fit_ebv : bool
         Fit E(B−V) from the photometry instead of taking it as given.
+    cal_ebv : bool
+        Estimate E(B−V) from the calibrated colours themselves for
+        ``teff_cal`` (the given E(B−V) and its error act as a prior).
+    cal_detail : bool
+        Add each calibrated relation's own temperature and error as columns.
     """
 
     rv: float = 3.1
     law: str = "G23"
     method: str = "auto"
     fit_ebv: bool = False
+    cal_ebv: bool = False
+    cal_detail: bool = False
 
     def check(self):
         """Raise `StelltempError` for options no row could use."""
@@ -172,7 +179,7 @@ def run_record(cmap, opts):
     return describe_run(cmap, opts, tool_version(), datetime.now(timezone.utc).isoformat(timespec="seconds"))
 
 
-def resolve_mapping(colnames, mapping=None, ebv=None, ebv_err=None, vector_columns=()):
+def resolve_mapping(colnames, mapping=None, ebv=None, ebv_err=None, vector_columns=(), feh_err=None):
     """The column map of a run, checked against the table's columns.
 
     Parameters
@@ -184,6 +191,8 @@ def resolve_mapping(colnames, mapping=None, ebv=None, ebv_err=None, vector_colum
         A number for every row or a column name; overrides the map.
     vector_columns : iterable of str
         Columns holding several values per row; none may be mapped.
+    feh_err : float, str or None
+        [Fe/H] error (dex): a number for every row or a column name.
     """
     if mapping is None:
         cmap = default_mapping(colnames)
@@ -193,7 +202,7 @@ def resolve_mapping(colnames, mapping=None, ebv=None, ebv_err=None, vector_colum
         cmap = mapping_from_dict(mapping)
     else:
         cmap = load_mapping(mapping)
-    cmap = cmap.with_ebv(ebv, ebv_err)
+    cmap = cmap.with_ebv(ebv, ebv_err, feh_err)
     for name, val in cmap.values.items():
         check_number(name, val)
     cmap.check(colnames)
@@ -250,6 +259,10 @@ def compute_chunk(chunk, cmap, opts, engine, row_notes=()):
 
 def _call_engine(engine, clean, opts):
     s = clean.scalars
+    # the calibration options go to the engine only when used, so a stand-in engine with the
+    # basic contract keeps working
+    extra = {k: v for k, v in (("feh_err", s.get("feh_err")), ("cal_ebv", opts.cal_ebv),
+                               ("cal_detail", opts.cal_detail)) if v is not None and v is not False}
     return engine(
         clean.mags,
         clean.errs or None,
@@ -263,6 +276,7 @@ def _call_engine(engine, clean, opts):
         feh=s.get("feh"),
         logg=s.get("logg"),
         method=opts.method,
+        **extra,
     )
 
 
@@ -409,6 +423,9 @@ def run_catalogue(
     law="G23",
     method="auto",
     fit_ebv=False,
+    feh_err=None,
+    cal_ebv=False,
+    cal_detail=False,
     overwrite=False,
     renew_results=False,
     chunk_rows=DEFAULT_CHUNK_ROWS,
@@ -433,6 +450,15 @@ def run_catalogue(
         Engine method.
     fit_ebv : bool
         Fit E(B−V) instead of taking it as given.
+    feh_err : float, str or None
+        1σ error of [Fe/H] (dex) for every row, or the column holding it;
+        overrides the map.  It enters the error of ``teff_cal``.
+    cal_ebv : bool
+        E(B−V) for ``teff_cal`` from the calibrated colours themselves
+        (3+ colours, or the given E(B−V) error as a prior).
+    cal_detail : bool
+        Add each relation's own temperature and error (``teff_<relation>``
+        columns).
     overwrite : bool
         Allow replacing an existing output file.
     renew_results : bool
@@ -469,13 +495,15 @@ def run_catalogue(
 
     """
     t0 = time.perf_counter()
-    opts = RunOptions(rv=float(rv), law=law, method=method, fit_ebv=bool(fit_ebv))
+    opts = RunOptions(rv=float(rv), law=law, method=method, fit_ebv=bool(fit_ebv), cal_ebv=bool(cal_ebv),
+                      cal_detail=bool(cal_detail))
     opts.check()
     tableio.check_output(output_path, overwrite, input_path)
     reader = tableio.ChunkReader(input_path, chunk_rows)
     old = check_old_results(input_path, reader.colnames, renew_results)
     colnames = [c for c in reader.colnames if c not in set(old)]
-    cmap = resolve_mapping(colnames, mapping, ebv, ebv_err, [c for c in reader.vector_columns() if c not in old])
+    cmap = resolve_mapping(colnames, mapping, ebv, ebv_err, [c for c in reader.vector_columns() if c not in old],
+                           feh_err)
     input_info = input_units(colnames, cmap)
     engine = engine or default_engine()
     out_fmt = tableio.table_format(output_path)

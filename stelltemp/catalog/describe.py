@@ -88,7 +88,8 @@ _INPUT_UNITS = {"mag": "mag", "err": "mag", "ebv": "mag", "ebv_err": "mag",
                 "parallax": "mas", "parallax_err": "mas"}
 _INPUT_TEXT = {"ebv": "E(B-V) (input)", "ebv_err": "1-sigma error of E(B-V) (input)",
                "parallax": "parallax (input)", "parallax_err": "1-sigma error of the parallax (input)",
-               "feh": "[Fe/H] in dex (input)", "logg": "log g, cgs, in dex (input)"}
+               "feh": "[Fe/H] in dex (input)", "feh_err": "1-sigma error of [Fe/H] in dex (input)",
+               "logg": "log g, cgs, in dex (input)"}
 #: input columns known by name alone (common practice in catalogues), case-insensitive
 _NAME_UNITS = [
     (re.compile(r"^(ra|dec|raj2000|dej2000|ra_deg|dec_deg|ra_icrs|de_icrs|glon|glat)$", re.I), "deg"),
@@ -219,6 +220,8 @@ def assumptions(cmap, opts):
         out.append("no [Fe/H] column: the calibrations assume solar metallicity ([Fe/H] = 0.0)")
     else:
         out.append("rows with an empty [Fe/H] are calibrated at solar metallicity ([Fe/H] = 0.0)")
+    if "feh_err" not in cmap.columns and "feh_err" not in cmap.values:
+        out.append("no [Fe/H] error given: the metallicity counts as exact in the teff_cal error")
     if "logg" not in cmap.columns:
         out.append("no log g column: every star is calibrated as a dwarf")
     else:
@@ -252,6 +255,8 @@ def run_record(cmap, opts, version, run_utc):
         ebv = "0 mag (none given)"
     if opts.fit_ebv:
         ebv += ", fitted from the photometry with that as a prior"
+    if getattr(opts, "cal_ebv", False):
+        ebv += "; for teff_cal estimated from the calibrated colours (that value and its error as prior)"
     record = {
         "tool_name": "stelltemp",
         "tool_version": str(version),

@@ -42,7 +42,7 @@ from stelltemp.validation import RANGES
 #: unit mix-ups, not unusual stars.  E(B-V) is bounded by the kernel's grid.
 LIMIT_RANGES = {kind: RANGES[name] for kind, name in (
     ("mag", "mag"), ("err", "mag_err"), ("ebv", "ebv"), ("ebv_err", "ebv_err"), ("parallax", "parallax"),
-    ("parallax_err", "parallax_err"), ("feh", "feh"), ("logg", "logg"))}
+    ("parallax_err", "parallax_err"), ("feh", "feh"), ("feh_err", "feh_err"), ("logg", "logg"))}
 #: the same as (lo, hi) pairs
 LIMITS = {kind: (r.lo, r.hi) for kind, r in LIMIT_RANGES.items()}
 
@@ -245,7 +245,7 @@ def prepare_inputs(get, cmap, n, fit_ebv=False, row_notes=()):
         unusable[row] |= bool(drop)
 
     scalars = {}
-    for name in ("ebv", "ebv_err", "parallax", "parallax_err", "feh", "logg"):
+    for name in ("ebv", "ebv_err", "parallax", "parallax_err", "feh", "feh_err", "logg"):
         if name in cmap.columns:
             col = cmap.columns[name]
             vals, text = column_to_float(get(col))

@@ -10,8 +10,9 @@ Default naming (no map file)
   DeprecationWarning;
 - its 1-sigma error column is the key plus ``_err``, e.g. ``V_JC_err``;
 - ``ebv`` and ``ebv_err`` hold E(B−V) and its error (mag), ``parallax`` and
-  ``parallax_err`` the parallax (mas), ``feh`` the [Fe/H] (dex) and ``logg``
-  the surface gravity log g (cgs dex).  Each is optional.
+  ``parallax_err`` the parallax (mas), ``feh`` and ``feh_err`` the [Fe/H]
+  and its error (dex) and ``logg`` the surface gravity log g (cgs dex).
+  Each is optional.
 
 Map file (our own TOML layout)
 ------------------------------
@@ -22,7 +23,7 @@ For catalogues with their own column names::
     "B_JC" = "Bmag"                          # magnitude column only
     "V" = { mag = "Vmag", err = "e_Vmag" }   # V is V_JC
 
-    [columns]            # any of: ebv ebv_err parallax parallax_err feh logg
+    [columns]            # any of: ebv ebv_err parallax parallax_err feh feh_err logg
     ebv = "EBV_map"
     parallax = "plx"
 
@@ -50,10 +51,10 @@ ERR_SUFFIX = "_err"
 KNOWN_SYSTEMS = ("JC", "SDSS", "PS1", "2MASS", "GDR3")
 
 #: per-row inputs besides magnitudes, with the default column name of each
-SCALAR_INPUTS = ("ebv", "ebv_err", "parallax", "parallax_err", "feh", "logg")
+SCALAR_INPUTS = ("ebv", "ebv_err", "parallax", "parallax_err", "feh", "feh_err", "logg")
 
 #: the inputs that may also be given as a single number for all rows
-VALUE_INPUTS = ("ebv", "ebv_err")
+VALUE_INPUTS = ("ebv", "ebv_err", "feh_err")
 
 
 @dataclass(frozen=True)
@@ -110,14 +111,14 @@ class ColumnMap:
             if col not in present:
                 raise StelltempError(f"column '{col}' (for {key}) is not in the table")
 
-    def with_ebv(self, ebv=None, ebv_err=None):
-        """A copy with E(B−V) (and its error) set from a number or a column name.
+    def with_ebv(self, ebv=None, ebv_err=None, feh_err=None):
+        """A copy with E(B−V), its error (and the [Fe/H] error) set from a number or a column name.
 
         A string that parses as a number is a value for every row; any other
         string is a column name.  ``None`` leaves the setting as it is.
         """
         out = self
-        for name, given in (("ebv", ebv), ("ebv_err", ebv_err)):
+        for name, given in (("ebv", ebv), ("ebv_err", ebv_err), ("feh_err", feh_err)):
             if given is None:
                 continue
             cols, vals = dict(out.columns), dict(out.values)

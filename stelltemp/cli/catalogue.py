@@ -30,6 +30,7 @@ def add(p):
     p.add_argument("--columns", metavar="MAP.toml", help="column map file ([bands], [columns], [values])")
     options.add_reddening(p, column=True)
     p.add_argument("--fit-ebv", action="store_true", help="fit E(B-V) from the photometry")
+    options.add_calibration(p, column=True)
     p.add_argument("--method", default="auto", choices=["auto", "colour", "fit"], help="engine method")
     options.add_replace(p)
     p.add_argument("--renew-results", action="store_true",
@@ -40,7 +41,9 @@ def add(p):
     p.add_argument("--quiet", action="store_true", help="no progress bar and no closing summary text")
     options.add_json(p)
     options.add_plot(p, "a colour-temperature diagram of the results (the first rows of the results file)")
-    p.add_argument("--dask", action="store_true", help="run on Dask (Parquet input; needs stelltemp[scale])")
+    p.add_argument("--dask", action="store_true",
+                   help="run on Dask: Parquet read by the workers, CSV read here and computed by the workers "
+                        "(other formats run locally, with a note); needs stelltemp[scale]")
     p.add_argument("--scheduler", metavar="ADDRESS",
                    help="address of a running dask.distributed scheduler (implies --dask)")
     p.add_argument("--workers", type=int, metavar="N", help="local Dask workers (default: all cores)")
@@ -72,16 +75,15 @@ def run(args, out=None, err=None, engine=None):
     if args.plot:  # refuse before the long run: folder, format, existing file
         check_figure_path(args.plot, args.replace)
     common = dict(mapping=args.columns, ebv=args.ebv, ebv_err=args.ebv_err, rv=args.rv, law=args.law,
-                  method=args.method, fit_ebv=args.fit_ebv, overwrite=args.replace, quiet=args.quiet, engine=engine)
+                  method=args.method, fit_ebv=args.fit_ebv, feh_err=args.feh_err, cal_ebv=args.cal_ebv,
+                  cal_detail=args.each_relation, overwrite=args.replace, quiet=args.quiet, engine=engine)
     try:
         if args.dask or args.scheduler:
             from ..catalog.scale import run_catalogue_dask
 
-            if args.renew_results:
-                raise StelltempError("--renew-results works on local runs (leave out --dask)")
-
             summary = run_catalogue_dask(args.input, target, scheduler=args.scheduler, workers=args.workers,
-                                         local=args.dask_local, **common)
+                                         local=args.dask_local, chunk_rows=args.chunk_rows,
+                                         renew_results=args.renew_results, **common)
         else:
             from ..catalog.batch import run_catalogue
 

@@ -128,6 +128,28 @@ def add_reddening(p, errors=True, column=False):
     p.add_argument("--rv", type=float, default=DEFAULT_RV, help="R_V, ratio of total to selective extinction")
 
 
+def add_calibration(p, column=False):
+    """Options of the calibrated temperature: ``--feh-err``, ``--cal-ebv``, ``--each-relation``.
+
+    A single star also gets ``--feh`` and ``--logg``; with ``column``
+    (catalogues, where [Fe/H] and log g come from columns) ``--feh-err``
+    takes a number or a column name.
+    """
+    if column:
+        p.add_argument("--feh-err", metavar="DEX|COLUMN",
+                       help="1-sigma error of [Fe/H] for every row, or the column holding it (default: the "
+                            "column map's, else 0)")
+    else:
+        p.add_argument("--feh", type=float, metavar="DEX", help="[Fe/H], dex, for the calibrations (default: solar)")
+        p.add_argument("--feh-err", type=float, metavar="DEX", help="1-sigma error of [Fe/H], dex")
+        p.add_argument("--logg", type=float, metavar="DEX",
+                       help="log g, cgs dex, for the calibrations: dwarf or giant (default: dwarf)")
+    p.add_argument("--cal-ebv", action="store_true",
+                   help="fit E(B-V) from the calibrated colours themselves (3+ colours, or --ebv-err as prior)")
+    p.add_argument("--each-relation", action="store_true",
+                   help="also give each calibrated relation's own temperature and error")
+
+
 def add_magnitudes(p, required=True, example="V=10.00,0.01"):
     """``--mag BAND=MAG[,ERR]``, repeatable."""
     p.add_argument("--mag", action="append", required=required, metavar="BAND=MAG[,ERR]",

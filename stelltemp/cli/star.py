@@ -23,14 +23,7 @@ def add(p):
     p.add_argument("--fit-ebv", action="store_true", help="fit E(B-V) too (3+ bands; --ebv/--ebv-err as prior)")
     p.add_argument("--parallax", type=float, metavar="MAS", help="parallax, mas (for radius and luminosity)")
     p.add_argument("--parallax-err", type=float, metavar="MAS", help="1-sigma error of the parallax, mas")
-    p.add_argument("--feh", type=float, metavar="DEX", help="[Fe/H], dex, for the calibrations (default: solar)")
-    p.add_argument("--feh-err", type=float, metavar="DEX", help="1-sigma error of [Fe/H], dex")
-    p.add_argument("--cal-ebv", action="store_true",
-                   help="fit E(B-V) from the calibrated colours themselves (3+ colours, or --ebv-err as prior)")
-    p.add_argument("--each-relation", action="store_true",
-                   help="also show each calibrated relation's own temperature and error")
-    p.add_argument("--logg", type=float, metavar="DEX",
-                   help="log g, cgs dex, for the calibrations: dwarf or giant (default: dwarf)")
+    options.add_calibration(p)
     p.add_argument("--method", default="auto", choices=["auto", "colour", "fit"],
                    help="colour inversion (2 bands), multi-band fit, or auto")
     p.add_argument("--monte-carlo", type=int, default=0, metavar="N",

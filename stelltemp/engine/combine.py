@@ -417,6 +417,7 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
         a = np.where(used, 1.0 + s * kt / tr[:, None], 1.0)
         y = y - (1.0 - a) * tr[:, None]
         c = _covariance(setup, s, g, used, sig_m[rows], feh_err[rows], sc)
+        c_known_ebv = c  # without the reddening term, for the reddening's share
         n_used = used.sum(axis=1)
         pp = prior_prec[rows]
         if fit_ebv:
@@ -433,7 +434,7 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
             bad = n_used == 0
             step_e = np.zeros(k)
         now = dict(x=x, kx=kx, y=y, s=s, used=used, sc=sc, v=v, c=c, n_used=n_used, bad=bad,
-                   est=est, cov=cov, chi2=chi2, ly=ly, lp=lp)
+                   est=est, cov=cov, chi2=chi2, ly=ly, lp=lp, a=a, c_known_ebv=c_known_ebv)
         if it == 0:
             last = dict(now, x=x.copy())  # x0 (the first pass) stays as it is
         else:
@@ -455,9 +456,9 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
         if not moving.any() or it == _ITERATIONS - 1:
             break
         e_lin[rows] = np.where(moving[rows], np.clip(el + step_e, bg.E_MIN, bg.E_MAX), el)
-    x, kx, y, s, used, sc, v, c, n_used, bad, est, cov, chi2, ly, lp = (
+    x, kx, y, s, used, sc, v, c, n_used, bad, est, cov, chi2, ly, lp, a, c_known_ebv = (
         last[name] for name in ("x", "kx", "y", "s", "used", "sc", "v", "c", "n_used", "bad", "est",
-                                "cov", "chi2", "ly", "lp"))
+                                "cov", "chi2", "ly", "lp", "a", "c_known_ebv"))
 
     teff = np.where(bad, np.nan, est[:, 0])
     teff_err = np.where(bad, np.nan, np.sqrt(cov[:, 0, 0]))
@@ -490,17 +491,53 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
         lo = np.where(bad, np.nan, lo)
         hi = np.where(bad, np.nan, hi)
 
-    # the estimator is linear in the data: its E(B-V) part is (Ly·v)² σ_E², or Lp² σ_E² (prior)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        if fit_ebv:
-            e_var = np.where(prior_prec > 0, lp[:, 0] ** 2 / np.where(prior_prec > 0, prior_prec, 1), 0)
-        else:
-            e_var = (np.einsum("nr,nr->n", ly[:, 0, :], np.where(used, v, 0.0)) * ebv_err) ** 2
-        share = np.where(bad, np.nan, e_var / teff_err**2)
+    share = np.where(bad, np.nan, _reddening_share(c_known_ebv, a, used, teff_err))
     notes = _notes(setup0, x0, logg, feh_given, fit_ebv, prior_prec, n_used)
     return CalibratedTeff(teff, teff_err, lo, hi, ebv_fit, ebv_fit_err, chi2, dof, p_value, n_used,
                           used_all, tuple(rel.key for rel in setup0.rels), teff_each, err_each,
                           _outside(setup0, x0, used_all, teff, feh, logg), notes, share)
+
+
+def _reddening_share(c_known, a, used, teff_err):
+    """Share of the variance of T_eff that is owed to the E(B−V) error, per star.
+
+    It is the variance the error adds: 1 − σ²(T | E(B−V) known) / σ²(T),
+    where σ²(T | E known) = 1 / (aᵀ C₀⁻¹ a) is the generalised least squares
+    variance with the reddening term left out of the covariance C₀ (and, with
+    E(B−V) fitted, E(B−V) held fixed).  The E(B−V) part of the variance at
+    the final weights, (L·v)² σ_E², is not this number: a large E(B−V) error
+    moves the weights towards a reddening-free combination that amplifies
+    the relations' scatter, and that extra scatter is owed to the reddening
+    too.
+
+    Parameters
+    ----------
+    c_known : ndarray (n, r, r)
+        Covariance of the relations without the reddening term, K²
+        (identity on unused rows and columns).
+    a : ndarray (n, r)
+        Design column of T_eff (∂T_i/∂T).
+    used : ndarray (n, r) of bool
+    teff_err : ndarray (n,)
+        1σ error of T_eff with everything included, K.
+
+    Returns
+    -------
+    ndarray (n,), between 0 and 1 (NaN where there is no estimate).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> c = np.array([[[100.0 ** 2, 0.0], [0.0, 100.0 ** 2]]])
+    >>> share = _reddening_share(c, np.ones((1, 2)), np.ones((1, 2), bool), np.array([100.0]))
+    >>> round(float(share[0]), 3)  # 70.7 K without the reddening term, 100 K with it
+    0.5
+    """
+    am = np.where(used, a, 0.0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        info = np.einsum("nr,nr->n", am, np.linalg.solve(c_known, am[:, :, None])[:, :, 0])
+        share = 1.0 - 1.0 / (info * np.square(teff_err))
+    return np.clip(share, 0.0, 1.0)
 
 
 def _outside(setup, x, used, teff, feh, logg):
