@@ -18,6 +18,11 @@ Evaluating a table costs four gathers and a few dozen array operations per
 point, so millions of temperatures evaluate in a fraction of a second.
 Colour tables are differences of band tables (Hermite interpolation is
 linear in the tabulated data), so a colour costs one evaluation.
+
+Units at the public functions: temperatures are plain numbers in K or
+Quantities (K, °C, °F); E(B−V) plain magnitudes or a Quantity in mag;
+angular diameters plain radians or an angle Quantity (mas, arcsec …).
+Magnitudes come back as plain numbers.
 """
 
 from dataclasses import dataclass
@@ -26,11 +31,16 @@ from functools import cached_property, lru_cache
 import numpy as np
 
 from . import cache, kernels
+from astropy import units as u
+
 from .errors import StelltempError
 from .extinction import DEFAULT_LAW, DEFAULT_RV, check_law, relative_extinction
 from .passbands import get_passband
 from .photometry import mag_offset
 from .planck import dlnb_dlnt, planck_lambda_cgs
+
+__all__ = ["blackbody_mag", "band_table", "colour_table", "constant_coefficient", "inside", "band_weights",
+           "blackbody_band_terms"]
 
 T_MIN, T_MAX = 1000.0, 100000.0
 N_T = 241
@@ -166,15 +176,49 @@ class HermiteTable:
         return self.lnt0 + self.h_t * np.arange(nt), self.e0 + self.h_e * np.arange(ne)
 
 
+def _kelvin(temperature):
+    """Plain K from plain numbers or a temperature Quantity (K, °C, °F); no range check (the grid decides)."""
+    if isinstance(temperature, u.Quantity):
+        try:
+            return temperature.to_value(u.K, equivalencies=u.temperature())
+        except u.UnitConversionError:
+            raise StelltempError(f"not a temperature: unit {temperature.unit}") from None
+    return np.asarray(temperature, float)
+
+
+def _plain(value, unit, what, equivalencies=()):
+    """Plain numbers in ``unit`` from plain numbers or a Quantity (one clear error otherwise)."""
+    if isinstance(value, u.Quantity):
+        try:
+            return value.to_value(unit, equivalencies=equivalencies)
+        except u.UnitConversionError:
+            raise StelltempError(f"{what} must be in units convertible to {unit}, got {value.unit}") from None
+    return np.asarray(value, float)
+
+
 def inside(temperature_k, ebv):
-    """True where (T, E(B−V)) lies on the tabulated grid."""
-    t = np.asarray(temperature_k, float)
-    e = np.asarray(ebv, float)
+    """True where (T, E(B−V)) lies on the tabulated grid (T: plain K or a Quantity; E(B−V) in mag).
+
+    Examples
+    --------
+    >>> from astropy import units as u
+    >>> bool(inside(5000, 0.1)), bool(inside(500 * u.K, 0.1)), bool(inside(5000 * u.deg_C, 0.1))
+    (True, False, True)
+    """
+    t = _kelvin(temperature_k)
+    e = _plain(ebv, u.mag, "E(B-V)")
     return (t >= T_MIN) & (t <= T_MAX) & (e >= E_MIN - 1e-12) & (e <= E_MAX + 1e-12)
 
 
 def band_weights(passband):
-    """(λ, w): integration wavelengths (Å) and weights with Σ w F_λ = ∫ F_λ λ S dλ."""
+    """(λ, w): integration wavelengths (Å) and weights with Σ w F_λ = ∫ F_λ λ S dλ.
+
+    Examples
+    --------
+    >>> lam, w = band_weights("V_JC")
+    >>> lam.shape == w.shape
+    True
+    """
     band = get_passband(passband)
     lam = band.integration_grid
     return lam, trapezoid_weights(lam) * lam * band.photon_response_at(lam)
@@ -185,11 +229,18 @@ def blackbody_band_terms(band, temperature_k, ebv, law=DEFAULT_LAW, rv=DEFAULT_R
 
     Returns four arrays of shape (len(T), len(E)).  This is the brute-force
     computation the tables are built from, also used to check them.
+    Temperatures plain K or a Quantity; E(B−V) plain mag or a Quantity.
+
+    Examples
+    --------
+    >>> m, m_t, m_e, m_te = blackbody_band_terms("V_JC", [5000.0, 6000.0], [0.0, 0.5])
+    >>> m.shape, bool(m_e[0, 0] > 0)
+    ((2, 2), True)
     """
     lam, weight = band_weights(band)
     band = get_passband(band)
-    t = np.atleast_1d(np.asarray(temperature_k, float))
-    e = np.atleast_1d(np.asarray(ebv, float))
+    t = np.atleast_1d(_kelvin(temperature_k))
+    e = np.atleast_1d(_plain(ebv, u.mag, "E(B-V)"))
     b = planck_lambda_cgs(t[:, None], lam[None, :]) * weight  # (nT, nλ)
     g = dlnb_dlnt(t[:, None], lam[None, :])
     ext = -LN10_04 * float(rv) * relative_extinction(lam, law, rv)  # d ln(transmission)/dE
@@ -266,7 +317,13 @@ def _band_table(key, law, rv):
 
 
 def band_table(passband, law=DEFAULT_LAW, rv=DEFAULT_RV):
-    """The Hermite table of blackbody magnitudes through one passband (cached)."""
+    """The Hermite table of blackbody magnitudes through one passband (cached).
+
+    Examples
+    --------
+    >>> band_table("V_JC").shape[:2]
+    (241, 66)
+    """
     check_law(law, rv)
     band = get_passband(passband)
     # user curves are cached by object (a file read again is a new curve), built-ins by key
@@ -274,7 +331,15 @@ def band_table(passband, law=DEFAULT_LAW, rv=DEFAULT_RV):
 
 
 def colour_table(blue, red, law=DEFAULT_LAW, rv=DEFAULT_RV):
-    """Hermite table of the blackbody colour m_blue − m_red."""
+    """Hermite table of the blackbody colour m_blue − m_red.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> value, d_lnt, d_e = colour_table("B_JC", "V_JC").evaluate(np.log(5772.0), 0.0)
+    >>> 0.5 < float(value) < 0.8
+    True
+    """
     return band_table(blue, law, rv) - band_table(red, law, rv)
 
 
@@ -283,11 +348,37 @@ def blackbody_mag(passband, temperature_k, ebv=0.0, law=DEFAULT_LAW, rv=DEFAULT_
 
     Without ``angular_diameter_rad`` the blackbody has unit solid angle
     (F_λ = B_λ × 1 sr), useful for colours.
+
+    Parameters
+    ----------
+    passband : Passband or str
+    temperature_k : float, array_like or Quantity
+        Plain numbers in K; Quantities in K, °C or °F.
+    ebv : float, array_like or Quantity
+        E(B−V) in mag.
+    law, rv : str, float
+        Extinction law and R_V.
+    angular_diameter_rad : float, array_like or Quantity, optional
+        Plain numbers in radians, or an angle Quantity (mas …).
+
+    Returns
+    -------
+    float or ndarray
+        Magnitude(s) in the band's own system, plain numbers.
+
+    Examples
+    --------
+    >>> from astropy import units as u
+    >>> a = blackbody_mag("V_JC", 5772.0, angular_diameter_rad=1.0 * u.mas)
+    >>> b = blackbody_mag("V_JC", 5498.85 * u.deg_C, angular_diameter_rad=4.84813681e-9)
+    >>> bool(abs(a - b) < 1e-6)
+    True
     """
     table = band_table(passband, law, rv)
-    m, _, _ = table.evaluate(np.log(np.asarray(temperature_k, float)), ebv)
+    m, _, _ = table.evaluate(np.log(_kelvin(temperature_k)), _plain(ebv, u.mag, "E(B-V)"))
     if angular_diameter_rad is not None:
-        m = m - 2.5 * np.log10(np.pi * np.asarray(angular_diameter_rad, float) ** 2 / 4)
+        theta = _plain(angular_diameter_rad, u.rad, "angular diameter")
+        m = m - 2.5 * np.log10(np.pi * theta ** 2 / 4)
     return m
 
 
@@ -297,7 +388,14 @@ def constant_coefficient(passband, law=DEFAULT_LAW, rv=DEFAULT_RV, reference_tem
     Documented shortcut only: the engine never uses it, because the true
     coefficient depends on the star's spectrum (it differs by ~0.1 mag per
     unit E(B−V) between a 3,500 K and a 30,000 K star in B−V).
+    ``reference_temperature`` is plain K or a Quantity (K, °C, °F).
+
+    Examples
+    --------
+    >>> 3.0 < constant_coefficient("V_JC") < 3.3
+    True
     """
+    reference_temperature = float(_kelvin(reference_temperature))
     if not (T_MIN <= reference_temperature <= T_MAX):
         raise StelltempError(f"reference temperature must lie in {T_MIN:g}–{T_MAX:g} K")
     _, _, dm_de = band_table(passband, law, rv).evaluate(np.log(reference_temperature), 0.0)

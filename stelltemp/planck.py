@@ -6,6 +6,9 @@ Two layers:
   wavelength in Å, frequency in Hz, results in cgs units;
 * Quantity functions for the public edge, which accept temperatures in K,
   °C or °F (via astropy's temperature equivalency) and return Quantities.
+  Plain numbers there are K for temperatures, nm for wavelengths and Hz
+  for frequencies; results are per nm (B_λ, photon radiance) and per Hz
+  (B_ν), so a plain wavelength is read in the unit the result is given in.
 
 Everything broadcasts temperature against wavelength or frequency.  The
 exponential is evaluated with ``expm1`` for small ``x = hc/λkT`` (the
@@ -198,24 +201,61 @@ def _spectral_values(value, unit, what):
 
 
 def _as_angstrom(wavelength):
+    """Wavelengths in Å for the kernels: Quantities converted, plain numbers read as nm."""
+    if not isinstance(wavelength, u.Quantity):
+        wavelength = np.asarray(wavelength, float) * u.nm
     return _spectral_values(wavelength, u.AA, "wavelengths")
 
 
 def radiance_lambda(temperature, wavelength):
-    """B_λ(T) as a Quantity in W m⁻² nm⁻¹ sr⁻¹ (wavelength: Quantity or Å)."""
+    """Spectral radiance per unit wavelength B_λ(T), in W m⁻² nm⁻¹ sr⁻¹.
+
+    Parameters
+    ----------
+    temperature : float, array_like or Quantity
+        Plain numbers in K; Quantities in K, °C or °F.
+    wavelength : float, array_like or Quantity
+        Plain numbers in nm (the unit of the result); any spectral Quantity
+        (Å, µm, a frequency …) is converted.
+
+    Returns
+    -------
+    Quantity
+        B_λ in W m⁻² nm⁻¹ sr⁻¹, broadcast over temperature and wavelength.
+
+    Examples
+    --------
+    >>> from astropy import units as u
+    >>> b = radiance_lambda(5772, 500)
+    >>> b.unit == u.W / u.m**2 / u.nm / u.sr, round(float(b.value), 2)
+    (True, 26238.54)
+    """
     b = planck_lambda_cgs(as_kelvin(temperature), _as_angstrom(wavelength))
     return (b * u.erg / u.s / u.cm**2 / u.AA / u.sr).to(u.W / u.m**2 / u.nm / u.sr)
 
 
 def radiance_nu(temperature, frequency):
-    """B_ν(T) as a Quantity in W m⁻² Hz⁻¹ sr⁻¹ (frequency: Quantity or Hz)."""
+    """B_ν(T) as a Quantity in W m⁻² Hz⁻¹ sr⁻¹ (frequency: Quantity or plain Hz).
+
+    Examples
+    --------
+    >>> from astropy import units as u
+    >>> f"{radiance_nu(5772, 600 * u.THz).value:.3e}"
+    '2.185e-08'
+    """
     nu = _spectral_values(frequency, u.Hz, "frequencies")
     b = planck_nu_cgs(as_kelvin(temperature), nu)
     return (b * u.erg / u.s / u.cm**2 / u.Hz / u.sr).to(u.W / u.m**2 / u.Hz / u.sr)
 
 
 def photon_radiance_lambda(temperature, wavelength):
-    """Photon radiance per unit wavelength, photons s⁻¹ m⁻² nm⁻¹ sr⁻¹."""
+    """Photon radiance per unit wavelength, photons s⁻¹ m⁻² nm⁻¹ sr⁻¹ (wavelength: Quantity or plain nm).
+
+    Examples
+    --------
+    >>> f"{photon_radiance_lambda(5772, 500).value:.3e}"
+    '6.604e+22'
+    """
     n = photon_radiance_lambda_cgs(as_kelvin(temperature), _as_angstrom(wavelength))
     return (n / u.s / u.cm**2 / u.AA / u.sr).to(1 / u.s / u.m**2 / u.nm / u.sr)
 

@@ -293,8 +293,23 @@ def test_astropy_tables_go_through_the_catalogue_layer():
     mags = synth(["B_JC", "V_JC", "Ks_2MASS"], [4500.0, 9000.0], [0.1, 0.1])
     table = Table({**{k: v for k, v in mags.items()}, "ebv": [0.1, 0.1]})
     out = estimate_table(table)
-    assert np.allclose(out["t_bb"], [4500.0, 9000.0], rtol=1e-6)
+    assert np.allclose(out["t_bb"].to_value(u.K), [4500.0, 9000.0], rtol=1e-6)
     assert "B_JC" in out.colnames  # input columns kept
+    # one table type for the API: estimate_table returns what estimate returns
+    direct = estimate(mags, ebv=[0.1, 0.1])
+    assert type(out) is type(direct)
+    assert out["t_bb"].unit == direct["t_bb"].unit == u.K
+
+
+def test_only_scalars_broadcast_across_stars():
+    with pytest.raises(StelltempError, match=r"magnitudes in V_JC has 1 value for 2 stars"):
+        estimate({"B_JC": [10.0, 11.0], "V_JC": [9.5]})
+    with pytest.raises(StelltempError, match=r"E\(B-V\) has 1 value for 2 stars"):
+        estimate({"B_JC": [10.0, 11.0], "V_JC": [9.5, 10.4]}, ebv=[0.1])
+    # a scalar still applies to every star, and one star may come as length-1 arrays
+    both = estimate({"B_JC": [10.0, 11.0], "V_JC": [9.5, 10.4]}, ebv=0.1)
+    assert len(both) == 2 and np.all(both["ebv_used"].to_value(u.mag) == 0.1)
+    assert len(estimate({"B_JC": [10.0], "V_JC": [9.5]}, ebv=[0.1])) == 1
 
 
 def test_av_is_converted_with_rv():

@@ -15,7 +15,7 @@ Modules, one idea each:
   (the ``catalogue`` subcommand lives in :mod:`stelltemp.cli.catalogue`).
 """
 
-import importlib
+from ..lazy import lazy_exports
 
 # names load their module on first use, so registering the CLI stays cheap
 _HOME = {
@@ -26,21 +26,11 @@ _HOME = {
     "RunSummary": "batch",
     "estimate_table": "batch",
     "run_catalogue": "batch",
+    "read_table": "tableio",
+    "write_table": "tableio",
+    "plot_results": "figure",
 }
 
+__getattr__, __dir__ = lazy_exports(__name__, _HOME)
 
-def __getattr__(name):
-    if name in _HOME:
-        return getattr(importlib.import_module(f"stelltemp.catalog.{_HOME[name]}"), name)
-    raise AttributeError(f"module 'stelltemp.catalog' has no attribute '{name}'")
-
-
-__all__ = [
-    "ColumnMap",
-    "RunOptions",
-    "RunSummary",
-    "default_mapping",
-    "estimate_table",
-    "load_mapping",
-    "run_catalogue",
-]
+__all__ = sorted(_HOME)

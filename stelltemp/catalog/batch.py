@@ -513,6 +513,18 @@ def run_catalogue(
     StelltempError
         Unreadable input, unknown extension, missing columns, existing output,
         bad options.  Bad rows never raise: they are flagged.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> from astropy.table import Table
+    >>> from stelltemp.catalog import read_table, write_table
+    >>> d = pathlib.Path(tempfile.mkdtemp())
+    >>> _ = write_table(Table({"B_JC": [10.65, 9.9], "V_JC": [10.0, 9.3]}), d / "in.csv")
+    >>> summary = run_catalogue(d / "in.csv", d / "out.ecsv", quiet=True)
+    >>> summary.rows, len(read_table(d / "out.ecsv"))
+    (2, 2)
+
     """
     t0 = time.perf_counter()
     opts = RunOptions(rv=float(rv), law=law, method=method, fit_ebv=bool(fit_ebv), cal_ebv=bool(cal_ebv),
@@ -591,7 +603,17 @@ def estimate_table(table, mapping=None, *, ebv=None, ebv_err=None, rv=3.1, law="
 
     Returns
     -------
-    astropy.table.Table
+    astropy.table.QTable
+        The input columns followed by the result columns, the same table
+        type as :func:`stelltemp.engine.estimate` (columns with units are
+        Quantities).
+
+    Examples
+    --------
+    >>> from astropy.table import Table
+    >>> out = estimate_table(Table({"B_JC": [10.65, 9.9], "V_JC": [10.0, 9.3]}))
+    >>> type(out).__name__, out["t_bb"].unit
+    ('QTable', Unit("K"))
     """
     opts = RunOptions(rv=float(rv), law=law, method=method, fit_ebv=bool(fit_ebv))
     opts.check()
@@ -600,8 +622,10 @@ def estimate_table(table, mapping=None, *, ebv=None, ebv_err=None, rv=3.1, law="
     cmap = resolve_mapping(list(table.colnames), mapping, ebv, ebv_err,
                            [n for n in table.colnames if getattr(table[n], "ndim", 1) > 1])
     res = compute_chunk(table, cmap, opts, engine or default_engine())
-    return merge_astropy(table, res, result_names(table.colnames, res.colnames),
-                         input_info=input_units(list(table.colnames), cmap))
+    from astropy.table import QTable
+
+    return QTable(merge_astropy(table, res, result_names(table.colnames, res.colnames),
+                                input_info=input_units(list(table.colnames), cmap)), copy=False)
 
 
 __all__ = [

@@ -23,6 +23,19 @@ def plot_results(results_path, figure_path, law="G23", rv=3.1, replace=False):
     Returns
     -------
     Path of the figure.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> from astropy.table import Table
+    >>> from stelltemp.catalog import run_catalogue, write_table
+    >>> d = pathlib.Path(tempfile.mkdtemp())
+    >>> _ = write_table(Table({"B_JC": [10.65, 9.9], "V_JC": [10.0, 9.3]}), d / "in.csv")
+    >>> _ = run_catalogue(d / "in.csv", d / "out.ecsv", quiet=True)
+    >>> _ = plot_results(d / "out.ecsv", d / "diagram.png")
+    >>> (d / "diagram.png").stat().st_size > 0
+    True
+
     """
     from ..plots import plot_catalogue_results
     from .tableio import read_table

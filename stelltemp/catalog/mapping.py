@@ -170,6 +170,13 @@ def default_mapping(colnames, systems=KNOWN_SYSTEMS):
     Returns
     -------
     ColumnMap
+
+    Examples
+    --------
+    >>> cmap = default_mapping(["B_JC", "B_JC_err", "V_JC", "ebv"])
+    >>> sorted(cmap.bands), cmap.bands["B_JC"].err, cmap.columns["ebv"]
+    (['B_JC', 'V_JC'], 'B_JC_err', 'ebv')
+
     """
     names = list(colnames)
     present = set(names)
@@ -258,6 +265,15 @@ def load_mapping(path):
     ------
     StelltempError
         Unreadable file, TOML syntax error, unknown table or key, wrong type.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> path = pathlib.Path(tempfile.mkdtemp()) / "map.toml"
+    >>> _ = path.write_text('[bands]\\nV_JC = "vmag"\\nB_JC = "bmag"\\n')
+    >>> sorted(load_mapping(path).bands)
+    ['B_JC', 'V_JC']
+
     """
     from stelltemp.safeio import read_text_file
 

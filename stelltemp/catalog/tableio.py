@@ -693,6 +693,16 @@ def read_table(path, max_rows=None):
     """Read a table file into an astropy Table, with its units and metadata (small files; see `ChunkReader`).
 
     ``max_rows`` keeps only the first rows (read in one chunk of that size).
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> from astropy.table import Table
+    >>> path = pathlib.Path(tempfile.mkdtemp()) / "stars.ecsv"
+    >>> _ = write_table(Table({"V_JC": [10.0, 11.0]}), path)
+    >>> list(read_table(path)["V_JC"])
+    [np.float64(10.0), np.float64(11.0)]
+
     """
     reader = ChunkReader(path, chunk_rows=max_rows or 1 << 62)
     chunks = list(reader) if max_rows is None else [c for c in [next(iter(reader), None)] if c is not None]
@@ -1300,7 +1310,18 @@ def open_sink(path, run_meta, overwrite=False):
 
 
 def write_table(table, path, run_meta=None, overwrite=False):
-    """Write an astropy Table to `path` (format by extension), atomically."""
+    """Write an astropy Table to `path` (format by extension), atomically.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> from astropy.table import Table
+    >>> path = pathlib.Path(tempfile.mkdtemp()) / "stars.csv"
+    >>> _ = write_table(Table({"V_JC": [10.5]}), path)
+    >>> path.read_text().splitlines()[-1]
+    '10.5'
+
+    """
     with open_sink(path, dict(run_meta or {}), overwrite=overwrite) as sink:
         sink.write(astropy_to_arrow(table) if sink.kind == "arrow" else table)
 

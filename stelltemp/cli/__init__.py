@@ -23,13 +23,15 @@ one module per subcommand, in :data:`COMMANDS` order:
 
 How to add a subcommand
 -----------------------
-1. Write ``stelltemp/cli/<name>.py`` with two functions, like the others::
+1. Write ``stelltemp/cli/<name>.py`` with three texts and two functions, like the others::
 
-       def add(subparsers):            # register the parser; shared groups from .options
-           p = subparsers.add_parser("<name>", help="…", description="…")
-           options.add_json(p)
-           p.set_defaults(run=run)
-           return p
+       NAME = "<name>"
+       HELP = "…"                      # its line in ``stelltemp --help``
+       DESCRIPTION = "…"               # the text of its own ``--help``
+
+       def add(p):                     # its options; shared groups from .options
+           ...
+           return options.add_closing(p, plot="…", replace="--plot file")
 
        def run(args, out=None, err=None):   # parse → call the public API → format; return 0
            ...
@@ -53,7 +55,7 @@ import warnings
 from .. import __version__
 from ..errors import RenamedWarning, StelltempError
 from . import blackbody, catalogue, colourgrid, exposure, nightplan, passbands, relations, standardise, star, tour
-from .options import HelpWithDefaults
+from .options import HelpWithDefaults, subcommand
 from .output import emit_json
 
 __all__ = ["COMMANDS", "EXIT_BAD_INPUT", "build_parser", "emit_json", "for_people", "main", "option_names",
@@ -91,7 +93,7 @@ def build_parser():
     parser.add_argument("--version", action="version", version=f"stelltemp {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="<subcommand>", parser_class=Parser)
     for module in COMMANDS:
-        module.add(sub)
+        subcommand(sub, module)
     return parser
 
 

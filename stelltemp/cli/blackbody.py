@@ -6,14 +6,17 @@ from . import options
 from .output import emit_json, number
 
 NAME = "blackbody"
+HELP = "Planck, Wien and Stefan-Boltzmann quantities for a temperature"
+DESCRIPTION = (
+    "Wien peaks (of B_lambda, of the photon rate and of B_nu), the surface flux and, given a radius, "
+    "the luminosity of a blackbody; optionally the radiance at one wavelength and a figure of the "
+    "spectrum."
+)
 DEFAULT_BANDS = ["B_JC", "V_JC", "Ic_JC", "Ks_2MASS"]
 
 
-def add(subparsers):
-    p = subparsers.add_parser(NAME, help="Planck, Wien and Stefan-Boltzmann quantities for a temperature",
-                              description="Wien peaks (of B_lambda, of the photon rate and of B_nu), the surface "
-                                          "flux and, given a radius, the luminosity of a blackbody; optionally "
-                                          "the radiance at one wavelength and a figure of the spectrum.")
+def add(p):
+    """Register the options of this subcommand on ``p`` (made by :func:`stelltemp.cli.options.subcommand`)."""
     p.add_argument("temperature", help="temperature (a number; its unit from --unit)")
     p.add_argument("--unit", default="K", choices=["K", "C", "F"], help="unit of the temperature")
     p.add_argument("--radius", type=float, metavar="R_SUN", help="radius in R_sun, to give the luminosity")
@@ -21,11 +24,7 @@ def add(subparsers):
                    help="also give B_lambda and B_nu at this wavelength, nm")
     options.renamed(p, "--at", "--wavelength", "wavelength", type=float, metavar="NM")
     p.add_argument("--bands", nargs="*", default=DEFAULT_BANDS, help="passbands drawn on the --plot figure")
-    options.add_plot(p, "the spectrum with the passbands and the Wien peak")
-    options.add_replace(p, "--plot file")
-    options.add_json(p)
-    p.set_defaults(run=run)
-    return p
+    return options.add_closing(p, plot="the spectrum with the passbands and the Wien peak", replace="--plot file")
 
 
 def run(args, out=None, err=None):

@@ -11,18 +11,19 @@ from ..validation import check_size
 from . import options
 
 NAME = "catalogue"
+HELP = "temperatures for every row of a table file (CSV, ECSV, FITS, VOTable, Parquet)"
+DESCRIPTION = (
+    "Run the temperature engine over a table file. Magnitude columns are named by passband key "
+    "(V_JC, Ks_2MASS ...) with errors in <key>_err, unless a column map file says otherwise. Formats "
+    "follow the file extensions; Parquet and CSV stream with bounded memory, other formats are held "
+    "in memory."
+)
 #: same as stelltemp.catalog.batch.DEFAULT_CHUNK_ROWS (not imported: keeps CLI start-up light; a test checks)
 DEFAULT_CHUNK_ROWS = 50_000
 
 
-def add(subparsers):
-    p = subparsers.add_parser(
-        NAME, help="temperatures for every row of a table file (CSV, ECSV, FITS, VOTable, Parquet)",
-        description=(
-            "Run the temperature engine over a table file. Magnitude columns are named by "
-            "passband key (V_JC, Ks_2MASS ...) with errors in <key>_err, unless a column map "
-            "file says otherwise. Formats follow the file extensions; Parquet and CSV stream "
-            "with bounded memory, other formats are held in memory."))
+def add(p):
+    """Register the options of this subcommand on ``p`` (made by :func:`stelltemp.cli.options.subcommand`)."""
     p.add_argument("input", help="input table file")
     p.add_argument("old_output", nargs="?", metavar="OUTPUT", help=argparse.SUPPRESS)
     options.add_output(p, "the results table (input columns plus results; format by extension)")
@@ -48,7 +49,6 @@ def add(subparsers):
     p.add_argument("--workers", type=int, metavar="N", help="local Dask workers (default: all cores)")
     p.add_argument("--dask-local", choices=("threads", "processes"), default="threads",
                    help="local Dask workers as threads or processes")
-    p.set_defaults(run=run)
     return p
 
 

@@ -9,23 +9,22 @@ from . import options
 from .output import emit_json
 
 NAME = "colourgrid"
+HELP = "synthetic magnitudes and colours of blackbodies over temperatures"
+DESCRIPTION = (
+    "Magnitudes of a 1 R_sun blackbody at 10 pc through each passband, and colours of adjacent "
+    "passbands, over log-spaced or listed temperatures."
+)
 
 
-def add(subparsers):
-    p = subparsers.add_parser(NAME, help="synthetic magnitudes and colours of blackbodies over temperatures",
-                              description="Magnitudes of a 1 R_sun blackbody at 10 pc through each passband, and "
-                                          "colours of adjacent passbands, over log-spaced or listed temperatures.")
+def add(p):
+    """Register the options of this subcommand on ``p`` (made by :func:`stelltemp.cli.options.subcommand`)."""
     p.add_argument("bands", nargs="+", help="passband keys, e.g. B_JC V_JC Ks_2MASS")
     p.add_argument("--temps", nargs="+", metavar="K", help="explicit temperatures in K (instead of --tmin/--tmax)")
     p.add_argument("--tmin", type=float, default=3000.0, metavar="K", help="lowest temperature, K")
     p.add_argument("--tmax", type=float, default=30000.0, metavar="K", help="highest temperature, K")
     p.add_argument("--steps", type=int, default=10, help="number of temperatures, log-spaced")
     options.add_reddening(p, errors=False)
-    options.add_plot(p, "colour against temperature")
-    options.add_replace(p, "--plot file")
-    options.add_json(p)
-    p.set_defaults(run=run)
-    return p
+    return options.add_closing(p, plot="colour against temperature", replace="--plot file")
 
 
 def run(args, out=None, err=None):

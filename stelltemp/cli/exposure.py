@@ -8,15 +8,18 @@ from .observing import add_goal_options, exposure_seconds, report
 from .output import sig
 
 NAME = "exposure"
+HELP = "count rates, S/N, exposure time and saturation for one star"
+DESCRIPTION = (
+    "Count rates, S/N, exposure time and saturation advice for one star through each filter of an "
+    "instrument."
+)
 COLUMNS = [("filter", "{}"), ("rate_source", "{}"), ("airmass", "{:.2f}"), ("star_rate", sig(3)),
            ("sky_rate", sig(3)), ("exposure_for_snr", sig(3)), ("exposure", sig(3)), ("snr", "{:.1f}"),
            ("peak_adu", "{:.0f}"), ("peak_excess", sig(3)), ("nonlinear_after", sig(3)), ("saturation", "{}")]
 
 
-def add(subparsers):
-    p = subparsers.add_parser(NAME, help="count rates, S/N, exposure time and saturation for one star",
-                              description="Count rates, S/N, exposure time and saturation advice for one star "
-                                          "through each filter of an instrument.")
+def add(p):
+    """Register the options of this subcommand on ``p`` (made by :func:`stelltemp.cli.options.subcommand`)."""
     p.add_argument("--mag", action="append", required=True, metavar="BAND=MAG[,ERR]",
                    help="a measured magnitude outside the atmosphere, in a passband or instrument filter, e.g. "
                         "--mag V=12.0,0.02 (repeat for each band: every filter's rate is anchored to them)")
@@ -34,9 +37,7 @@ def add(subparsers):
                    help="with --time: leave the Moon out of the sky brightness")
     p.add_argument("--filters", help="comma-separated subset of the instrument's filters (default: all)")
     add_goal_options(p)
-    options.add_plot(p, "S/N against exposure time")
-    p.set_defaults(run=run)
-    return p
+    return options.add_closing(p, plot="S/N against exposure time", replace="--output or --plot file")
 
 
 def _magnitudes(args):

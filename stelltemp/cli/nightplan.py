@@ -9,6 +9,13 @@ from .observing import add_goal_options, exposure_seconds, report
 from .output import sig
 
 NAME = "nightplan"
+HELP = "best windows, airmass and exposures for a target list in one night"
+DESCRIPTION = (
+    "For a target list (CSV/ECSV with columns name, ra, dec, the star's magnitudes as columns named "
+    "by passband key (with _err) and/or mag, band, and optional teff, ebv, ebv_err), find each "
+    "target's best dark-time window at the instrument's site and plan its exposures from its own "
+    "photometry, with the Moon in the sky."
+)
 COLUMNS = [("target", "{}"), ("filter", "{}"), ("rate_source", "{}"), ("mag_band", "{}"), ("min_airmass", "{:.2f}"),
            ("star_rate", sig(3)), ("sky_rate", sig(3)), ("exposure", sig(3)), ("snr", "{:.1f}"),
            ("n_exposures", "{:.0f}"), ("saturation", "{}"), ("flags", "{}")]
@@ -19,13 +26,8 @@ SUMMARY_COLUMNS = [("target", "{}"), ("best_time", "{}"), ("best_time_local", "{
                    ("total_time", sig(3)), ("flags", "{}")]
 
 
-def add(subparsers):
-    p = subparsers.add_parser(
-        NAME, help="best windows, airmass and exposures for a target list in one night",
-        description="For a target list (CSV/ECSV with columns name, ra, dec, the star's magnitudes as columns named "
-                    "by passband key (with _err) and/or mag, band, and optional teff, ebv, ebv_err), find each "
-                    "target's best dark-time window at the instrument's site and plan its exposures from its own "
-                    "photometry, with the Moon in the sky.")
+def add(p):
+    """Register the options of this subcommand on ``p`` (made by :func:`stelltemp.cli.options.subcommand`)."""
     p.add_argument("targets", help="target list file (.csv or .ecsv)")
     p.add_argument("--date", required=True, help="local date of the evening, YYYY-MM-DD")
     p.add_argument("--min-alt", type=float, default=30.0, dest="min_alt", metavar="DEG",
@@ -38,9 +40,7 @@ def add(subparsers):
     options.renamed(p, "--save", "--output", "output", metavar="PATH")
     p.add_argument("--time", help=argparse.SUPPRESS)  # old: exposure seconds (see exposure_seconds)
     add_goal_options(p)
-    options.add_plot(p, "altitude and airmass of the targets through the night")
-    p.set_defaults(run=run)
-    return p
+    return options.add_closing(p, plot="altitude and airmass of the targets through the night", replace="--output or --plot file")
 
 
 def _save(table, path, replace):

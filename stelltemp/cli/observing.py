@@ -3,21 +3,19 @@
 import sys
 
 from ..errors import StelltempError
-from . import options
 from .output import emit_json, print_table
 
 __all__ = ["add_goal_options", "exposure_seconds", "report"]
 
 
-def add_goal_options(p, replace_what="--output or --plot file"):
+def add_goal_options(p):
+    """The instrument and the goal (S/N or exposure time, seeing) of ``exposure`` and ``nightplan``."""
     p.add_argument("--instrument", required=True, metavar="FILE", help="instrument + site description (TOML)")
     p.add_argument("--snr", type=float, help="goal signal-to-noise ratio")
     p.add_argument("--exposure", type=float, metavar="SECONDS",
                    help="planned exposure time, s (default: the time that reaches --snr)")
     p.add_argument("--seeing", type=float, metavar="ARCSEC", help="zenith seeing FWHM, arcsec (default: the site's)")
     p.add_argument("--profile", choices=("moffat", "gaussian"), default="moffat", help="seeing profile")
-    options.add_json(p)
-    options.add_replace(p, replace_what)
 
 
 def exposure_seconds(args, err=None):

@@ -16,8 +16,8 @@ from ``--help``, and prints a one-line note on stderr.
 import argparse
 import sys
 
-__all__ = ["HelpWithDefaults", "add_json", "add_magnitudes", "add_output", "add_plot", "add_reddening",
-           "add_replace", "renamed"]
+__all__ = ["HelpWithDefaults", "add_closing", "add_json", "add_magnitudes", "add_output", "add_plot", "add_reddening",
+           "add_replace", "renamed", "subcommand"]
 
 
 class HelpWithDefaults(argparse.HelpFormatter):
@@ -62,7 +62,31 @@ def renamed(parser, old, new, dest, base="store", **kwargs):
                         help=argparse.SUPPRESS, **kwargs)
 
 
+def subcommand(subparsers, module):
+    """Register ``stelltemp <module.NAME>``, run by ``module.run``, with its options from ``module.add``.
+
+    ``module.HELP`` is its line in ``stelltemp --help``, ``module.DESCRIPTION``
+    the text of its own ``--help``.
+    """
+    p = subparsers.add_parser(module.NAME, help=module.HELP, description=module.DESCRIPTION)
+    p.set_defaults(run=module.run)
+    module.add(p)
+    return p
+
+
+def add_closing(p, plot=None, replace=None):
+    """The options that close a subcommand, in one order: ``--plot`` (drawing ``plot``),
+    ``--replace`` (of ``replace``) and ``--json``."""
+    if plot:
+        add_plot(p, plot)
+    if replace:
+        add_replace(p, replace)
+    add_json(p)
+    return p
+
+
 def add_json(p):
+    """``--json``: machine-readable output on stdout."""
     p.add_argument("--json", action="store_true", help="machine-readable output (JSON) on stdout")
 
 

@@ -6,15 +6,16 @@ from . import options
 from .output import emit_json
 
 NAME = "passbands"
+HELP = "list built-in passbands with their properties"
+DESCRIPTION = (
+    "The built-in passbands: key, system, magnitude system, detector type, pivot wavelength, FWHM, "
+    "equivalent width and the source of the curve."
+)
 
 
-def add(subparsers):
-    p = subparsers.add_parser(NAME, help="list built-in passbands with their properties",
-                              description="The built-in passbands: key, system, magnitude system, detector type, "
-                                          "pivot wavelength, FWHM, equivalent width and the source of the curve.")
-    options.add_json(p)
-    p.set_defaults(run=run)
-    return p
+def add(p):
+    """Register the options of this subcommand on ``p`` (made by :func:`stelltemp.cli.options.subcommand`)."""
+    return options.add_closing(p)
 
 
 def run(args, out=None, err=None):

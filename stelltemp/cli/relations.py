@@ -7,13 +7,15 @@ from . import options
 from .output import emit_json, measure
 
 NAME = "relations"
+HELP = "list empirical colour-Teff relations, or apply one to a colour"
+DESCRIPTION = (
+    "Without --use: the loaded relations with their colour, stage, validity ranges, scatter and "
+    "source. With --use and --colour: the effective temperature from that relation, with its error."
+)
 
 
-def add(subparsers):
-    p = subparsers.add_parser(NAME, help="list empirical colour-Teff relations, or apply one to a colour",
-                              description="Without --use: the loaded relations with their colour, stage, validity "
-                                          "ranges, scatter and source. With --use and --colour: the effective "
-                                          "temperature from that relation, with its error.")
+def add(p):
+    """Register the options of this subcommand on ``p`` (made by :func:`stelltemp.cli.options.subcommand`)."""
     p.add_argument("--bands", nargs="+", metavar="BAND", help="only relations whose two passbands are among these")
     p.add_argument("--use", metavar="KEY", help="relation key to apply, e.g. c10_vk")
     p.add_argument("--colour", type=float, metavar="MAG", help="dereddened colour, mag, for --use")
@@ -22,9 +24,7 @@ def add(subparsers):
     p.add_argument("--feh", type=float, metavar="DEX", help="[Fe/H], dex (default: solar, 0.0, noted)")
     p.add_argument("--logg", type=float, metavar="DEX",
                    help="log g, cgs dex: selects dwarf or giant relations (default: dwarf)")
-    options.add_json(p)
-    p.set_defaults(run=run)
-    return p
+    return options.add_closing(p)
 
 
 def run(args, out=None, err=None):

@@ -7,17 +7,18 @@ from . import options
 from .output import emit_json, measure
 
 NAME = "standardise"
+HELP = "standard magnitudes from instrumental ones: fit the night's transformation, apply it"
+DESCRIPTION = (
+    "Fit zero point, extinction and colour term (optionally the colour-dependent extinction) per "
+    "filter to the standard stars among the measurements, write the transformation file, and give "
+    "the other stars' standard magnitudes and colours with errors that include the fit's. "
+    "Measurements: one row each, columns star, filter, inst_mag, inst_mag_err and airmass (or "
+    "time_utc, ra, dec). Standards: star plus one column per passband key with <key>_err."
+)
 
 
-def add(subparsers):
-    p = subparsers.add_parser(
-        NAME, help="standard magnitudes from instrumental ones: fit the night's transformation, apply it",
-        description=(
-            "Fit zero point, extinction and colour term (optionally the colour-dependent extinction) per "
-            "filter to the standard stars among the measurements, write the transformation file, and give "
-            "the other stars' standard magnitudes and colours with errors that include the fit's. "
-            "Measurements: one row each, columns star, filter, inst_mag, inst_mag_err and airmass (or "
-            "time_utc, ra, dec). Standards: star plus one column per passband key with <key>_err."))
+def add(p):
+    """Register the options of this subcommand on ``p`` (made by :func:`stelltemp.cli.options.subcommand`)."""
     p.add_argument("observations", help="measurement table (CSV, ECSV, FITS, Parquet)")
     p.add_argument("--standards", metavar="FILE", help="standard-star list (one row per star)")
     p.add_argument("--use-fit", metavar="FILE",
@@ -43,7 +44,6 @@ def add(subparsers):
     options.add_replace(p, "output, targets, temperatures or plot file")
     p.add_argument("--quiet", action="store_true", help="no progress lines")
     options.add_json(p)
-    p.set_defaults(run=run)
     return p
 
 

@@ -6,13 +6,16 @@ from . import options
 from .output import emit_json, interval, measure, number, plural
 
 NAME = "star"
+HELP = "temperature of one star from its magnitudes"
+DESCRIPTION = (
+    "Blackbody colour temperature (with a 68 %% interval), calibrated effective temperature where a "
+    "relation applies, and the derived Wien peak, angular diameter, bolometric flux, radius and "
+    "luminosity."
+)
 
 
-def add(subparsers):
-    p = subparsers.add_parser(NAME, help="temperature of one star from its magnitudes",
-                              description="Blackbody colour temperature (with a 68 %% interval), calibrated "
-                                          "effective temperature where a relation applies, and the derived "
-                                          "Wien peak, angular diameter, bolometric flux, radius and luminosity.")
+def add(p):
+    """Register the options of this subcommand on ``p`` (made by :func:`stelltemp.cli.options.subcommand`)."""
     options.add_magnitudes(p, required=True, example="B_JC=10.65,0.01")
     options.add_reddening(p)
     p.add_argument("--av", type=float, metavar="MAG", help="A_V, mag, instead of --ebv (E(B-V) = A_V / R_V)")
@@ -26,11 +29,7 @@ def add(subparsers):
     p.add_argument("--monte-carlo", type=int, default=0, metavar="N",
                    help="N noisy realisations for percentile intervals (0: analytic errors)")
     p.add_argument("--seed", type=int, help="random seed for --monte-carlo")
-    options.add_plot(p, "the fit with its residuals")
-    options.add_replace(p, "--plot file")
-    options.add_json(p)
-    p.set_defaults(run=run)
-    return p
+    return options.add_closing(p, plot="the fit with its residuals", replace="--plot file")
 
 
 def _reason_no_radius(args, row):

@@ -32,11 +32,16 @@ from .combine import calibrated_teff
 from .derived import angular_diameter_mas, derived_quantities
 from .fit import fit_blackbody
 from .notes import RowNotes
+from ..lazy import lazy_exports
 
-__all__ = ["estimate", "BLACKBODY_NOTE", "METHODS"]
+__all__ = ["estimate", "estimate_star", "BLACKBODY_NOTE", "METHODS"]
+# estimate_star (one star, with the derived quantities) lives in engine/star.py
+__getattr__, __dir__ = lazy_exports(__name__, {"estimate_star": "star"})
 
+#: the caution carried by every result: a blackbody colour temperature is not T_eff
 BLACKBODY_NOTE = ("t_bb is a blackbody colour temperature, not an effective temperature; "
                   "teff_cal (empirical calibrations, inside their validity ranges) is the T_eff to quote.")
+#: the values of estimate(method=…): choose per star, one colour, or the multi-band fit
 METHODS = ("auto", "colour", "fit")
 #: magnitudes beyond this are taken as absurd (flagged, band dropped)
 ABSURD_MAG = RANGES["mag"].hi
@@ -46,7 +51,10 @@ DEFAULT_MAG_ERR = 0.03
 
 
 def _column(values, n, name, default=None, unit=u.mag):
-    """A per-star input as a float array of length n (Quantities converted to ``unit``)."""
+    """A per-star input as a float array of length n (Quantities converted to ``unit``).
+
+    A scalar is broadcast to every star; an array must have exactly n values.
+    """
     if values is None:
         return None if default is None else np.full(n, float(default))
     if isinstance(values, u.Quantity):
@@ -58,9 +66,12 @@ def _column(values, n, name, default=None, unit=u.mag):
         arr = np.asarray(values, dtype=float)
     except (TypeError, ValueError):
         raise StelltempError(f"{name} must be numeric") from None
-    if arr.ndim > 1 or (arr.ndim == 1 and arr.size not in (1, n)):
-        raise StelltempError(f"{name} has {arr.size} values for {n} stars")
-    return np.broadcast_to(arr.reshape(-1) if arr.ndim else arr, (n,)).astype(float)
+    # only a scalar is broadcast: a length-1 array for many stars is a mistake, not a shorthand
+    if arr.ndim > 1 or (arr.ndim == 1 and arr.size != n):
+        values_word = "value" if arr.size == 1 else "values"
+        raise StelltempError(f"{name} has {arr.size} {values_word} for {n} stars "
+                             "(give one per star, or a single number for all)")
+    return np.broadcast_to(arr, (n,)).astype(float)
 
 
 def _clean_photometry(mags, errs, keys, n, notes=None):
@@ -201,6 +212,13 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
         The text columns (``flag_names``, ``teff_cal_note``) hold str
         objects (dtype object, one shared str per distinct text);
         ``.astype(str)`` makes them fixed-width, as some writers (FITS) need.
+
+    Examples
+    --------
+    >>> t = estimate({"B_JC": [10.65, 9.9], "V_JC": [10.0, 9.3]}, ebv=0.05)
+    >>> type(t).__name__, t["t_bb"].unit, len(t)
+    ('QTable', Unit("K"), 2)
+
     """
     if not isinstance(mags, dict) or len(mags) < 2:
         raise StelltempError("need magnitudes in at least two passbands")

@@ -15,4 +15,30 @@ Modules (one idea each):
 * ``exposure``   – one star at an airmass or a time and place in the sky, with the Sun checks
 
 The ``exposure`` and ``nightplan`` subcommands live in :mod:`stelltemp.cli`.
+The names below load their module on first use (start-up time of the CLI).
 """
+
+from ..lazy import lazy_exports
+
+_HOME = {
+    "Instrument": "instrument",
+    "load_instrument": "instrument",
+    "parse_instrument": "instrument",
+    "plan_exposure": "exposure",
+    "plan_target": "plan",
+    "plan_night": "plan",
+    "night_summary": "plan",
+    "read_targets": "plan",
+    "twilight_times": "night",
+    "best_windows": "night",
+    "airmass_kasten_young": "airmass",
+    "snr": "ccd",
+    "exposure_for_snr": "ccd",
+    "saturation_advice": "psf",
+    "sun_warnings": "safety",
+    "SUN_CAUTION": "safety",
+}
+
+__getattr__, __dir__ = lazy_exports(__name__, _HOME)
+
+__all__ = sorted(_HOME)

@@ -36,7 +36,14 @@ def airmass_secz(altitude_deg):
 
 
 def airmass_kasten_young(altitude_deg):
-    """Kasten & Young (1989) airmass (NaN below the horizon)."""
+    """Kasten & Young (1989) airmass (NaN below the horizon).
+
+    Examples
+    --------
+    >>> round(float(airmass_kasten_young(30.0)), 3), round(float(airmass_kasten_young(90.0)), 3)
+    (1.994, 1.0)
+
+    """
     alt, z = _zenith_deg(altitude_deg)
     zc = np.clip(z, 0.0, 90.0)
     x = 1.0 / (np.cos(np.radians(zc)) + _KY_A * (_KY_B - zc) ** (-_KY_C))

@@ -142,6 +142,14 @@ def snr(t, source_rate, sky_rate, dark_rate, read_noise_e, n_pix, n_background=n
     -------
     ndarray
         S/N (dimensionless); 0 where the signal is 0.
+
+    Examples
+    --------
+    Star 1000 e⁻/s, sky 50 e⁻/s/pixel, dark 0.1 e⁻/s/pixel, read noise 5 e⁻, 30 pixels, 60 s:
+
+    >>> round(float(snr(60.0, 1000.0, 50.0, 0.1, 5.0, 30)), 1)
+    154.4
+
     """
     n = _check_positive("number of exposures", n_exposures, allow_zero=False)
     var = n * noise_variance(t, source_rate, sky_rate, dark_rate, read_noise_e, n_pix, n_background,
@@ -184,6 +192,13 @@ def exposure_for_snr(target_snr, source_rate, sky_rate, dark_rate, read_noise_e,
     -------
     ndarray
         Exposure time in s.
+
+    Examples
+    --------
+    >>> t = exposure_for_snr(100.0, 1000.0, 50.0, 0.1, 5.0, 30)
+    >>> round(float(t), 2), round(float(snr(t, 1000.0, 50.0, 0.1, 5.0, 30)), 6)
+    (25.33, 100.0)
+
     """
     return stack_exposure_for_snr(target_snr, 1, source_rate, sky_rate, dark_rate, read_noise_e, n_pix,
                                   n_background, gain_e_per_adu, sigma_f_adu, scint_coeff)

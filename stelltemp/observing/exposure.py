@@ -188,6 +188,16 @@ def plan_exposure(instrument, mag=None, band=None, teff=None, *, photometry=None
     StelltempError
         For the Sun (with the caution), daylight, an unknown filter, a
         magnitude without its band, or no goal.
+
+    Examples
+    --------
+    >>> from stelltemp.observing import load_instrument
+    >>> from stelltemp.tour import find_demo_dir
+    >>> inst = load_instrument(find_demo_dir() / "instruments" / "quillmere_04m_ccd.toml")
+    >>> rows = plan_exposure(inst, mag=12.0, band="V_JC", teff=5800, snr=100)
+    >>> [str(f) for f in rows["filter"]]
+    ['B', 'V', 'R', 'I']
+
     """
     from .plan import _resolve_band, plan_target
 

@@ -671,6 +671,14 @@ def parse_instrument(text: str, base_dir=None, source: str = "<instrument>") -> 
     StelltempError
         One line naming the file, the key and its line for any missing,
         unknown or impossible value.
+
+    Examples
+    --------
+    >>> from stelltemp.tour import find_demo_dir
+    >>> path = find_demo_dir() / "instruments" / "quillmere_04m_ccd.toml"
+    >>> parse_instrument(path.read_text(), base_dir=path.parent).site.elevation_m
+    850.0
+
     """
     ctx = _Ctx(text, source, Path(base_dir) if base_dir is not None else None)
     try:
@@ -724,6 +732,14 @@ def load_instrument(path) -> Instrument:
     ------
     StelltempError
         File missing or unreadable, or any bad value (see `parse_instrument`).
+
+    Examples
+    --------
+    >>> from stelltemp.tour import find_demo_dir
+    >>> inst = load_instrument(find_demo_dir() / "instruments" / "quillmere_04m_ccd.toml")
+    >>> list(inst.filters), inst.site.latitude_deg
+    (['B', 'V', 'R', 'I'], 37.5)
+
     """
     from ..safeio import read_text_file
 

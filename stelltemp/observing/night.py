@@ -186,6 +186,16 @@ def twilight_times(date, site, step_min=10.0):
     every bracket is below 1e-6 d (0.09 s); the end of the bracket with the
     Sun at or below the level is returned.  A night asked for again in the
     same run (same date, site position and step) is not solved again.
+
+    Examples
+    --------
+    >>> from stelltemp.observing import load_instrument
+    >>> from stelltemp.tour import find_demo_dir
+    >>> site = load_instrument(find_demo_dir() / "instruments" / "quillmere_04m_ccd.toml").site
+    >>> tw = twilight_times("2026-03-15", site)
+    >>> tw["sun_evening"] < tw["astronomical_evening"] < tw["astronomical_morning"] < tw["sun_morning"]
+    True
+
     """
     memo = (parse_date(date), float(site.latitude_deg), float(site.longitude_deg), float(site.elevation_m),
             float(step_min))

@@ -276,6 +276,16 @@ def plan_target(instrument: Instrument, mag=None, band=None, teff=None, *, photo
     -------
     astropy.table.Table
         One row per filter; columns and units as listed in ``_FILTER_COLUMNS``.
+
+    Examples
+    --------
+    >>> from stelltemp.observing import load_instrument
+    >>> from stelltemp.tour import find_demo_dir
+    >>> inst = load_instrument(find_demo_dir() / "instruments" / "quillmere_04m_ccd.toml")
+    >>> rows = plan_target(inst, mag=12.0, band="V_JC", teff=5800, snr=100, airmass=1.3)
+    >>> len(rows), bool((rows["snr"] >= 99.9).all())
+    (4, True)
+
     """
     from ..validation import check_number, check_optional
     from .anchor import anchored_rates
@@ -477,7 +487,15 @@ def target_photometry(instrument: Instrument, target) -> dict:
 
 
 def read_targets(path):
-    """Read a target list (any table format of `stelltemp.catalog.tableio`) and check it with `parse_targets`."""
+    """Read a target list (any table format of `stelltemp.catalog.tableio`) and check it with `parse_targets`.
+
+    Examples
+    --------
+    >>> from stelltemp.tour import find_demo_dir
+    >>> len(read_targets(find_demo_dir() / "targets.csv"))
+    60
+
+    """
     from pathlib import Path
 
     from ..catalog.tableio import read_table, table_format
@@ -648,6 +666,17 @@ def plan_night(instrument: Instrument, targets, date, *, snr=None, exposure_s=No
         One row per target and filter; ``meta`` holds the twilight times,
         the dark interval and any Sun-safety warnings.  `night_summary`
         turns it into one row per target.
+
+    Examples
+    --------
+    >>> from stelltemp.observing import load_instrument
+    >>> from stelltemp.tour import find_demo_dir
+    >>> demo = find_demo_dir()
+    >>> inst = load_instrument(demo / "instruments" / "quillmere_04m_ccd.toml")
+    >>> plan = plan_night(inst, read_targets(demo / "targets.csv")[:2], "2026-03-15", snr=50)
+    >>> len(plan)  # two targets, four filters
+    8
+
     """
     from .safety import sun_warnings
 
@@ -792,6 +821,17 @@ def night_summary(plan: Table) -> Table:
 
     Local times use ``plan.meta["utc_offset_hours"]`` (from the site; see
     `stelltemp.observing.instrument.Site.utc_offset`).
+
+    Examples
+    --------
+    >>> from stelltemp.observing import load_instrument
+    >>> from stelltemp.tour import find_demo_dir
+    >>> demo = find_demo_dir()
+    >>> inst = load_instrument(demo / "instruments" / "quillmere_04m_ccd.toml")
+    >>> plan = plan_night(inst, read_targets(demo / "targets.csv")[:2], "2026-03-15", snr=50)
+    >>> len(night_summary(plan))  # one row per target
+    2
+
     """
     offset = float(plan.meta.get("utc_offset_hours", 0.0))
     rows, order = {}, []

@@ -24,6 +24,7 @@ from .night import SUN_ALTITUDES, _as_skycoord, offline_iers
 
 __all__ = ["SUN_CAUTION", "DEFAULT_SUN_SEPARATION_DEG", "sun_warnings"]
 
+#: the caution printed with every Sun warning (defer to local rules and experienced practice)
 SUN_CAUTION = (
     "Caution: never look at the Sun or point unfiltered optics or a finder near it; observe the Sun only "
     "with a certified solar filter mounted securely over the front of the telescope (and cap or filter the "
@@ -54,6 +55,16 @@ def sun_warnings(times, location, coords=None, names=None, min_separation_deg=DE
     -------
     list of str
         Empty when nothing is wrong; each string ends with `SUN_CAUTION`.
+
+    Examples
+    --------
+    >>> from astropy import units as u
+    >>> from astropy.coordinates import EarthLocation
+    >>> from astropy.time import Time
+    >>> site = EarthLocation.from_geodetic(-3.2 * u.deg, 37.5 * u.deg, 850 * u.m)
+    >>> sun_warnings(Time("2026-03-15T12:00:00"), site)[0].startswith("DAYLIGHT")
+    True
+
     """
     if not (0 <= min_separation_deg <= 180):
         raise StelltempError(f"minimum Sun separation must be 0–180 deg, got {min_separation_deg!r}")

@@ -10,11 +10,26 @@
 * :mod:`~stelltemp.reduction.predict` — colour terms predicted from the instrument's passbands.
 """
 
-from .apply import StandardPhotometry, apply_transformation
-from .equations import BandSetup, default_setups
-from .fit import FilterFit, Transformation, fit_filter, fit_transformation
-from .observations import Observations, observations_from_table, standards_from_table
+from ..lazy import lazy_exports
 
-__all__ = ["BandSetup", "default_setups", "Observations", "observations_from_table", "standards_from_table",
-           "FilterFit", "Transformation", "fit_filter", "fit_transformation", "StandardPhotometry",
-           "apply_transformation"]
+# names load their module on first use (start-up time of the CLI)
+_HOME = {
+    "BandSetup": "equations",
+    "default_setups": "equations",
+    "Observations": "observations",
+    "observations_from_table": "observations",
+    "standards_from_table": "observations",
+    "FilterFit": "fit",
+    "Transformation": "fit",
+    "fit_filter": "fit",
+    "fit_transformation": "fit",
+    "StandardPhotometry": "apply",
+    "apply_transformation": "apply",
+    "read_transformation": "store",
+    "write_transformation": "store",
+    "standardise_night": "workflow",
+}
+
+__getattr__, __dir__ = lazy_exports(__name__, _HOME)
+
+__all__ = sorted(_HOME)
