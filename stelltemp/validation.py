@@ -40,8 +40,10 @@ name                range                unit    why
 ``exposure``        > 0 … 1e6            s       about 11 days
 ``min_alt``         0 … 90               deg
 ``teff``            1000 … 100000        K       the kernel's temperature grid
-``temperature``     > 0 … 1e9            K       Planck physics has no upper end;
-                                                 1e9 K keeps numbers finite
+``temperature``     1e-3 … 1e9           K       Planck physics has no upper end;
+                                                 1e9 K keeps numbers finite; below
+                                                 1 mK the Wien peaks lie beyond 1 m,
+                                                 outside ``wavelength``
 ``wavelength``      1e-3 … 1e9           nm      1 pm to 1 m: beyond, a star's Planck
                                                  curve is radio, not photometry, and
                                                  below 1 pm its numbers underflow
@@ -134,7 +136,7 @@ RANGES = {
     "exposure": Range(0.0, 1e6, "s", "exposure time", lo_open=True),
     "min_alt": Range(0.0, 90.0, "deg", "lowest altitude"),
     "teff": Range(1000.0, 100000.0, "K", "temperature"),
-    "temperature": Range(0.0, 1e9, "K", "temperature", lo_open=True),
+    "temperature": Range(1e-3, 1e9, "K", "temperature"),
     "wavelength": Range(1e-3, 1e9, "nm", "wavelength"),
     "radius": Range(0.0, 1e5, "R_sun", "radius", lo_open=True),
     "curve_wavelength": Range(10.0, 1e5, "nm", "passband curve wavelength"),

@@ -37,7 +37,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from stelltemp.catalog import run_catalogue
-from stelltemp.catalog.tableio import ChunkReader
+from stelltemp.catalog.tableio import ChunkReader, csv_sidecar_path
 from stelltemp.cli import build_parser, main
 from stelltemp.errors import StelltempError
 from stelltemp.safeio import PART_SUFFIX
@@ -300,7 +300,7 @@ def _read(stream):
 
 
 def _written_targets(argv):
-    """Paths the command line names as outputs (value after an output option)."""
+    """Paths the command line names as outputs (value after an output option), with a CSV's sidecar."""
     names = set()
     for i, a in enumerate(argv):
         for o in ("-o", "--output", "--plot", "--targets", "--temperatures"):
@@ -308,7 +308,13 @@ def _written_targets(argv):
                 names.add(argv[i + 1])
             elif a.startswith(o + "="):
                 names.add(a[len(o) + 1:])
-    return names
+    return names | {csv_sidecar_path(n).as_posix() for n in names if n.lower().endswith(".csv")}
+
+
+def _remove_output(path):
+    """Remove a written table and, for CSV, the metadata file beside it."""
+    path.unlink()
+    csv_sidecar_path(path).unlink(missing_ok=True)
 
 
 def check_command_line(root, before, argv):
@@ -472,7 +478,7 @@ def test_malformed_csv_keeps_every_row_or_is_refused_in_one_line(tmp_path):
             if not reader_only:
                 if fmt == "csv":
                     assert _rows_out(target) == rows, data
-                target.unlink()
+                _remove_output(target)
         assert sorted(p.name for p in tmp_path.iterdir()) == ["in.csv"], data  # nothing left behind
 
     case()
@@ -526,7 +532,7 @@ def test_malformed_ecsv_is_read_whole_or_refused_in_one_line(tmp_path):
         else:
             kinds["read"] += 1
             rows_out = _rows_out(out)
-            out.unlink()
+            _remove_output(out)
             assert summary.rows == n == rows_out, (data, summary.rows, rows_out)
         assert sorted(p.name for p in tmp_path.iterdir()) == ["in.ecsv"], data
 

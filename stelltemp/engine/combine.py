@@ -96,8 +96,9 @@ class CalibratedTeff:
         Per star, the luminosity class assumed and why no relation applied
         ('' when there is nothing to say).
     ebv_share : ndarray
-        Share of the variance of ``teff`` that comes from the given E(B−V)
-        error (its prior, when E(B−V) is fitted), 0…1.
+        Share of the variance of ``teff`` that the E(B−V) error adds
+        (1 − variance with E(B−V) held fixed / variance; with E(B−V) fitted,
+        its fitted error counts), 0…1.
     """
 
     teff: np.ndarray
@@ -352,9 +353,9 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
     >>> m = np.array([[10.64, 10.0, 8.5]])  # B, V, Ks of a solar-type star
     >>> res = calibrated_teff(m, np.full((1, 3), 0.02), ["B_JC", "V_JC", "Ks_2MASS"],
     ...                       np.array([5800.0]), np.array([0.0]), np.array([0.0]))
-    >>> res.keys, int(res.n_used[0])
-    (('c10_bv', 'c10_vk'), 2)
-    >>> 5600 < res.teff[0] < 5900 and 20 < res.teff_err[0] < 40
+    >>> str(res.used_names()[0]), int(res.n_used[0])
+    ('c10_bv,c10_vk', 2)
+    >>> bool(5600 < res.teff[0] < 5900 and 20 < res.teff_err[0] < 40)
     True
     """
     m = np.asarray(m, float)

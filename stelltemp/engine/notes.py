@@ -12,7 +12,7 @@ Examples
 >>> notes = RowNotes(3)
 >>> notes.add(np.array([True, False, True]), "E(B-V) = 0 assumed")
 >>> notes.add(np.array([True, False, False]), "[Fe/H] = 0 assumed")
->>> list(notes.texts())
+>>> [str(t) for t in notes.texts()]
 ['E(B-V) = 0 assumed; [Fe/H] = 0 assumed', '', 'E(B-V) = 0 assumed']
 >>> notes.counts()
 {'E(B-V) = 0 assumed': 2, '[Fe/H] = 0 assumed': 1}
