@@ -226,7 +226,8 @@ def spectrum_figure(temperature_k, bands, ebv=0.0, law="G23", rv=3.1):
             fade[inside] = transmission(wave[inside] * 10.0, ebv, law, rv)
             ax.plot(wave, b * fade / 10.0**k, color=PALETTE["ink"], lw=2.0, gid="spectrum-reddened",
                     label=f"reddened by E(B−V) = {ebv:.3g} ({law}, R$_V$ = {rv:g})")
-            ax.legend(loc="upper right")
+            # below the Wien-peak line of text, which runs along the top edge
+            ax.legend(loc="upper right", bbox_to_anchor=(1.0, 0.91))
         b_peak = float(radiance_lambda(t, peak_nm * u.nm).to_value(u.W / u.m**2 / u.nm / u.sr)) / 10.0**k
         # the marker stops at the curve so it does not cross the passband labels above it
         ax.plot([peak_nm, peak_nm], [0, b_peak], color=PALETTE["ember"], ls="--", lw=1.4, gid="wien-peak")

@@ -410,13 +410,13 @@ def _reduction_step(demo, out, instrument, files):
 
 _FILE_NOTES = {
     "temperatures": "temperature, 68 % interval and flags for every star",
-    "catalogue_figure": "colour temperature against observed B−V, flagged stars ringed",
+    "catalogue_figure": "colour temperature against observed B−V, warning flags ringed, blackbody curves at the stars' E(B−V)",
     "colour_figure": "blackbody colours against temperature, with calibrated relations",
     "fit_figure": "one star's magnitudes with the fitted reddened blackbody",
-    "spectrum_figure": "that star's blackbody under the passbands, Wien peak marked",
+    "spectrum_figure": "that star's blackbody, reddened and not, under the passbands, Wien peak marked",
     "plan": "best window, airmass and exposure per target and filter",
-    "night_figure": "altitude and airmass through the night",
-    "snr_figure": "S/N against exposure time for one star",
+    "night_figure": "what to observe when: each target's window by best time, altitudes of a chosen few, the Moon",
+    "snr_figure": "S/N against exposure time per filter for one star, goal and non-linearity marked",
     "transformation": "the night's fitted transformation (coefficients, covariance, provenance)",
     "night_targets": "the night's targets in standard magnitudes, with covariance",
     "residual_figure": "standard-star residuals against colour and airmass",
@@ -471,7 +471,7 @@ def print_summary(s, stream):
     w("files")
     for key, path in s["files"].items():
         w(f"  {path:42s} {_FILE_NOTES.get(key, '')}")
-    w("next          stelltemp catalogue YOUR_TABLE.csv results.ecsv   "
+    w("next          stelltemp catalogue YOUR_TABLE.csv -o results.ecsv   "
       f"(columns named as in {Path(s['demo_dir']) / 'targets.csv'})")
 
 

@@ -49,6 +49,9 @@ def run(args, out=None, err=None):
 
     check_number("colour", args.colour, "--colour")
     check_number("mag_err", args.colour_err, "--colour-err")
+    for name in ("feh", "logg"):
+        if getattr(args, name) is not None:
+            check_number(name, getattr(args, name), f"--{name}")
     rel = get_relation(args.use)
     res = combine_teff({args.use: [args.colour]}, {args.use: [args.colour_err]},
                        feh=None if args.feh is None else [args.feh],
