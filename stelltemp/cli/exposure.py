@@ -28,6 +28,8 @@ def add(p):
                    help="blackbody temperature, K (default: fitted to two or more --mag bands, else an A0 V "
                         "template, said per filter)")
     p.add_argument("--ebv", type=float, default=0.0, metavar="MAG", help="E(B-V), mag, reddening the spectrum")
+    p.add_argument("--ebv-err", type=float, default=0.0, metavar="MAG",
+                   help="1-sigma error of E(B-V), mag (enters the temperature fitted to the --mag bands)")
     p.add_argument("--airmass", type=float, default=1.0, help="airmass (unless --time is given)")
     p.add_argument("--time", metavar="UTC", help="ISO time (UTC): take the airmass from --ra/--dec at the site")
     options.renamed(p, "--at", "--time", "at_time", metavar="UTC")
@@ -79,7 +81,8 @@ def run(args, out=None, err=None):
     filters = [f.strip() for f in args.filters.split(",")] if args.filters else None
     if args.no_moon and when is None:
         raise StelltempError("--no-moon applies with --time (without a time there is no Moon in the sky)")
-    table = plan_exposure(instrument, teff=args.teff, photometry=photometry, ebv=args.ebv, snr=args.snr,
+    table = plan_exposure(instrument, teff=args.teff, photometry=photometry, ebv=args.ebv, ebv_err=args.ebv_err,
+                          snr=args.snr,
                           exposure_s=exposure_s, airmass=args.airmass, when=when, ra=args.ra, dec=args.dec,
                           moon=not args.no_moon, filters=filters, seeing_arcsec=args.seeing, profile=args.profile)
     if args.plot:
