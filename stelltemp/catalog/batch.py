@@ -444,6 +444,62 @@ def progress_bar(total, quiet):
                 desc="stelltemp")
 
 
+@dataclass
+class RunSetUp:
+    """What a catalogue run checks and decides before its first chunk (see `set_up_run`)."""
+
+    opts: RunOptions
+    reader: object  # tableio.ChunkReader
+    old: list  # result columns of an earlier run, dropped from the input
+    colnames: list  # the input's columns without them
+    cmap: ColumnMap
+    input_info: dict
+    engine: object
+    types: object  # typed columns for a typed output of a CSV input, else None
+    declared: object  # CSV to CSV: the types declared in the sidecar, else None
+    conversions: list
+    record: dict  # the run record written into the output's metadata
+
+    def closing_notes(self, sink):
+        """The map's, the conversions' and the sink's notes, and the replaced results, as a summary lists them."""
+        notes = list(self.cmap.notes) + self.conversions + list(getattr(sink, "notes", []))
+        if self.old:
+            notes.append(f"{len(self.old)} result columns of an earlier run replaced by this run's")
+        return notes
+
+
+def set_up_run(input_path, output_path, mapping, *, ebv, ebv_err, feh_err, rv, law, method, fit_ebv, cal_ebv,
+               cal_detail, overwrite, renew_results, chunk_rows, engine):
+    """Every check and choice a catalogue run makes before any work, shared by the local and the Dask paths.
+
+    Options checked, output path refused early, earlier results found, the
+    column map resolved against the input (vector columns refused), input
+    units, the engine, the CSV type pre-pass and the run record.  Arguments
+    as `run_catalogue`'s.
+    """
+    opts = RunOptions(rv=float(rv), law=law, method=method, fit_ebv=bool(fit_ebv), cal_ebv=bool(cal_ebv),
+                      cal_detail=bool(cal_detail))
+    opts.check()
+    tableio.check_output(output_path, overwrite, input_path)
+    reader = tableio.ChunkReader(input_path, chunk_rows)
+    old = check_old_results(input_path, reader.colnames, renew_results)
+    colnames = [c for c in reader.colnames if c not in set(old)]
+    cmap = resolve_mapping(colnames, mapping, ebv, ebv_err, [c for c in reader.vector_columns() if c not in old],
+                           feh_err)
+    input_info = input_units(colnames, cmap)
+    out_fmt = tableio.table_format(output_path)
+    types, conversions, declared = None, [], None
+    if reader.fmt == "csv" and out_fmt != "csv":  # give typed columns to typed formats
+        types = tableio.narrowest_types(iter(reader), reader.colnames, conversions)
+    elif reader.fmt == "csv":  # CSV to CSV keeps its text and declares the types in its sidecar
+        declared = tableio.narrowest_types(iter(reader), reader.colnames, [])
+    record = run_record(cmap, opts)
+    if conversions:
+        record["conversions"] = "; ".join(conversions)
+    return RunSetUp(opts, reader, old, colnames, cmap, input_info, engine or default_engine(), types, declared,
+                    conversions, record)
+
+
 def run_catalogue(
     input_path,
     output_path,
@@ -527,35 +583,20 @@ def run_catalogue(
 
     """
     t0 = time.perf_counter()
-    opts = RunOptions(rv=float(rv), law=law, method=method, fit_ebv=bool(fit_ebv), cal_ebv=bool(cal_ebv),
-                      cal_detail=bool(cal_detail))
-    opts.check()
-    tableio.check_output(output_path, overwrite, input_path)
-    reader = tableio.ChunkReader(input_path, chunk_rows)
-    old = check_old_results(input_path, reader.colnames, renew_results)
-    colnames = [c for c in reader.colnames if c not in set(old)]
-    cmap = resolve_mapping(colnames, mapping, ebv, ebv_err, [c for c in reader.vector_columns() if c not in old],
-                           feh_err)
-    input_info = input_units(colnames, cmap)
-    engine = engine or default_engine()
-    out_fmt = tableio.table_format(output_path)
-    types, conversions, declared = None, [], None
-    if reader.fmt == "csv" and out_fmt != "csv":  # give typed columns to typed formats
-        types = tableio.narrowest_types(iter(reader), reader.colnames, conversions)
-    elif reader.fmt == "csv":  # CSV to CSV keeps its text and declares the types in its header
-        declared = tableio.narrowest_types(iter(reader), reader.colnames, [])
-    record = run_record(cmap, opts)
-    if conversions:
-        record["conversions"] = "; ".join(conversions)
+    run = set_up_run(input_path, output_path, mapping, ebv=ebv, ebv_err=ebv_err, feh_err=feh_err, rv=rv, law=law,
+                     method=method, fit_ebv=fit_ebv, cal_ebv=cal_ebv, cal_detail=cal_detail, overwrite=overwrite,
+                     renew_results=renew_results, chunk_rows=chunk_rows, engine=engine)
+    reader, old, colnames, cmap, opts, engine = run.reader, run.old, run.colnames, run.cmap, run.opts, run.engine
+    types, input_info = run.types, run.input_info
 
     summary = RunSummary(input=str(input_path), output=str(output_path))
     names = None
-    with tableio.open_sink(output_path, record, overwrite) as sink, progress_bar(
+    with tableio.open_sink(output_path, run.record, overwrite) as sink, progress_bar(
         reader.num_rows, quiet
     ) as bar:
         merge = merge_arrow if sink.kind == "arrow" else merge_astropy
-        if declared:
-            sink.declared_types = declared
+        if run.declared:
+            sink.declared_types = run.declared
         for chunk in _nonempty_or_one_empty(reader):
             chunk = _without(chunk, old)
             res = compute_chunk(chunk, cmap, opts, engine, reader.row_notes if len(chunk) else ())
@@ -565,10 +606,7 @@ def run_catalogue(
             sink.write(merge(chunk, res, names, types, input_info))
             bar.update(len(chunk))
     summary.notes.extend(reader.notes)
-    summary.notes.extend(cmap.notes)
-    summary.notes.extend(conversions + list(getattr(sink, "notes", [])))
-    if old:
-        summary.notes.append(f"{len(old)} result columns of an earlier run replaced by this run's")
+    summary.notes.extend(run.closing_notes(sink))
     summary.wall_time_s = time.perf_counter() - t0
     return summary
 

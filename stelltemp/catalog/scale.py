@@ -44,17 +44,13 @@ from stelltemp.catalog.batch import (
     DEFAULT_CHUNK_ROWS,
     RunOptions,
     RunSummary,
-    check_old_results,
     compute_chunk,
-    default_engine,
     merge_arrow,
     progress_bar,
-    resolve_mapping,
     result_names,
     run_catalogue,
-    run_record,
+    set_up_run,
 )
-from stelltemp.catalog.describe import input_units
 from stelltemp.errors import StelltempError
 
 LOCAL_SCHEDULERS = ("threads", "processes", "synchronous")
@@ -272,27 +268,12 @@ def run_catalogue_dask(
                                 "process, not on Dask (Dask reads Parquet and CSV)")
         return summary
     require_dask()
-    opts = RunOptions(rv=float(rv), law=law, method=method, fit_ebv=bool(fit_ebv), cal_ebv=bool(cal_ebv),
-                      cal_detail=bool(cal_detail))
-    opts.check()
-    tableio.check_output(output_path, overwrite, input_path)
     chunk_rows = max(1, int(chunk_rows))
-    reader = tableio.ChunkReader(input_path, chunk_rows)
-    old = check_old_results(input_path, reader.colnames, renew_results)
-    colnames = [c for c in reader.colnames if c not in set(old)]
-    cmap = resolve_mapping(colnames, mapping, ebv, ebv_err, [c for c in reader.vector_columns() if c not in old],
-                           feh_err)
-    input_info = input_units(colnames, cmap)
-    engine = engine or default_engine()
-    out_fmt = tableio.table_format(output_path)
-    types, conversions, declared = None, [], None
-    if reader.fmt == "csv" and out_fmt != "csv":  # as a local run: typed columns for typed formats
-        types = tableio.narrowest_types(iter(reader), reader.colnames, conversions)
-    elif reader.fmt == "csv":
-        declared = tableio.narrowest_types(iter(reader), reader.colnames, [])
-    record = run_record(cmap, opts)
-    if conversions:
-        record["conversions"] = "; ".join(conversions)
+    run = set_up_run(input_path, output_path, mapping, ebv=ebv, ebv_err=ebv_err, feh_err=feh_err, rv=rv, law=law,
+                     method=method, fit_ebv=fit_ebv, cal_ebv=cal_ebv, cal_detail=cal_detail, overwrite=overwrite,
+                     renew_results=renew_results, chunk_rows=chunk_rows, engine=engine)
+    reader, old, colnames, cmap, opts, engine = run.reader, run.old, run.colnames, run.cmap, run.opts, run.engine
+    types, input_info = run.types, run.input_info
 
     empty = reader.empty_chunk().drop_columns(list(old))
     probe = compute_chunk(empty, cmap, opts, engine)
@@ -323,9 +304,9 @@ def run_catalogue_dask(
             ahead = max(1, int(window or 2 * nworkers))
             summary.notes.append(f"Dask: CSV read in this process in chunks of {chunk_rows} rows, computed on "
                                  f"{nworkers} worker(s)")
-        with tableio.open_sink(output_path, record, overwrite) as sink, progress_bar(reader.num_rows, quiet) as bar:
-            if declared:
-                sink.declared_types = declared
+        with tableio.open_sink(output_path, run.record, overwrite) as sink, progress_bar(reader.num_rows, quiet) as bar:
+            if run.declared:
+                sink.declared_types = run.declared
             wrote = False
             for path, part in _ordered(tasks, client, local, nworkers, ahead):
                 add_summary(summary, part)
@@ -339,10 +320,7 @@ def run_catalogue_dask(
         if own_client:
             client.close()
     summary.notes[:0] = list(reader.notes)
-    summary.notes.extend(cmap.notes)
-    summary.notes.extend(conversions + list(getattr(sink, "notes", [])))
-    if old:
-        summary.notes.append(f"{len(old)} result columns of an earlier run replaced by this run's")
+    summary.notes.extend(run.closing_notes(sink))
     summary.wall_time_s = time.perf_counter() - t0
     return summary
 
