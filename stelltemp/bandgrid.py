@@ -178,12 +178,7 @@ class HermiteTable:
 
 def _kelvin(temperature):
     """Plain K from plain numbers or a temperature Quantity (K, °C, °F); no range check (the grid decides)."""
-    if isinstance(temperature, u.Quantity):
-        try:
-            return temperature.to_value(u.K, equivalencies=u.temperature())
-        except u.UnitConversionError:
-            raise StelltempError(f"not a temperature: unit {temperature.unit}") from None
-    return np.asarray(temperature, float)
+    return _plain(temperature, u.K, "temperature", u.temperature())
 
 
 def _plain(value, unit, what, equivalencies=()):
