@@ -984,7 +984,7 @@ def _gls_combine(entries, teff_each, slope_err, scatter_each, used):
     both = ok[:, :, None] & ok[:, None, :]
     c = np.where(both, c, 0.0) + np.where(ok[:, :, None], 0.0, np.eye(r)[None])
     m = t.shape[0]
-    est, cov, chi2, _, _ = _gls(c, np.ones((m, r, 1)), np.where(ok, t, 0.0), ok, np.zeros(m), np.zeros(m))
+    est, cov, chi2, _, _, _ = _gls(c, np.ones((m, r, 1)), np.where(ok, t, 0.0), ok, np.zeros(m), np.zeros(m))
     with np.errstate(invalid="ignore"):
         err = np.sqrt(cov[:, 0, 0])
     return est[:, 0].reshape(shape), err.reshape(shape), chi2.reshape(shape)

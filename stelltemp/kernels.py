@@ -19,6 +19,11 @@ The kernels
     cubic in ln T from the linear guess.
 `evaluate_cells`
     Value, ∂/∂lnT and ∂/∂E of a bicubic Hermite table at many points.
+`combine_cells`
+    One pass of the calibrated-temperature combination of
+    :mod:`stelltemp.engine.combine` per star: the relations' covariance,
+    its Cholesky factor and the generalised least squares estimate (the
+    twin of ``combine._combine_pass``, in the same order of operations).
 """
 
 import os
@@ -187,4 +192,158 @@ def _build(numba):
                 r3 = patches[base + 13] + s * (2 * patches[base + 14] + 3 * s * patches[base + 15])
                 d_e[k] = (r0 + t * (r1 + t * (r2 + t * r3))) / h_e
 
-    return {"invert_cells": invert_cells, "evaluate_cells": evaluate_cells}
+    @njit
+    def cholesky_solve(c, rhs, q, r, low, z, x):
+        """x[:, :q] with c x = rhs (r × r, Cholesky); NaN when c is not positive definite."""
+        for j in range(r):
+            d = c[j, j]
+            for k in range(j):
+                d -= low[j, k] * low[j, k]
+            low[j, j] = np.sqrt(d)
+            for i in range(j + 1, r):
+                acc = c[i, j]
+                for k in range(j):
+                    acc -= low[i, k] * low[j, k]
+                low[i, j] = acc / low[j, j]
+        for col in range(q):
+            for i in range(r):
+                acc = rhs[i, col]
+                for k in range(i):
+                    acc -= low[i, k] * z[k, col]
+                z[i, col] = acc / low[i, i]
+            for i in range(r - 1, -1, -1):
+                acc = z[i, col]
+                for k in range(i + 1, r):
+                    acc -= low[k, i] * x[k, col]
+                x[i, col] = acc / low[i, i]
+
+    @njit
+    def combine_cells(s, g, used, var_m, blue, red, same, scatter, feh_var, a, v, y, fit, ebv_var,
+                      prior_prec, prior_d, est, cov, chi2, l_y, l_p, c_diag, info_known):
+        n, r = s.shape
+        p = 2 if fit else 1
+        c0 = np.empty((r, r))
+        c = np.empty((r, r))
+        rhs = np.empty((r, 3))
+        low = np.zeros((r, r))
+        z = np.empty((r, 3))
+        sol = np.empty((r, 3))
+        for k in range(n):
+            any_used = False
+            for i in range(r):
+                any_used = any_used or used[k, i]
+            for i in range(r):
+                bi, ri = blue[i], red[i]
+                for j in range(r):
+                    if used[k, i] and used[k, j]:
+                        bj, rj = blue[j], red[j]
+                        # D Σ_m Dᵀ: the bands the two colours share, with their signs
+                        phot = 0.0
+                        if bi == bj:
+                            phot += var_m[k, bi]
+                        if bi == rj:
+                            phot -= var_m[k, bi]
+                        if ri == bj:
+                            phot -= var_m[k, ri]
+                        if ri == rj:
+                            phot += var_m[k, ri]
+                        cij = s[k, i] * s[k, j] * phot
+                        cij += scatter[k, i] * scatter[k, j] if same[i, j] else 0.0
+                        cij += g[k, i] * g[k, j] * feh_var[k]
+                        c0[i, j] = cij + 0.0
+                    else:
+                        c0[i, j] = 0.0 + (1.0 if (i == j and not used[k, i]) else 0.0)
+            for i in range(r):
+                vi = v[k, i] if used[k, i] else 0.0
+                for j in range(r):
+                    vj = v[k, j] if used[k, j] else 0.0
+                    c[i, j] = c0[i, j] if fit else c0[i, j] + vi * vj * ebv_var[k]
+                c_diag[k, i] = c[i, i]
+                rhs[i, 0] = a[k, i] if used[k, i] else 0.0
+                rhs[i, 1] = (v[k, i] if used[k, i] else 0.0) if fit else 0.0
+                rhs[i, p] = y[k, i] if used[k, i] else 0.0
+            cholesky_solve(c, rhs, p + 1, r, low, z, sol)
+            i00 = 0.0
+            for i in range(r):
+                i00 += rhs[i, 0] * sol[i, 0]
+            if fit:
+                i01 = 0.0
+                i10 = 0.0
+                i11 = 0.0
+                for i in range(r):
+                    i01 += rhs[i, 0] * sol[i, 1]
+                for i in range(r):
+                    i10 += rhs[i, 1] * sol[i, 0]
+                for i in range(r):
+                    i11 += rhs[i, 1] * sol[i, 1]
+                i11 = i11 + prior_prec[k]
+                det = i00 * i11 - i01 * i10
+                cv00, cv01, cv10, cv11 = i11 / det, -i01 / det, -i10 / det, i00 / det
+            else:
+                det = i00
+                cv00, cv01, cv10, cv11 = 1.0 / i00, 0.0, 0.0, 0.0
+            ok = det > 0 and any_used
+            if not ok:
+                cv00, cv01, cv10, cv11 = 1.0, 0.0, 0.0, 1.0
+            for i in range(r):
+                if fit:
+                    l_y[k, 0, i] = cv00 * sol[i, 0] + cv01 * sol[i, 1]
+                    l_y[k, 1, i] = cv10 * sol[i, 0] + cv11 * sol[i, 1]
+                else:
+                    l_y[k, 0, i] = cv00 * sol[i, 0]
+            if fit:
+                l_p[k, 0] = cv01 * prior_prec[k]
+                l_p[k, 1] = cv11 * prior_prec[k]
+            else:
+                l_p[k, 0] = 0.0
+            e0 = 0.0
+            for i in range(r):
+                e0 += l_y[k, 0, i] * rhs[i, p]
+            e0 = e0 + l_p[k, 0] * prior_d[k]
+            e1 = 0.0
+            if fit:
+                for i in range(r):
+                    e1 += l_y[k, 1, i] * rhs[i, p]
+                e1 = e1 + l_p[k, 1] * prior_d[k]
+            # r = y − A e and C⁻¹r = w − Z e
+            x2 = 0.0
+            for i in range(r):
+                if fit:
+                    resid = rhs[i, p] - (rhs[i, 0] * e0 + rhs[i, 1] * e1)
+                    white = sol[i, p] - (sol[i, 0] * e0 + sol[i, 1] * e1)
+                else:
+                    resid = rhs[i, p] - rhs[i, 0] * e0
+                    white = sol[i, p] - sol[i, 0] * e0
+                x2 += resid * white
+            if fit:
+                x2 = x2 + prior_prec[k] * (e1 - prior_d[k]) ** 2
+            info_known[k] = i00
+            if not fit and ebv_var[k] > 0:
+                # aᵀC₀⁻¹a: the same factorisation without the reddening term
+                cholesky_solve(c0, rhs, 1, r, low, z, sol)
+                known = 0.0
+                for i in range(r):
+                    known += rhs[i, 0] * sol[i, 0]
+                info_known[k] = known
+            if ok:
+                est[k, 0] = e0
+                cov[k, 0, 0] = cv00
+                chi2[k] = x2
+                if fit:
+                    est[k, 1] = e1
+                    cov[k, 0, 1] = cv01
+                    cov[k, 1, 0] = cv10
+                    cov[k, 1, 1] = cv11
+            else:
+                chi2[k] = np.nan
+                for q in range(p):
+                    est[k, q] = np.nan
+                    for q2 in range(p):
+                        cov[k, q, q2] = np.nan
+            if not any_used:
+                for q in range(p):
+                    l_p[k, q] = 0.0
+                    for i in range(r):
+                        l_y[k, q, i] = 0.0
+
+    return {"invert_cells": invert_cells, "evaluate_cells": evaluate_cells, "combine_cells": combine_cells}
