@@ -404,8 +404,11 @@ def _combine_pass(setup, s, g, used, sig_m, feh_err, scatter, a, v, y, fit_ebv, 
     vv = np.where(used, v, 0.0)
     c_red = c + vv[:, :, None] * vv[:, None, :] * e2[:, None, None]
     est, cov, chi2, ly, lp, info = _gls(c_red, a[:, :, None], y, used, np.zeros(k), np.zeros(k))
-    am = np.where(used, a, 0.0)
-    known = _dot(am, _cholesky_solve(c, am[:, :, None])[:, :, 0])
+    # aᵀC₀⁻¹a with C₀ = C − σ_E² v vᵀ (Sherman–Morrison: no second factorisation)
+    cv_v = _cholesky_solve(c_red, vv[:, :, None])[:, :, 0]
+    av, vcv = _dot(np.where(used, a, 0.0), cv_v), _dot(vv, cv_v)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        known = info + e2 * (av * av) / (1.0 - e2 * vcv)
     return est, cov, chi2, ly, lp, np.einsum("nii->ni", c_red), np.where(e2 > 0, known, info)
 
 
