@@ -293,7 +293,7 @@ class Relation:
                 k, q = k * q, q - 1
             if k == 0.0:
                 continue
-            term = k * power("x", x, p) if p else np.full(out.shape, k)
+            term = k * power("x", x, p) if p else k  # a scalar k adds the bits of a full array
             if q:
                 term = term * power("z", z, q)
             if r:
