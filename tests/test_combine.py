@@ -174,3 +174,47 @@ def test_reddening_dominates_is_judged_on_the_calibrated_temperature():
     # 0.05 mag: the error grows from 25 K to 160 K (share 0.98); 0.005 mag: 25 K to 32 K (0.38)
     assert estimate(m, e, ebv=0.0, ebv_err=0.05, feh=0.0, logg=4.4)["flags"][0] & fl.REDDENING_DOMINATES
     assert not estimate(m, e, ebv=0.0, ebv_err=0.005, feh=0.0, logg=4.4)["flags"][0] & fl.REDDENING_DOMINATES
+
+
+def test_a_combination_that_cycles_is_quoted_over_its_cycle_and_flagged(monkeypatch):
+    """Tabulated relations have kinks: at a node the weights jump and the iteration can cycle.
+
+    Blackbodies of 9,000 and 17,000 K (invented test stars, E(B−V) 0.1 ± 0.05) cycle through
+    several values; 11,000 K settles.  A cycling star is flagged, quoted at the middle of the
+    values it goes through, with half their span in its error, so that the answer hardly
+    depends on how many passes are allowed; a settled star does not depend on it at all.
+    """
+    from stelltemp import bandgrid as bg
+    from stelltemp.engine import combine
+
+    keys = ["B_JC", "V_JC", "Ic_JC", "J_2MASS", "Ks_2MASS"]
+    t = np.array([9000.0, 17000.0, 11000.0])
+    e = np.full(t.size, 0.1)
+    m = {k: bg.band_table(k).evaluate(np.log(t), e, want_de=False)[0] + 10.0 for k in keys}
+    errs = {k: 0.02 for k in keys}
+
+    seen = []
+    real = combine._combine_pass
+
+    def spy(*args, **kwargs):
+        out = real(*args, **kwargs)
+        seen.append(out[0][:, 0].copy())
+        return out
+
+    quoted = estimate(m, errs, ebv=e, ebv_err=0.05)
+    monkeypatch.setattr(combine, "_ITERATIONS", 40)
+    monkeypatch.setattr(combine, "_combine_pass", spy)
+    longer = estimate(m, errs, ebv=e, ebv_err=0.05)
+    flags = np.asarray(quoted["flags"])
+    assert [bool(f & fl.NOT_SETTLED) for f in flags] == [True, True, False]
+    assert np.all(np.asarray(longer["flags"]) == flags)
+    a, b = np.asarray(quoted["teff_cal"].value), np.asarray(longer["teff_cal"].value)
+    err = np.asarray(quoted["teff_cal_err"].value)
+    assert a[2] == b[2]  # settled: the same bits however many passes are allowed
+    assert np.all(np.abs(a - b)[:2] < 0.25 * err[:2])
+    # the cycling stars (still computed in every pass: rows 0 and 1) span tens to thousands of K
+    cycle = np.array([row[:2] for row in seen[combine._SETTLING_PASSES:]])
+    half = (cycle.max(axis=0) - cycle.min(axis=0)) / 2
+    assert np.all(half > combine.UNSETTLED_SHARE * err[:2]) and half.max() > 1000.0
+    assert np.allclose(b[:2], (cycle.max(axis=0) + cycle.min(axis=0)) / 2)
+    assert np.all(np.asarray(longer["teff_cal_err"].value)[:2] >= half)

@@ -58,11 +58,17 @@ from .patterns import unique_rows
 
 #: Gauss–Newton iterations: each linearises the relations at the current T_eff (and, when
 #: E(B−V) is fitted, re-evaluates the colour excess exactly at the current E(B−V))
-_ITERATIONS = 6
+_ITERATIONS = 10
 #: Newton steps inverting a relation (T_eff → colour) at the current estimate
 _INVERSE_STEPS = 4
 #: convergence: largest change of T_eff (K) and E(B−V) (mag) between iterations
 _TOL_T, _TOL_E = 0.1, 1e-5
+#: passes before the estimates of a star that does not settle are collected (the start-up
+#: transient of the iteration)
+_SETTLING_PASSES = 2
+#: a star whose estimates after the settling passes span more than twice this share of its
+#: error is flagged as not settled
+UNSETTLED_SHARE = 0.1
 #: relations needed to fit E(B−V) from the calibrations alone (no prior)
 MIN_RELATIONS_FREE_EBV = 3
 
@@ -93,6 +99,11 @@ class CalibratedTeff:
         E(B−V) when given, [Fe/H], scatter), K; NaN where not used.
     outside : ndarray of bool
         A measured colour went unused although its relations cover the star's T_eff.
+    not_settled : ndarray of bool
+        The iteration had not settled after its last pass and its estimates
+        after the first passes span more than 2 × `UNSETTLED_SHARE` of the
+        error: ``teff`` is the middle of that span and ``teff_err`` includes
+        half of it.
     notes : ndarray of str
         Per star, the luminosity class assumed and why no relation applied
         ('' when there is nothing to say).
@@ -119,12 +130,15 @@ class CalibratedTeff:
     outside: np.ndarray
     notes: np.ndarray
     ebv_share: np.ndarray = None
+    not_settled: np.ndarray = None
 
     @property
     def flags(self):
-        """OUTSIDE_CALIBRATION and NO_CALIBRATION bits, one integer per star."""
+        """OUTSIDE_CALIBRATION, NO_CALIBRATION and NOT_SETTLED bits, one integer per star."""
         mask = np.where(self.outside, fl.OUTSIDE_CALIBRATION, 0).astype(np.int64)
         mask |= np.where(self.n_used == 0, fl.NO_CALIBRATION, 0)
+        if self.not_settled is not None:
+            mask |= np.where(self.not_settled, fl.NOT_SETTLED, 0)
         return mask
 
     def used_names(self):
@@ -538,8 +552,13 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
         if t_hat is None:
             t_hat = new_t
             moving = np.ones(n, bool)
+            # the range of each star's estimates once past the first passes (see `unsettled` below)
+            seen_lo, seen_hi = np.full(n, np.nan), np.full(n, np.nan)
         else:
             old = t_hat[rows]
+            if it >= _SETTLING_PASSES:
+                seen_lo[rows] = np.fmin(seen_lo[rows], new_t)
+                seen_hi[rows] = np.fmax(seen_hi[rows], new_t)
             step_t = np.where(np.isfinite(new_t - old), new_t - old, 0.0)
             # a star that has converged keeps its linearisation point from then on, so its
             # result does not depend on how long the other stars of the call need (its next
@@ -556,6 +575,15 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
 
     teff = np.where(bad, np.nan, est[:, 0])
     teff_err = np.where(bad, np.nan, np.sqrt(cov[:, 0, 0]))
+    # a star still moving after the last pass: tabulated relations have kinks, and where the
+    # weights jump at a node the iteration can cycle through two to six values for ever; quote
+    # the middle of the range it went through after the first passes, with half that range in
+    # the error (flagged when it matters), not whichever value the last pass happened to give
+    unsettled = moving & np.isfinite(teff) & np.isfinite(seen_lo)
+    half = np.where(unsettled, (seen_hi - seen_lo) / 2, 0.0)
+    not_settled = unsettled & (half > UNSETTLED_SHARE * teff_err)
+    teff = np.where(unsettled, (seen_lo + seen_hi) / 2, teff)
+    teff_err = np.where(unsettled, np.hypot(teff_err, half), teff_err)
     n_par = 2 if fit_ebv else 1
     dof = np.where(bad, 0, n_used - n_par + (fit_ebv & (prior_prec > 0)))
     dof = np.maximum(dof, 0)
@@ -589,7 +617,7 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
     notes = _notes(setup0, x0, logg, feh_given, fit_ebv, prior_prec, n_used)
     return CalibratedTeff(teff, teff_err, lo, hi, ebv_fit, ebv_fit_err, chi2, dof, p_value, n_used,
                           used_all, tuple(rel.key for rel in setup0.rels), teff_each, err_each,
-                          _outside(setup0, x0, used_all, teff, feh, logg), notes, share)
+                          _outside(setup0, x0, used_all, teff, feh, logg), notes, share, not_settled)
 
 
 def _reddening_share(info_known, teff_err):

@@ -44,6 +44,10 @@ NO_CALIBRATION = 1 << 8
 #: the calibrated temperatures of one star's colours disagree beyond their combined
 #: errors: p(χ²) of the combination below `DISAGREE_P`
 COLOURS_DISAGREE = 1 << 9
+#: the calibrated combination had not settled after its last iteration (it cycled across a
+#: node of a tabulated relation): teff_cal is the middle of the values it went through, its
+#: error includes half their span
+NOT_SETTLED = 1 << 10
 
 #: p-value below which a multi-band blackbody fit is called a misfit
 POOR_FIT_P = 1e-3
@@ -63,6 +67,7 @@ NAMES = {
     ABSURD_VALUE: "absurd_value",
     NO_CALIBRATION: "no_calibration",
     COLOURS_DISAGREE: "colours_disagree",
+    NOT_SETTLED: "not_settled",
 }
 
 #: severity levels, in increasing order
@@ -81,6 +86,7 @@ SEVERITY = {
     ABSURD_VALUE: WARNING,
     NO_CALIBRATION: WARNING,
     COLOURS_DISAGREE: WARNING,
+    NOT_SETTLED: WARNING,
 }
 
 #: the rule behind each flag, with its threshold (shown by documentation and reports)
@@ -103,6 +109,10 @@ RULES = {
     COLOURS_DISAGREE: f"the calibrated temperatures of the star's colours disagree beyond their "
                       f"combined errors: p(chi2) < {DISAGREE_P:g} (bad photometry, a binary, wrong "
                       "reddening)",
+    NOT_SETTLED: "the calibrated combination had not settled after its last iteration (it "
+                 "cycled across a node of a tabulated relation): teff_cal is the middle of the values "
+                 "it went through after the first two passes, and its error includes half their span "
+                 "(which exceeds 10 % of the error)",
 }
 
 
