@@ -6,8 +6,8 @@ missing or ``STELLTEMP_JIT=0`` is set, run the numpy code beside each
 kernel.  Both compute the same thing: ``tests/test_kernels.py`` checks
 that they agree to rounding.
 
-numba is imported only by the first call with at least `MIN_ROWS` stars,
-and compiles with ``cache=True`` (machine code kept in numba's cache folder
+numba is imported only by the first call with at least `MIN_ROWS` stars
+(later calls of any size then use the kernels too), and compiles with ``cache=True`` (machine code kept in numba's cache folder
 between runs), so short runs never pay for the compiler.
 
 The kernels
@@ -56,8 +56,18 @@ def _load():
 
 
 def jit_for(n):
-    """The compiled kernels for a call over ``n`` stars, or None (use numpy)."""
-    if n < MIN_ROWS or not enabled():
+    """The compiled kernels for a call over ``n`` stars, or None (use numpy).
+
+    Once loaded (by a call of `MIN_ROWS` stars or more), the kernels serve
+    calls of any size: the small passes of a long run (the few stars still
+    iterating) would otherwise pay numpy's per-operation cost.  Both give
+    the same bits, so this changes no result.
+    """
+    if not enabled():
+        return None
+    if _state["jit"]:
+        return _state["jit"]
+    if n < MIN_ROWS:
         return None
     return _load() or None
 

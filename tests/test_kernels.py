@@ -88,6 +88,9 @@ def test_short_calls_never_load_the_compiler(monkeypatch):
     monkeypatch.setattr(kernels, "_state", {"jit": None})
     assert kernels.jit_for(kernels.MIN_ROWS - 1) is None
     assert kernels._state["jit"] is None  # numba not even imported for a short call
+    # once a long call has loaded them, the kernels serve the short passes of that run too
+    assert kernels.jit_for(kernels.MIN_ROWS) is not None
+    assert kernels.jit_for(1) is kernels._state["jit"]
 
 
 def test_flag_names_dictionary_encoded():
