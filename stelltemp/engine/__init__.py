@@ -112,23 +112,33 @@ def _in_blocks(call, n, per_star):
 
     Values of ``per_star`` with n entries are sliced per block; scalars (and
     dicts of them) pass whole.  The engine works row by row, so the joined
-    table equals one unblocked call.
+    table equals one unblocked call.  Each block is copied into columns
+    allocated once and then dropped, so the memory of one block is reused
+    by the next and the whole run holds one table, not the blocks and their join.
     """
     def part(value, sl):
         if isinstance(value, dict):
             return {k: part(v, sl) for k, v in value.items()}
         return value[sl] if np.ndim(value) == 1 and np.size(value) == n else value
 
-    blocks = [call(**{k: part(v, slice(i, i + BLOCK_ROWS)) for k, v in per_star.items()})
-              for i in range(0, n, BLOCK_ROWS)]
-    first = blocks[0]
-    columns = {}
-    for name in first.colnames:
-        joined = np.concatenate([np.asarray(getattr(b[name], "value", b[name])) for b in blocks])
-        columns[name] = u.Quantity(joined, first[name].unit, copy=False) \
-            if isinstance(first[name], u.Quantity) else joined
-    table = QTable(columns, meta=first.meta, copy=False)
-    table.meta.update(_whole_table_meta([b.meta for b in blocks]))
+    columns, first, metas = {}, None, []
+    for i in range(0, n, BLOCK_ROWS):
+        block = call(**{k: part(v, slice(i, i + BLOCK_ROWS)) for k, v in per_star.items()})
+        if first is None:
+            first = block
+        for name in first.colnames:
+            values = np.asarray(getattr(block[name], "value", block[name]))
+            if name not in columns:
+                columns[name] = np.empty(n, values.dtype)
+            elif values.dtype != columns[name].dtype:  # a block needing a wider type widens the column
+                columns[name] = columns[name].astype(np.result_type(columns[name], values))
+            columns[name][i:i + len(values)] = values
+        metas.append(block.meta)
+        del block
+    table = QTable({name: u.Quantity(values, first[name].unit, copy=False)
+                    if isinstance(first[name], u.Quantity) else values
+                    for name, values in columns.items()}, meta=first.meta, copy=False)
+    table.meta.update(_whole_table_meta(metas))
     return table
 
 
