@@ -252,11 +252,23 @@ def _linearise_at(setup, t_hat, x, y, s, g, used, feh, logg):
         lg = logg[rows]
         lo, hi = rel.colour_range
         xm = np.clip(x[rows, i], lo, hi)
+        ti, si, gi = (np.empty(rows.size) for _ in range(3))
+        inside = np.empty(rows.size, bool)
+        active = np.arange(rows.size)
         for _ in range(_INVERSE_STEPS):
-            ti, si, _, _ = rel.at(xm, z, lg)
+            at = rel.at(xm[active], z[active], lg[active])
             with np.errstate(invalid="ignore", divide="ignore"):
-                xm = np.clip(xm + (target - ti) / si, lo, hi)
-        ti, si, gi, inside = rel.at(xm, z, lg)
+                step = np.clip(xm[active] + (target[active] - at[0]) / at[1], lo, hi)
+            # an exact fixed point: the remaining steps would change nothing, and the
+            # evaluation just made is the one at the final colour
+            done = step == xm[active]
+            for out, value in zip((ti, si, gi, inside), at):
+                out[active[done]] = value[done]
+            xm[active] = step
+            active = active[~done]
+        if active.size:
+            for out, value in zip((ti, si, gi, inside), rel.at(xm[active], z[active], lg[active])):
+                out[active] = value
         good = inside & (np.abs(ti - target) < 0.5) & np.isfinite(si)
         rows, xm, si, gi = rows[good], xm[good], si[good], gi[good]
         y[rows, i] = t_hat[rows] + si * (x[rows, i] - xm)
