@@ -201,3 +201,48 @@ def test_parquet_reader_streams_batches(tmp_path):
     reader = ChunkReader(path, chunk_rows=250)
     sizes = [len(c) for c in reader]
     assert reader.num_rows == 1000 and sum(sizes) == 1000 and max(sizes) <= 300
+
+
+HEADER_METAS = [
+    {},
+    {"tool_name": "stelltemp", "rv": 3.1, "n": 7, "ok": True, "none": None},
+    {"big": 1e17, "small": 1e-300, "neg": -2.5e-7, "nan": float("nan"), "inf": float("inf"), "minf": -float("inf"),
+     "zero": 0.0, "negzero": -0.0},
+    {"np": [np.float64(0.1), np.float32(2.5), np.float16(1.0), np.int64(-3), np.uint8(7), np.bool_(False),
+            np.str_("text"), np.intc(4)]},
+    {"quoted": "a: b", "hash": "# not a comment", "multi": "line one\nline two", "unicode": "E(B−V) ≥ 0 Å",
+     "empty": "", "yes": "yes", "number_text": "1.5", "long": "word " * 60},
+    {"nested": {"z": 1, "a": [1, 2, {"k": "v"}], "t": (1, "two", 3.0)}, "list_of_lists": [[1, 2], [3, [4]]]},
+    {3: "int key", "mixed": {1: "a", "b": 2}},
+]
+
+
+@pytest.mark.parametrize("meta", HEADER_METAS)
+def test_parquet_header_text_is_astropys(meta):
+    """The light YAML writer of the Parquet header gives astropy's own text, byte for byte."""
+    from astropy.table import meta as astropy_meta
+
+    arrays = [pa.array([1.5, None]), pa.array(["a", None]), pa.array([1, 2], pa.int64()), pa.array([True, False]),
+              pa.array([1.0, 2.0], pa.float32())]
+    fields = [pa.field("t_bb", pa.float64(), metadata={b"unit": b"K", b"description": b"temperature: fitted"}),
+              pa.field("flag_names", pa.string(), metadata={b"description": b"names, comma separated"}),
+              pa.field("row", pa.int64()), pa.field("good", pa.bool_()),
+              pa.field("fbol", pa.float32(), metadata={b"unit": b"erg / (s cm2)"})]
+    schema = pa.Table.from_arrays(arrays, schema=pa.schema(fields)).schema
+    empty = tableio.arrow_to_astropy(schema.empty_table())
+    empty.meta.update(meta)
+    expected = "\n".join(astropy_meta.get_yaml_from_table(empty))
+    assert tableio.astropy_header(schema, meta) == expected
+    assert tableio._plain_yaml_value({"meta": dict(meta)})  # the light writer made it, not the fallback
+
+
+def test_parquet_header_falls_back_to_astropy_for_other_values():
+    """Values the light writer does not know (a unit, an array) go through astropy's dumper."""
+    from astropy.table import meta as astropy_meta
+
+    schema = pa.schema([pa.field("x", pa.float64())])
+    meta = {"unit": u.K, "array": np.arange(3)}
+    assert not tableio._plain_yaml_value(meta)
+    empty = tableio.arrow_to_astropy(schema.empty_table())
+    empty.meta.update(meta)
+    assert tableio.astropy_header(schema, meta) == "\n".join(astropy_meta.get_yaml_from_table(empty))

@@ -61,6 +61,7 @@ from __future__ import annotations
 import codecs
 import contextlib
 import csv
+import functools
 import io
 import json
 import re
@@ -972,12 +973,126 @@ def _is_text(typ):
 
 
 def astropy_header(schema, run_meta):
-    """astropy's YAML table header (as kept in Parquet's ``table_meta_yaml``) for an arrow schema and a run record."""
+    """astropy's YAML table header (as kept in Parquet's ``table_meta_yaml``) for an arrow schema and a run record.
+
+    The text is astropy's (`astropy.table.meta.get_yaml_from_table`), made by
+    `_plain_header_yaml` when the header holds only plain values (the run
+    record and column attributes always do): astropy's own dumper imports
+    ``astropy.io.misc.yaml`` and with it ``astropy.coordinates``, a third of
+    a second of a short run.
+    """
+    from collections import OrderedDict
+
     from astropy.table import meta as astropy_meta
 
     empty = arrow_to_astropy(schema.empty_table())
     empty.meta.update(run_meta)
-    return "\n".join(astropy_meta.get_yaml_from_table(empty))
+    header = {"datatype": [astropy_meta._get_col_attributes(col) for col in empty.columns.values()]}
+    if empty.meta:
+        header["meta"] = OrderedDict(empty.meta)
+    if not _plain_yaml_value(header):
+        return "\n".join(astropy_meta.get_yaml_from_table(empty))
+    return _plain_header_yaml(header)
+
+
+#: scalar types the light writer represents as astropy's YAML dumper does (astropy.io.misc.yaml.AstropyDumper)
+_PLAIN_YAML_SCALARS = frozenset((str, bool, int, float, type(None), np.bool_, np.str_, np.intc, np.intp, np.int8,
+                                 np.int16, np.int32, np.int64, np.uint8, np.uint16, np.uint32, np.uint64,
+                                 np.float16, np.float32, np.float64))
+
+
+def _plain_yaml_value(value):
+    """True if ``value`` holds only dicts, lists, tuples and `_PLAIN_YAML_SCALARS` (no units, arrays, times…)."""
+    from collections import OrderedDict
+
+    from astropy.table.meta import ColumnDict
+
+    if type(value) in (dict, OrderedDict, ColumnDict):
+        return all(_plain_yaml_value(k) and _plain_yaml_value(v) for k, v in value.items())
+    if type(value) in (list, tuple):
+        return all(_plain_yaml_value(v) for v in value)
+    return type(value) in _PLAIN_YAML_SCALARS
+
+
+@functools.lru_cache(maxsize=1)
+def _header_dumper():
+    """A YAML dumper writing plain values exactly as astropy's table-header dumper does.
+
+    Its methods and representers are those of ``AstropyDumper`` (floats by
+    ``str``, numpy scalars, tuples) and of the ``TableDumper`` inside
+    `astropy.table.meta.get_yaml_from_header` (ordered mappings as
+    ``!!omap``, column keys in their own order), astropy 8 (BSD licence);
+    a test compares the two on many headers.
+    """
+    import yaml
+    from collections import OrderedDict
+
+    from astropy.table import meta as astropy_meta
+
+    class HeaderDumper(yaml.SafeDumper):
+        def _represent_tuple(self, data):
+            return self.represent_sequence("tag:yaml.org,2002:python/tuple", data)
+
+        def represent_float(self, data):
+            if data != data or (data == 0.0 and data == 1.0):
+                value = ".nan"
+            elif data == self.inf_value:
+                value = ".inf"
+            elif data == -self.inf_value:
+                value = "-.inf"
+            else:
+                value = str(data).lower()
+                if "." not in value and "e" in value:  # 1e17 is no YAML float; 1.0e17 is
+                    value = value.replace("e", ".0e", 1)
+            return self.represent_scalar("tag:yaml.org,2002:float", value)
+
+        def represent_mapping(self, tag, mapping, flow_style=None):
+            value = []
+            node = yaml.MappingNode(tag, value, flow_style=flow_style)
+            if self.alias_key is not None:
+                self.represented_objects[self.alias_key] = node
+            best_style = True
+            if hasattr(mapping, "items"):
+                mapping = mapping.items()
+                if hasattr(mapping, "sort"):  # astropy's ColumnOrderList: column keys in their own order
+                    mapping.sort()
+                else:
+                    mapping = list(mapping)
+                    try:
+                        mapping = sorted(mapping)
+                    except TypeError:
+                        pass
+            for item_key, item_value in mapping:
+                node_key = self.represent_data(item_key)
+                node_value = self.represent_data(item_value)
+                if not (isinstance(node_key, yaml.ScalarNode) and not node_key.style):
+                    best_style = False
+                if not (isinstance(node_value, yaml.ScalarNode) and not node_value.style):
+                    best_style = False
+                value.append((node_key, node_value))
+            if flow_style is None:
+                node.flow_style = self.default_flow_style if self.default_flow_style is not None else best_style
+            return node
+
+    HeaderDumper.add_representer(tuple, HeaderDumper._represent_tuple)
+    HeaderDumper.add_representer(np.bool_, yaml.representer.SafeRepresenter.represent_bool)
+    HeaderDumper.add_representer(np.str_, yaml.representer.SafeRepresenter.represent_str)
+    for np_type in (np.intc, np.intp, np.int8, np.int16, np.int32, np.int64,
+                    np.uint8, np.uint16, np.uint32, np.uint64):
+        HeaderDumper.add_representer(np_type, yaml.representer.SafeRepresenter.represent_int)
+    for np_type in (np.float16, np.float32, np.float64):
+        HeaderDumper.add_representer(np_type, HeaderDumper.represent_float)
+    HeaderDumper.add_representer(OrderedDict, astropy_meta._repr_odict)
+    HeaderDumper.add_representer(astropy_meta.ColumnDict, astropy_meta._repr_column_dict)
+    return HeaderDumper
+
+
+def _plain_header_yaml(header):
+    """The YAML text astropy writes for a header of plain values (see `_header_dumper`)."""
+    import yaml
+
+    text = yaml.dump(header, default_flow_style=None, Dumper=_header_dumper(), width=130)
+    return "\n".join(text.splitlines())
 
 
 class CsvSink(Sink):
