@@ -150,6 +150,70 @@ def with_column_info(field, unit=None, description=None):
     return field.with_metadata(meta) if meta else field
 
 
+def numpy_to_arrow(data, mask=None):
+    """An Arrow array of a 1-d numpy array, as ``pa.array(data)`` makes it (``mask``: True where null).
+
+    Numbers and booleans are wrapped from their buffer: ``pa.array`` asks
+    pyarrow's pandas shim about every input, which imports pandas, a quarter
+    of a second of a short run.  Other kinds go to ``pa.array``.
+    """
+    kind = data.dtype.kind
+    if data.ndim != 1 or kind not in "fiub" or not data.dtype.isnative:
+        arr = pa.array(data)
+        return arr if mask is None or not mask.any() else pc.if_else(pa.array(mask), pa.scalar(None, arr.type), arr)
+    n = len(data)
+    valid = None
+    if mask is not None and mask.any():
+        valid = pa.py_buffer(np.packbits(~np.asarray(mask, bool), bitorder="little"))
+    if kind == "b":
+        return pa.Array.from_buffers(pa.bool_(), n, [valid, pa.py_buffer(np.packbits(data, bitorder="little"))])
+    data = np.ascontiguousarray(data)
+    return pa.Array.from_buffers(pa.from_numpy_dtype(data.dtype), n, [valid, pa.py_buffer(data)])
+
+
+def text_to_arrow(data):
+    """An Arrow string array of a 1-d numpy text array (``U``), as ``pa.array(data, pa.string())`` makes it.
+
+    ASCII text is built from its buffer (the reason is `numpy_to_arrow`'s) as
+    fixed-width cells whose NUL padding Arrow trims; text with other
+    characters or with NULs inside goes to ``pa.array``.
+    """
+    width = data.dtype.itemsize // 4
+    if data.ndim != 1 or data.dtype.kind != "U" or not data.dtype.isnative or width == 0 or len(data) == 0:
+        return pa.array(data, type=pa.string())
+    codes = np.ascontiguousarray(data).view(np.uint32)
+    if codes.max() >= 128:
+        return pa.array(data, type=pa.string())
+    cells = pa.Array.from_buffers(pa.binary(width), len(data), [None, pa.py_buffer(codes.astype(np.uint8))])
+    text = pc.utf8_rtrim(cells.cast(pa.string()), characters="\x00")
+    if pc.max(pc.count_substring(text, "\x00")).as_py():  # pa.array ends a cell at its first NUL
+        return pa.array(data, type=pa.string())
+    return text
+
+
+def objects_to_arrow(values):
+    """An Arrow string array of a 1-d object array of ``str`` and ``None``, as
+    ``pa.array(values, pa.string(), from_pandas=True)`` makes it.
+
+    The engine's text columns hold a few shared strings: each distinct value
+    is converted once and taken per row (faster than ``pa.array`` and without
+    its pandas import, see `numpy_to_arrow`).  Anything else goes to ``pa.array``.
+    """
+    index = {}
+    try:
+        codes = np.fromiter((index.setdefault(v, len(index)) for v in values), np.int64, len(values))
+    except TypeError:  # an unhashable value
+        return pa.array(values, pa.string(), from_pandas=True)
+    distinct = list(index)
+    if not all(v is None or type(v) is str for v in distinct):
+        return pa.array(values, pa.string(), from_pandas=True)
+    nulls = np.array([v is None for v in distinct], bool)
+    words = text_to_arrow(np.array(["" if v is None else v for v in distinct], dtype=str))
+    if nulls.any():
+        words = pc.if_else(numpy_to_arrow(nulls), pa.nulls(len(distinct), pa.string()), words)
+    return words.take(numpy_to_arrow(codes))
+
+
 def astropy_to_arrow(table):
     """An astropy Table as a pyarrow Table (units into field metadata)."""
     arrays, fields = [], []
@@ -166,12 +230,12 @@ def astropy_to_arrow(table):
         elif data.dtype.kind == "S":
             arr = pa.array(np.char.decode(data, "utf-8", errors="replace"), type=pa.string())
         elif data.dtype.kind == "U":
-            arr = pa.array(data, type=pa.string())
+            arr = text_to_arrow(data)
         elif data.dtype.kind == "O":
             arr = pa.array([None if v is None else str(v) for v in data], type=pa.string())
         else:
-            arr = pa.array(data)
-        if mask is not None and mask.any():
+            arr = numpy_to_arrow(data, mask)
+        if mask is not None and mask.any() and arr.null_count == 0:
             arr = pc.if_else(pa.array(mask), pa.scalar(None, arr.type), arr)
         meta = {}
         if unit is not None and str(unit):
@@ -191,6 +255,10 @@ def arrow_to_astropy(table):
     out = Table()
     for field, col in zip(table.schema, table.columns):
         unit = unit_of_field(field)
+        empty = _empty_data(field.type) if len(col) == 0 else None
+        if empty is not None:  # (a header's empty table) without to_numpy, which imports pandas
+            out[field.name] = Column(empty, unit=unit, description=description_of_field(field))
+            continue
         nulls = np.asarray(pc.is_null(col.combine_chunks() if isinstance(col, pa.ChunkedArray) else col)
                            .to_numpy(zero_copy_only=False), dtype=bool)  # ChunkedArray.to_numpy imports pandas
         typ = field.type
@@ -213,6 +281,17 @@ def arrow_to_astropy(table):
         else:
             out[field.name] = Column(data, unit=unit, description=description)
     return out
+
+
+def _empty_data(typ):
+    """The zero-length numpy array `arrow_to_astropy` makes of an empty column of type ``typ`` (None: not known)."""
+    if pa.types.is_string(typ) or pa.types.is_large_string(typ):
+        return np.zeros(0, "U1")
+    if pa.types.is_null(typ):
+        return np.zeros(0, np.float64)
+    if pa.types.is_floating(typ) or pa.types.is_integer(typ) or pa.types.is_boolean(typ):
+        return np.zeros(0, typ.to_pandas_dtype())
+    return None
 
 
 def _zero_of(typ):
@@ -985,7 +1064,8 @@ def astropy_header(schema, run_meta):
 
     from astropy.table import meta as astropy_meta
 
-    empty = arrow_to_astropy(schema.empty_table())
+    # the zero-row table from typed empty arrays: ``schema.empty_table()`` imports pandas
+    empty = arrow_to_astropy(pa.Table.from_arrays([pa.nulls(0, f.type) for f in schema], schema=schema))
     empty.meta.update(run_meta)
     header = {"datatype": [astropy_meta._get_col_attributes(col) for col in empty.columns.values()]}
     if empty.meta:
