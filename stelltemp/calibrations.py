@@ -270,8 +270,20 @@ class Relation:
         z_eval = z if self.feh_floor is None else np.maximum(z, self.feh_floor)
         return x, z, z_eval, g, inside
 
-    def _poly(self, x, z, g, dx=0, dz=0):
-        """Σ cᵢ ∂(Xᵖ Zᑫ Gʳ) with ``dx``/``dz`` derivatives (0 or 1) taken."""
+    def _poly(self, x, z, g, dx=0, dz=0, powers=None):
+        """Σ cᵢ ∂(Xᵖ Zᑫ Gʳ) with ``dx``/``dz`` derivatives (0 or 1) taken.
+
+        ``powers`` (a dict) keeps each power of x, z and g between the calls
+        of one evaluation; a factor X⁰ (exactly 1) is not multiplied in, so
+        the sum has the same bits as the plain formula.
+        """
+        powers = {} if powers is None else powers
+
+        def power(name, base, e):
+            if (name, e) not in powers:
+                powers[name, e] = base**e
+            return powers[name, e]
+
         out = np.zeros(np.broadcast(x, z, g).shape)
         for c, (p, q, r) in zip(self.coeffs, self._powers):
             k = c
@@ -281,7 +293,12 @@ class Relation:
                 k, q = k * q, q - 1
             if k == 0.0:
                 continue
-            out = out + k * x**p * z**q * (g**r if r else 1.0)
+            term = k * power("x", x, p) if p else k  # a scalar k adds the bits of a full array
+            if q:
+                term = term * power("z", z, q)
+            if r:
+                term = term * power("g", g, r)
+            out = out + term
         return out
 
     def _evaluate(self, x, z, g):
@@ -294,15 +311,16 @@ class Relation:
                 seg = np.clip(np.searchsorted(xs, xc, side="right") - 1, 0, len(xs) - 2)
                 d_x = (ts[seg + 1] - ts[seg]) / (xs[seg + 1] - xs[seg])
                 return t, d_x, np.zeros_like(t), np.isfinite(x)
-            p = self._poly(x, z, g)
+            powers = {}
+            p = self._poly(x, z, g, powers=powers)
+            p_x = self._poly(x, z, g, dx=1, powers=powers)
+            p_z = self._poly(x, z, g, dz=1, powers=powers)
             if self.form == "theta":
                 t = self.scale / p
-                d_x = -self.scale * self._poly(x, z, g, dx=1) / p**2
-                d_z = -self.scale * self._poly(x, z, g, dz=1) / p**2
-                return t, d_x, d_z, p > 0.0
+                p2 = p**2
+                return t, -self.scale * p_x / p2, -self.scale * p_z / p2, p > 0.0
             t = self.scale * p
-            return (t, self.scale * self._poly(x, z, g, dx=1), self.scale * self._poly(x, z, g, dz=1),
-                    t > 0.0)
+            return t, self.scale * p_x, self.scale * p_z, t > 0.0
 
     def theta(self, colour, feh=DEFAULT_FEH, logg=None):
         """θ_eff = 5040 K / T_eff, evaluated only inside the validity range.
@@ -984,7 +1002,7 @@ def _gls_combine(entries, teff_each, slope_err, scatter_each, used):
     both = ok[:, :, None] & ok[:, None, :]
     c = np.where(both, c, 0.0) + np.where(ok[:, :, None], 0.0, np.eye(r)[None])
     m = t.shape[0]
-    est, cov, chi2, _, _ = _gls(c, np.ones((m, r, 1)), np.where(ok, t, 0.0), ok, np.zeros(m), np.zeros(m))
+    est, cov, chi2, _, _, _ = _gls(c, np.ones((m, r, 1)), np.where(ok, t, 0.0), ok, np.zeros(m), np.zeros(m))
     with np.errstate(invalid="ignore"):
         err = np.sqrt(cov[:, 0, 0])
     return est[:, 0].reshape(shape), err.reshape(shape), chi2.reshape(shape)

@@ -19,6 +19,11 @@ The kernels
     cubic in ln T from the linear guess.
 `evaluate_cells`
     Value, ∂/∂lnT and ∂/∂E of a bicubic Hermite table at many points.
+`combine_cells`
+    One pass of the calibrated-temperature combination of
+    :mod:`stelltemp.engine.combine` per star: the relations' covariance,
+    its Cholesky factor and the generalised least squares estimate (the
+    twin of ``combine._combine_pass``, in the same order of operations).
 """
 
 import os
@@ -187,4 +192,153 @@ def _build(numba):
                 r3 = patches[base + 13] + s * (2 * patches[base + 14] + 3 * s * patches[base + 15])
                 d_e[k] = (r0 + t * (r1 + t * (r2 + t * r3))) / h_e
 
-    return {"invert_cells": invert_cells, "evaluate_cells": evaluate_cells}
+    @njit
+    def cholesky_solve(c, rhs, q, r, low, z, x):
+        """x[:r, :q] with c x = rhs (r × r, Cholesky); NaN when c is not positive definite."""
+        for j in range(r):
+            d = c[j, j]
+            for k in range(j):
+                d -= low[j, k] * low[j, k]
+            low[j, j] = np.sqrt(d)
+            for i in range(j + 1, r):
+                acc = c[i, j]
+                for k in range(j):
+                    acc -= low[i, k] * low[j, k]
+                low[i, j] = acc / low[j, j]
+        for col in range(q):
+            for i in range(r):
+                acc = rhs[i, col]
+                for k in range(i):
+                    acc -= low[i, k] * z[k, col]
+                z[i, col] = acc / low[i, i]
+            for i in range(r - 1, -1, -1):
+                acc = z[i, col]
+                for k in range(i + 1, r):
+                    acc -= low[k, i] * x[k, col]
+                x[i, col] = acc / low[i, i]
+
+    @njit
+    def combine_cells(s, g, used, var_m, blue, red, same, scatter, feh_var, a, v, y, fit, ebv_var,
+                      prior_prec, prior_d, est, cov, chi2, l_y, l_p, c_diag, info_known):
+        n, r = s.shape
+        p = 2 if fit else 1
+        c = np.empty((r, r))
+        rhs = np.empty((r, 3))
+        low = np.zeros((r, r))
+        z = np.empty((r, 3))
+        sol = np.empty((r, 3))
+        idx = np.empty(r, np.intp)
+        for k in range(n):
+            # only the relations this star uses: the numpy twin pads the others with identity
+            # rows, which add exact zeros to every sum (same bits, fewer operations)
+            u = 0
+            for i in range(r):
+                c_diag[k, i] = 1.0
+                if used[k, i]:
+                    idx[u] = i
+                    u += 1
+            for ii in range(u):
+                i = idx[ii]
+                bi, ri = blue[i], red[i]
+                vi = v[k, i]
+                for jj in range(u):
+                    j = idx[jj]
+                    bj, rj = blue[j], red[j]
+                    # D Σ_m Dᵀ: the bands the two colours share, with their signs
+                    phot = 0.0
+                    if bi == bj:
+                        phot += var_m[k, bi]
+                    if bi == rj:
+                        phot -= var_m[k, bi]
+                    if ri == bj:
+                        phot -= var_m[k, ri]
+                    if ri == rj:
+                        phot += var_m[k, ri]
+                    cij = s[k, i] * s[k, j] * phot
+                    cij += scatter[k, i] * scatter[k, j] if same[i, j] else 0.0
+                    cij += g[k, i] * g[k, j] * feh_var[k]
+                    cij = cij + 0.0
+                    c[ii, jj] = cij if fit else cij + vi * v[k, j] * ebv_var[k]
+                c_diag[k, i] = c[ii, ii]
+                rhs[ii, 0] = a[k, i]
+                rhs[ii, 1] = vi
+                rhs[ii, 2] = y[k, i]
+            cholesky_solve(c, rhs, 3, u, low, z, sol)
+            i00 = 0.0
+            av = 0.0
+            va = 0.0
+            vv = 0.0
+            for ii in range(u):
+                i00 += rhs[ii, 0] * sol[ii, 0]
+            for ii in range(u):
+                av += rhs[ii, 0] * sol[ii, 1]
+            for ii in range(u):
+                va += rhs[ii, 1] * sol[ii, 0]
+            for ii in range(u):
+                vv += rhs[ii, 1] * sol[ii, 1]
+            if fit:
+                i11 = vv + prior_prec[k]
+                det = i00 * i11 - av * va
+                cv00, cv01, cv10, cv11 = i11 / det, -av / det, -va / det, i00 / det
+            else:
+                det = i00
+                cv00, cv01, cv10, cv11 = 1.0 / i00, 0.0, 0.0, 0.0
+            ok = det > 0 and u > 0
+            if not ok:
+                cv00, cv01, cv10, cv11 = 1.0, 0.0, 0.0, 1.0
+            for q in range(p):
+                l_p[k, q] = 0.0
+                for i in range(r):
+                    l_y[k, q, i] = 0.0
+            for ii in range(u):
+                i = idx[ii]
+                if fit:
+                    l_y[k, 0, i] = cv00 * sol[ii, 0] + cv01 * sol[ii, 1]
+                    l_y[k, 1, i] = cv10 * sol[ii, 0] + cv11 * sol[ii, 1]
+                else:
+                    l_y[k, 0, i] = cv00 * sol[ii, 0]
+            if fit and u > 0:
+                l_p[k, 0] = cv01 * prior_prec[k]
+                l_p[k, 1] = cv11 * prior_prec[k]
+            e0 = 0.0
+            for ii in range(u):
+                e0 += l_y[k, 0, idx[ii]] * rhs[ii, 2]
+            e0 = e0 + l_p[k, 0] * prior_d[k]
+            e1 = 0.0
+            if fit:
+                for ii in range(u):
+                    e1 += l_y[k, 1, idx[ii]] * rhs[ii, 2]
+                e1 = e1 + l_p[k, 1] * prior_d[k]
+            # r = y − A e and C⁻¹r = w − Z e
+            x2 = 0.0
+            for ii in range(u):
+                if fit:
+                    resid = rhs[ii, 2] - (rhs[ii, 0] * e0 + rhs[ii, 1] * e1)
+                    white = sol[ii, 2] - (sol[ii, 0] * e0 + sol[ii, 1] * e1)
+                else:
+                    resid = rhs[ii, 2] - rhs[ii, 0] * e0
+                    white = sol[ii, 2] - sol[ii, 0] * e0
+                x2 += resid * white
+            if fit:
+                x2 = x2 + prior_prec[k] * (e1 - prior_d[k]) ** 2
+            info_known[k] = i00
+            if not fit and ebv_var[k] > 0:
+                # aᵀC₀⁻¹a with C₀ = C − σ_E² v vᵀ (Sherman–Morrison: no second factorisation)
+                info_known[k] = i00 + ebv_var[k] * (av * av) / (1.0 - ebv_var[k] * vv)
+            if ok:
+                est[k, 0] = e0
+                cov[k, 0, 0] = cv00
+                chi2[k] = x2
+                if fit:
+                    est[k, 1] = e1
+                    cov[k, 0, 1] = cv01
+                    cov[k, 1, 0] = cv10
+                    cov[k, 1, 1] = cv11
+            else:
+                chi2[k] = np.nan
+                for q in range(p):
+                    est[k, q] = np.nan
+                    for q2 in range(p):
+                        cov[k, q, q2] = np.nan
+
+    return {"invert_cells": invert_cells, "evaluate_cells": evaluate_cells, "combine_cells": combine_cells}

@@ -670,3 +670,30 @@ def test_relations_command_uses_the_combination(capsys):
     res = cal.combine_teff({"c10_vk": [1.60]}, {"c10_vk": [0.02]}, feh=[0.0])
     assert doc["teff_K"] == pytest.approx(float(res.teff[0])) and doc["teff_err_K"] == pytest.approx(
         float(res.teff_err[0]))
+
+
+def test_polynomial_with_kept_powers_equals_the_plain_formula():
+    """`Relation._poly` keeps powers between value and derivatives: the bits of Σ c X^p Z^q G^r as written."""
+    rng = np.random.default_rng(1)
+
+    def plain(rel, x, z, g, dx=0, dz=0):
+        out = np.zeros(np.broadcast(x, z, g).shape)
+        for c, (p, q, r) in zip(rel.coeffs, rel._powers):
+            k = c
+            if dx:
+                k, p = k * p, p - 1
+            if dz:
+                k, q = k * q, q - 1
+            if k != 0.0:
+                out = out + k * x**p * z**q * (g**r if r else 1.0)
+        return out
+
+    polys = [rel for rel in cal.relations() if rel.form != "table"]
+    assert len(polys) > 30
+    x, z, g = rng.uniform(-1, 6, 3000), rng.uniform(-3, 1, 3000), rng.uniform(0, 5, 3000)
+    x[::50] = np.nan
+    z[::77] = np.inf
+    with np.errstate(all="ignore"):
+        for rel in polys:
+            for d in ((0, 0), (1, 0), (0, 1)):
+                assert np.array_equal(rel._poly(x, z, g, *d), plain(rel, x, z, g, *d), equal_nan=True), rel.key

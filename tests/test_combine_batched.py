@@ -58,7 +58,7 @@ def test_batched_gls_equals_the_direct_estimator(p):
     y = np.where(used, rng.normal(5000, 300, (n, r)), np.nan)
     prec = np.where(rng.random(n) < 0.5, rng.uniform(10, 1000, n), 0.0)
     prior_d = rng.normal(0, 0.1, n)
-    est, cov, chi2, ly, lp = combine._gls(c, design, y, used, prec, prior_d)
+    est, cov, chi2, ly, lp, _ = combine._gls(c, design, y, used, prec, prior_d)
     want_est, want_cov, want_chi2 = _direct_gls(c, design, y, used, prec, prior_d)
     # well posed: as many relations as parameters (or the prior); else singular to rounding
     posed = used.sum(axis=1) + (prec > 0) * (p > 1) >= p

@@ -146,3 +146,18 @@ def test_coverage_notes_grouped_equal_star_by_star():
                                 logg=logg[i:i + 1])[0] for i in range(n)]
     assert list(together) == alone
     assert len(set(alone)) > 20  # many different notes were exercised
+
+
+@pytest.mark.parametrize("fit_ebv, ebv_err", [(False, 0.03), (False, 0.0), (True, 0.03), (True, 0.0)])
+def test_combination_identical_compiled_and_numpy(both, fit_ebv, ebv_err):
+    """The compiled combination pass gives the numpy one's bits (a star's answer not set by its call)."""
+    from stelltemp.engine import combine
+    from test_combine_batched import FIELDS, KEYS5, _stars
+
+    m, sig, tbb, e, feh, feh_err, logg = _stars(400, KEYS5, 12)
+    sig[::17, 2] = np.nan  # an unknown error counts as zero, in both
+    fast, slow = both(combine.calibrated_teff, m, sig, KEYS5, tbb, e, np.full(len(e), ebv_err),
+                      fit_ebv=fit_ebv, feh=feh, feh_err=feh_err, logg=logg)
+    assert np.isfinite(slow.teff).sum() > 200
+    for f in FIELDS + ("teff_lo", "teff_hi", "p_value"):
+        _same(np.asarray(getattr(fast, f)), np.asarray(getattr(slow, f)))

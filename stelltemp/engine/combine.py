@@ -51,6 +51,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .. import bandgrid as bg
+from .. import kernels
 from ..calibrations import coverage_notes, relations
 from . import flags as fl
 from .patterns import unique_rows
@@ -127,12 +128,12 @@ class CalibratedTeff:
         return mask
 
     def used_names(self):
-        """Comma-separated relation keys used, per star."""
+        """Comma-separated relation keys used, per star (str objects, one shared per pattern)."""
         if not len(self.keys):
-            return np.full(len(self.teff), "", dtype=str)
+            return np.full(len(self.teff), "", dtype=object)
         patterns, inverse = unique_rows(self.used)
         keys = np.array(self.keys, dtype=object)
-        return np.array([",".join(keys[row]) for row in patterns], dtype=str)[inverse]
+        return np.array([",".join(keys[row]) for row in patterns], dtype=object)[inverse]
 
 
 def candidate_relations(keys):
@@ -253,6 +254,8 @@ def _linearise_at(setup, t_hat, x, y, s, g, used, feh, logg):
 def _covariance(setup, s, g, used, sig_m, feh_err, scatter):
     """C without the reddening term; unused rows and columns replaced by the identity."""
     var_m = np.where(np.isfinite(sig_m), sig_m, 0.0) ** 2
+    # each pick row holds one +1 and one -1, so every entry is a sum of at most two exact
+    # products: the same bits in any order of summation (as `kernels.combine_cells` builds it)
     phot = (setup.pick[None] * var_m[:, None, :]) @ setup.pick.T
     c = s[:, :, None] * s[:, None, :] * phot
     c += np.where(setup.same[None], scatter[:, :, None] * scatter[:, None, :], 0.0)
@@ -262,6 +265,51 @@ def _covariance(setup, s, g, used, sig_m, feh_err, scatter):
     return np.where(both, c, 0.0) + np.where(used[:, :, None], 0.0, eye)
 
 
+def _cholesky_solve(c, rhs):
+    """X with C X = B for every star: Cholesky factor, forward and back substitution.
+
+    ``c`` (n, r, r) symmetric positive definite, ``rhs`` (n, r, q).  Every
+    sum runs in ascending index order, one product at a time, exactly as
+    `kernels.combine_cells` runs it for one star, so the two agree bit for
+    bit and a star's result does not depend on the size of its call.  A
+    matrix that is not positive definite gives NaN.
+    """
+    n, r, _ = c.shape
+    low = np.zeros((n, r, r))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        for j in range(r):
+            d = c[:, j, j].copy()
+            for k in range(j):
+                d -= low[:, j, k] * low[:, j, k]
+            low[:, j, j] = np.sqrt(d)
+            for i in range(j + 1, r):
+                acc = c[:, i, j].copy()
+                for k in range(j):
+                    acc -= low[:, i, k] * low[:, j, k]
+                low[:, i, j] = acc / low[:, j, j]
+        z = np.empty_like(rhs)
+        for i in range(r):
+            acc = rhs[:, i, :].copy()
+            for k in range(i):
+                acc -= low[:, i, k, None] * z[:, k, :]
+            z[:, i, :] = acc / low[:, i, i, None]
+        x = np.empty_like(rhs)
+        for i in range(r - 1, -1, -1):
+            acc = z[:, i, :].copy()
+            for k in range(i + 1, r):
+                acc -= low[:, k, i, None] * x[:, k, :]
+            x[:, i, :] = acc / low[:, i, i, None]
+    return x
+
+
+def _dot(a, b):
+    """Σ_k a_k b_k over the last axis, in ascending order (as the compiled kernel sums)."""
+    acc = np.zeros(a.shape[:-1])
+    for k in range(a.shape[-1]):
+        acc += a[..., k] * b[..., k]
+    return acc
+
+
 def _gls(c, design, y, used, prior_prec, prior_d):
     """Generalised least squares per star, with an optional Gaussian prior on parameter 1.
 
@@ -269,49 +317,99 @@ def _gls(c, design, y, used, prior_prec, prior_d):
     star does not use has an identity row and column in ``c`` (see
     `_covariance`) and a zero design row and datum, so it adds nothing, and
     a star's numbers do not depend on the other stars of the call (a file
-    run in chunks equals one call).  The p × p information matrix (p ≤ 2)
-    is inverted in closed form.
+    run in chunks equals one call).  C is factorised by Cholesky
+    (`_cholesky_solve`); the p × p information matrix (p ≤ 2) is inverted
+    in closed form.  `kernels.combine_cells` is the same computation,
+    compiled, one star at a time.
 
-    Returns estimate (n, p), covariance (n, p, p), χ², and the linear
-    estimator: estimate = Ly @ y + Lp · prior_d (Ly zero for unused relations).
+    Returns estimate (n, p), covariance (n, p, p), χ², the linear
+    estimator (estimate = Ly @ y + Lp · prior_d, Ly zero for unused
+    relations) and aᵀC⁻¹a of the first design column (without the prior).
     """
     n, r, p = design.shape
     if n == 0:
         return (np.full((0, p), np.nan), np.full((0, p, p), np.nan), np.full(0, np.nan),
-                np.zeros((0, p, r)), np.zeros((0, p)))
+                np.zeros((0, p, r)), np.zeros((0, p)), np.zeros(0))
     a = np.where(used[:, :, None], design, 0.0)
     yy = np.where(used, y, 0.0)
-    ci = np.linalg.inv(c)
-    cia = ci @ a
-    info = np.einsum("nri,nrj->nij", a, cia)
-    if p > 1:
-        info[:, 1, 1] += prior_prec
-    if p == 1:
-        det = info[:, 0, 0]
-    else:
-        det = info[:, 0, 0] * info[:, 1, 1] - info[:, 0, 1] * info[:, 1, 0]
-    ok = (det > 0) & used.any(axis=1)
+    sol = _cholesky_solve(c, np.concatenate([a, yy[:, :, None]], axis=2))
+    za, w = sol[:, :, :p], sol[:, :, p]
+    i00 = _dot(a[:, :, 0], za[:, :, 0])
     with np.errstate(divide="ignore", invalid="ignore"):
         if p == 1:
-            cv = (1.0 / info).reshape(n, 1, 1)
+            det = i00
+            cv = (1.0 / i00).reshape(n, 1, 1)
         else:
-            cv = np.stack([np.stack([info[:, 1, 1], -info[:, 0, 1]], -1),
-                           np.stack([-info[:, 1, 0], info[:, 0, 0]], -1)], 1) / det[:, None, None]
+            i01, i10 = _dot(a[:, :, 0], za[:, :, 1]), _dot(a[:, :, 1], za[:, :, 0])
+            i11 = _dot(a[:, :, 1], za[:, :, 1]) + prior_prec
+            det = i00 * i11 - i01 * i10
+            cv = np.stack([np.stack([i11 / det, -i01 / det], -1),
+                           np.stack([-i10 / det, i00 / det], -1)], 1)
+    ok = (det > 0) & used.any(axis=1)
     cv[~ok] = np.eye(p)
-    l_y = cv @ np.swapaxes(cia, 1, 2)  # (n, p, r)
-    l_p = cv[:, :, 1] * prior_prec[:, None] if p > 1 else np.zeros((n, p))
-    e = np.einsum("npr,nr->np", l_y, yy) + l_p * prior_d[:, None]
-    resid = yy - np.einsum("nrp,np->nr", a, e)
-    chi2 = np.einsum("nr,nrs,ns->n", resid, ci, resid)
+    if p == 1:
+        l_y = cv[:, 0, 0, None, None] * np.swapaxes(za, 1, 2)
+        l_p = np.zeros((n, 1))
+    else:
+        l_y = np.stack([cv[:, q, 0, None] * za[:, :, 0] + cv[:, q, 1, None] * za[:, :, 1] for q in (0, 1)], 1)
+        l_p = cv[:, :, 1] * prior_prec[:, None]
+    e = np.stack([_dot(l_y[:, q], yy) + l_p[:, q] * prior_d for q in range(p)], -1)
+    # r = y − A e and C⁻¹r = w − Z e: χ² = rᵀC⁻¹r without a second solve
+    if p == 1:
+        resid = yy - a[:, :, 0] * e[:, 0, None]
+        white = w - za[:, :, 0] * e[:, 0, None]
+    else:
+        resid = yy - (a[:, :, 0] * e[:, 0, None] + a[:, :, 1] * e[:, 1, None])
+        white = w - (za[:, :, 0] * e[:, 0, None] + za[:, :, 1] * e[:, 1, None])
+    chi2 = _dot(resid, white)
     if p > 1:
         chi2 = chi2 + prior_prec * (e[:, 1] - prior_d) ** 2
     e[~ok] = np.nan
     cv[~ok] = np.nan
+    chi2[~ok] = np.nan
     none = ~used.any(axis=1)  # no relation: nothing estimated
-    chi2[none] = np.nan
     l_y[none] = 0.0
     l_p[none] = 0.0
-    return e, cv, chi2, l_y, l_p
+    return e, cv, chi2, l_y, l_p, i00
+
+
+def _combine_pass(setup, s, g, used, sig_m, feh_err, scatter, a, v, y, fit_ebv, ebv_err, prior_prec,
+                  prior_d):
+    """One pass of the combination: covariance, GLS and what the result columns need.
+
+    With ``fit_ebv`` the parameters are (T, E) with design columns (a, v)
+    and the prior ``prior_prec`` on E; else T alone, the given E(B−V) error
+    entering C as v vᵀ σ_E².  Returns estimate, covariance, χ², Ly, Lp (see
+    `_gls`), the diagonal of C (each relation's own variance) and aᵀC₀⁻¹a,
+    C₀ being C without the reddening term (for `_reddening_share`).  Large
+    calls run `kernels.combine_cells`, which gives the same bits.
+    """
+    k, r = s.shape
+    var_m = np.where(np.isfinite(sig_m), sig_m, 0.0) ** 2
+    e2 = np.zeros(k) if fit_ebv else ebv_err**2
+    jit = kernels.jit_for(k)
+    if jit is not None:
+        p = 2 if fit_ebv else 1
+        out = (np.empty((k, p)), np.empty((k, p, p)), np.empty(k), np.empty((k, p, r)), np.empty((k, p)),
+               np.empty((k, r)), np.empty(k))
+        f = np.ascontiguousarray
+        jit["combine_cells"](f(s), f(g), f(used), f(var_m), setup.blue, setup.red, f(setup.same), f(scatter),
+                             f(feh_err**2), f(a), f(v), f(y), bool(fit_ebv), f(e2), f(prior_prec),
+                             f(prior_d), *out)
+        return out
+    c = _covariance(setup, s, g, used, sig_m, feh_err, scatter)
+    if fit_ebv:
+        est, cov, chi2, ly, lp, info = _gls(c, np.stack([a, v], axis=-1), y, used, prior_prec, prior_d)
+        return est, cov, chi2, ly, lp, np.einsum("nii->ni", c), info
+    vv = np.where(used, v, 0.0)
+    c_red = c + vv[:, :, None] * vv[:, None, :] * e2[:, None, None]
+    est, cov, chi2, ly, lp, info = _gls(c_red, a[:, :, None], y, used, np.zeros(k), np.zeros(k))
+    # aᵀC₀⁻¹a with C₀ = C − σ_E² v vᵀ (Sherman–Morrison: no second factorisation)
+    cv_v = _cholesky_solve(c_red, vv[:, :, None])[:, :, 0]
+    av, vcv = _dot(np.where(used, a, 0.0), cv_v), _dot(vv, cv_v)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        known = info + e2 * (av * av) / (1.0 - e2 * vcv)
+    return est, cov, chi2, ly, lp, np.einsum("nii->ni", c_red), np.where(e2 > 0, known, info)
 
 
 def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=None, feh_err=None,
@@ -417,25 +515,20 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
         # the excess itself depends on T: ∂T_i/∂T = 1 + s_i ∂ΔC_i/∂T (about t_ref)
         a = np.where(used, 1.0 + s * kt / tr[:, None], 1.0)
         y = y - (1.0 - a) * tr[:, None]
-        c = _covariance(setup, s, g, used, sig_m[rows], feh_err[rows], sc)
-        c_known_ebv = c  # without the reddening term, for the reddening's share
         n_used = used.sum(axis=1)
         pp = prior_prec[rows]
+        # with E(B-V) given, it and its error are one shared term of every relation (in C)
+        est, cov, chi2, ly, lp, c_diag, info_known = _combine_pass(
+            setup, s, g, used, sig_m[rows], feh_err[rows], sc, a, v, y, fit_ebv, ebv_err[rows],
+            pp if fit_ebv else np.zeros(rows.size), ebv[rows] - el if fit_ebv else np.zeros(rows.size))
         if fit_ebv:
-            design = np.stack([a, v], axis=-1)
-            est, cov, chi2, ly, lp = _gls(c, design, y, used, pp, ebv[rows] - el)
             bad = (n_used == 0) | ((pp == 0) & (n_used < MIN_RELATIONS_FREE_EBV))
             step_e = np.where(bad | ~np.isfinite(est[:, 1]), 0.0, est[:, 1])
         else:
-            # the given E(B-V) and its error: one shared term of every relation
-            vv = np.where(used, v, 0.0)
-            c = c + vv[:, :, None] * vv[:, None, :] * (ebv_err[rows] ** 2)[:, None, None]
-            k = rows.size
-            est, cov, chi2, ly, lp = _gls(c, a[:, :, None], y, used, np.zeros(k), np.zeros(k))
             bad = n_used == 0
-            step_e = np.zeros(k)
-        now = dict(x=x, kx=kx, y=y, s=s, used=used, sc=sc, v=v, c=c, n_used=n_used, bad=bad,
-                   est=est, cov=cov, chi2=chi2, ly=ly, lp=lp, a=a, c_known_ebv=c_known_ebv)
+            step_e = np.zeros(rows.size)
+        now = dict(x=x, kx=kx, y=y, s=s, used=used, sc=sc, v=v, n_used=n_used, bad=bad,
+                   est=est, cov=cov, chi2=chi2, ly=ly, lp=lp, c_diag=c_diag, info_known=info_known)
         if it == 0:
             last = dict(now, x=x.copy())  # x0 (the first pass) stays as it is
         else:
@@ -457,9 +550,9 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
         if not moving.any() or it == _ITERATIONS - 1:
             break
         e_lin[rows] = np.where(moving[rows], np.clip(el + step_e, bg.E_MIN, bg.E_MAX), el)
-    x, kx, y, s, used, sc, v, c, n_used, bad, est, cov, chi2, ly, lp, a, c_known_ebv = (
-        last[name] for name in ("x", "kx", "y", "s", "used", "sc", "v", "c", "n_used", "bad", "est",
-                                "cov", "chi2", "ly", "lp", "a", "c_known_ebv"))
+    x, kx, y, s, used, sc, v, n_used, bad, est, cov, chi2, ly, lp, c_diag, info_known = (
+        last[name] for name in ("x", "kx", "y", "s", "used", "sc", "v", "n_used", "bad", "est",
+                                "cov", "chi2", "ly", "lp", "c_diag", "info_known"))
 
     teff = np.where(bad, np.nan, est[:, 0])
     teff_err = np.where(bad, np.nan, np.sqrt(cov[:, 0, 0]))
@@ -481,7 +574,7 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
     err_each = np.full((n, len(setup0.rels)), np.nan)
     teff_each = np.full((n, len(setup0.rels)), np.nan)
     used_all = np.zeros((n, len(setup0.rels)), bool)
-    err_each[:, cols] = np.where(used, np.sqrt(np.einsum("nii->ni", c)), np.nan)
+    err_each[:, cols] = np.where(used, np.sqrt(c_diag), np.nan)
     teff_each[:, cols] = np.where(used, y, np.nan)
     used_all[:, cols] = used
 
@@ -492,14 +585,14 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
         lo = np.where(bad, np.nan, lo)
         hi = np.where(bad, np.nan, hi)
 
-    share = np.where(bad, np.nan, _reddening_share(c_known_ebv, a, used, teff_err))
+    share = np.where(bad, np.nan, _reddening_share(info_known, teff_err))
     notes = _notes(setup0, x0, logg, feh_given, fit_ebv, prior_prec, n_used)
     return CalibratedTeff(teff, teff_err, lo, hi, ebv_fit, ebv_fit_err, chi2, dof, p_value, n_used,
                           used_all, tuple(rel.key for rel in setup0.rels), teff_each, err_each,
                           _outside(setup0, x0, used_all, teff, feh, logg), notes, share)
 
 
-def _reddening_share(c_known, a, used, teff_err):
+def _reddening_share(info_known, teff_err):
     """Share of the variance of T_eff that is owed to the E(B−V) error, per star.
 
     It is the variance the error adds: 1 − σ²(T | E(B−V) known) / σ²(T),
@@ -513,12 +606,10 @@ def _reddening_share(c_known, a, used, teff_err):
 
     Parameters
     ----------
-    c_known : ndarray (n, r, r)
-        Covariance of the relations without the reddening term, K²
-        (identity on unused rows and columns).
-    a : ndarray (n, r)
-        Design column of T_eff (∂T_i/∂T).
-    used : ndarray (n, r) of bool
+    info_known : ndarray (n,)
+        aᵀ C₀⁻¹ a, K⁻² (a the design column of T_eff, ∂T_i/∂T; C₀ the
+        covariance of the relations without the reddening term), as
+        `_combine_pass` returns it.
     teff_err : ndarray (n,)
         1σ error of T_eff with everything included, K.
 
@@ -528,16 +619,16 @@ def _reddening_share(c_known, a, used, teff_err):
 
     Examples
     --------
+    Two independent relations of 100 K each give 70.7 K without the
+    reddening term; with it the error is 100 K:
+
     >>> import numpy as np
-    >>> c = np.array([[[100.0 ** 2, 0.0], [0.0, 100.0 ** 2]]])
-    >>> share = _reddening_share(c, np.ones((1, 2)), np.ones((1, 2), bool), np.array([100.0]))
-    >>> round(float(share[0]), 3)  # 70.7 K without the reddening term, 100 K with it
+    >>> share = _reddening_share(np.array([2 / 100.0**2]), np.array([100.0]))
+    >>> round(float(share[0]), 3)
     0.5
     """
-    am = np.where(used, a, 0.0)
     with np.errstate(invalid="ignore", divide="ignore"):
-        info = np.einsum("nr,nr->n", am, np.linalg.solve(c_known, am[:, :, None])[:, :, 0])
-        share = 1.0 - 1.0 / (info * np.square(teff_err))
+        share = 1.0 - 1.0 / (info_known * np.square(teff_err))
     return np.clip(share, 0.0, 1.0)
 
 
@@ -588,8 +679,9 @@ def _start_ebv(setup, m, sig_m, keys, t_ref, feh, feh_err, logg, law, rv):
     for e in _START_GRID:
         ex, de, dt = colour_excess(keys, t_ref, np.full(n, e), law, rv)
         _, _, _, y, s, g, used = _evaluate(setup, m, ex, de, dt, feh, logg)
-        c = _covariance(setup, s, g, used, sig_m, feh_err, _scatter(setup, t_ref))
-        _, _, chi2, _, _ = _gls(c, np.ones(y.shape + (1,)), y, used, np.zeros(n), np.zeros(n))
+        zero = np.zeros(n)
+        chi2 = _combine_pass(setup, s, g, used, sig_m, feh_err, _scatter(setup, t_ref), np.ones(y.shape),
+                             np.zeros(y.shape), y, False, zero, zero, zero)[2]
         score = used.sum(axis=1) * 1e6 - np.where(np.isfinite(chi2), chi2, 1e5)
         better = score > best
         best = np.where(better, score, best)

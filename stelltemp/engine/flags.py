@@ -187,8 +187,8 @@ def row_severity(masks, usable=None):
 
 
 def severity_names(levels):
-    """'' / 'info' / 'warning' / 'unusable' for each level."""
-    return np.array(LEVELS, dtype=str)[np.asarray(levels, dtype=np.int64)]
+    """'' / 'info' / 'warning' / 'unusable' for each level (str objects)."""
+    return np.array(LEVELS, dtype=object)[np.asarray(levels, dtype=np.int64)]
 
 
 def summary(masks, levels):

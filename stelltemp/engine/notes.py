@@ -39,14 +39,15 @@ class RowNotes:
             self._items.append((str(text), mask.copy()))
 
     def texts(self):
-        """One string per row: its statements joined by '; ' ('' for none)."""
+        """One str per row (dtype object): its statements joined by '; ' ('' for none)."""
         if not self._items or self.n == 0:
-            return np.full(self.n, "", dtype=str)
+            return np.full(self.n, "", dtype=object)
         bits = np.stack([mask for _, mask in self._items], axis=1)
         codes, inverse = unique_rows(bits)
         labels = [SEPARATOR.join(text for (text, _), on in zip(self._items, row) if on)
                   for row in codes]
-        return np.array(labels, dtype=str)[inverse]
+        # str objects, one shared per distinct text (fixed width would copy the longest text to every row)
+        return np.array(labels, dtype=object)[inverse]
 
     def counts(self):
         """Statement → number of rows it applies to (for table metadata)."""
