@@ -226,7 +226,18 @@ def _registry():
 
 def builtin_keys():
     """Keys of all built-in passbands, in registry order."""
-    return list(_registry()["key"])
+    return list(_key_tuple())
+
+
+@lru_cache(maxsize=1)
+def _key_tuple():
+    # read from the table column once: name checks ask for the keys thousands of times in a run
+    return tuple(_registry()["key"])
+
+
+@lru_cache(maxsize=1)
+def _key_set():
+    return frozenset(str(k) for k in _key_tuple())
 
 
 #: band names that need their system even though only one built-in band has each
@@ -261,7 +272,7 @@ def is_builtin_name(name):
     """
     old, plain, _ = _names()
     text = str(name)
-    return text in set(builtin_keys()) or text in old or text in plain
+    return text in _key_set() or text in old or text in plain
 
 
 def resolve_key(name):
@@ -290,7 +301,7 @@ def resolve_key(name):
     ('Ks_2MASS', 'g_PS1', 'y_PS1')
     """
     text = str(name)
-    if text in set(builtin_keys()):
+    if text in _key_set():
         return text
     old, plain, ambiguous = _names()
     if text in plain:

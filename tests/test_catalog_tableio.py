@@ -2,6 +2,7 @@
 
 import json
 import os
+from pathlib import Path
 
 import astropy.units as u
 import numpy as np
@@ -201,3 +202,101 @@ def test_parquet_reader_streams_batches(tmp_path):
     reader = ChunkReader(path, chunk_rows=250)
     sizes = [len(c) for c in reader]
     assert reader.num_rows == 1000 and sum(sizes) == 1000 and max(sizes) <= 300
+
+
+HEADER_METAS = [
+    {},
+    {"tool_name": "stelltemp", "rv": 3.1, "n": 7, "ok": True, "none": None},
+    {"big": 1e17, "small": 1e-300, "neg": -2.5e-7, "nan": float("nan"), "inf": float("inf"), "minf": -float("inf"),
+     "zero": 0.0, "negzero": -0.0},
+    {"np": [np.float64(0.1), np.float32(2.5), np.float16(1.0), np.int64(-3), np.uint8(7), np.bool_(False),
+            np.str_("text"), np.intc(4)]},
+    {"quoted": "a: b", "hash": "# not a comment", "multi": "line one\nline two", "unicode": "E(B−V) ≥ 0 Å",
+     "empty": "", "yes": "yes", "number_text": "1.5", "long": "word " * 60},
+    {"nested": {"z": 1, "a": [1, 2, {"k": "v"}], "t": (1, "two", 3.0)}, "list_of_lists": [[1, 2], [3, [4]]]},
+    {3: "int key", "mixed": {1: "a", "b": 2}},
+]
+
+
+@pytest.mark.parametrize("meta", HEADER_METAS)
+def test_parquet_header_text_is_astropys(meta):
+    """The light YAML writer of the Parquet header gives astropy's own text, byte for byte."""
+    from astropy.table import meta as astropy_meta
+
+    arrays = [pa.array([1.5, None]), pa.array(["a", None]), pa.array([1, 2], pa.int64()), pa.array([True, False]),
+              pa.array([1.0, 2.0], pa.float32())]
+    fields = [pa.field("t_bb", pa.float64(), metadata={b"unit": b"K", b"description": b"temperature: fitted"}),
+              pa.field("flag_names", pa.string(), metadata={b"description": b"names, comma separated"}),
+              pa.field("row", pa.int64()), pa.field("good", pa.bool_()),
+              pa.field("fbol", pa.float32(), metadata={b"unit": b"erg / (s cm2)"})]
+    schema = pa.Table.from_arrays(arrays, schema=pa.schema(fields)).schema
+    empty = tableio.arrow_to_astropy(schema.empty_table())
+    empty.meta.update(meta)
+    expected = "\n".join(astropy_meta.get_yaml_from_table(empty))
+    assert tableio.astropy_header(schema, meta) == expected
+    assert tableio._plain_yaml_value({"meta": dict(meta)})  # the light writer made it, not the fallback
+
+
+def test_parquet_header_falls_back_to_astropy_for_other_values():
+    """Values the light writer does not know (a unit, an array) go through astropy's dumper."""
+    from astropy.table import meta as astropy_meta
+
+    schema = pa.schema([pa.field("x", pa.float64())])
+    meta = {"unit": u.K, "array": np.arange(3)}
+    assert not tableio._plain_yaml_value(meta)
+    empty = tableio.arrow_to_astropy(schema.empty_table())
+    empty.meta.update(meta)
+    assert tableio.astropy_header(schema, meta) == "\n".join(astropy_meta.get_yaml_from_table(empty))
+
+
+@pytest.mark.parametrize("data", [np.arange(5.0), np.arange(10.0)[::3], np.arange(4, dtype=np.float32),
+                                  np.arange(6, dtype=np.int64), np.arange(3, dtype=np.uint8),
+                                  np.array([True, False, True, True, False, False, True, False, True]),
+                                  np.array([np.nan, 1.0]), np.zeros(0)])
+def test_numbers_to_arrow_as_pa_array(data):
+    arr = tableio.numpy_to_arrow(data)
+    arr.validate(full=True)
+    same = lambda a, b: a.type == b.type and a.null_count == b.null_count and a.to_string() == b.to_string()  # NaN too
+    assert same(arr, pa.array(data))
+    mask = np.arange(len(data)) % 3 == 0
+    masked = tableio.numpy_to_arrow(data, mask)
+    masked.validate(full=True)
+    assert same(masked, pa.array(data, mask=mask))
+
+
+@pytest.mark.parametrize("data", [np.array(["a", "", "E(B-V) 0.1", "tail  "]), np.array(["x" * 60, "y"])[::-1],
+                                  np.array(["Å, E(B−V)", "plain"]), np.array(["a\x00b", "\x00c", "d"]),
+                                  np.zeros(0, "U3"), np.array(["", ""])])
+def test_text_to_arrow_as_pa_array(data):
+    arr = tableio.text_to_arrow(data)
+    arr.validate(full=True)
+    assert arr.type == pa.string() and arr.equals(pa.array(data, pa.string()))
+
+
+@pytest.mark.parametrize("values", [["fit", None, "colour", "fit", None], [None, None], [], ["one"],
+                                    ["x", float("nan")], ["Å", "b"]])
+def test_objects_to_arrow_as_pa_array(values):
+    data = np.array(values, dtype=object)
+    arr = tableio.objects_to_arrow(data)
+    arr.validate(full=True)
+    assert arr.equals(pa.array(data, pa.string(), from_pandas=True))
+
+
+def test_parquet_run_leaves_heavy_modules_alone(tmp_path):
+    """A Parquet catalogue run imports neither pandas nor scipy.special nor astropy's YAML module.
+
+    Each costs a quarter of a second of a short run (see tests/benchmarks/bench_goals.py, fixed_cost).
+    """
+    import subprocess
+    import sys
+
+    src = tmp_path / "in.parquet"
+    pq.write_table(pa.table({"B_JC": [10.2, 11.0], "V_JC": [9.8, 10.1], "B_JC_err": [0.02, 0.02],
+                             "V_JC_err": [0.02, 0.03], "ebv": [0.1, 0.2]}), src)
+    code = ("import sys; from stelltemp.cli import main; "
+            f"code = main(['catalogue', {str(src)!r}, '-o', {str(tmp_path / 'out.parquet')!r}, '--ebv', 'ebv', "
+            "'--quiet']); heavy = [m for m in ('pandas', 'scipy.special', 'astropy.io.misc.yaml', "
+            "'astropy.coordinates') if m in sys.modules]; print(code, heavy)")
+    env = dict(os.environ, PYTHONPATH=str(Path(tableio.__file__).parents[2]))
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, env=env, check=True)
+    assert done.stdout.strip() == "0 []", done.stdout + done.stderr

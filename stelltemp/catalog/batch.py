@@ -341,10 +341,10 @@ def merge_arrow(chunk, results, names, types=None, input_info=None):
         if coded and name == "flag_names":
             # the names from their dictionary encoding: one string per distinct mask, taken per row
             codes, names_ = F.encode(np.asarray(results["flags"], dtype=np.int64))
-            col = pa.array(list(names_), pa.string()).take(pa.array(codes))
+            col = tableio.text_to_arrow(np.array(list(names_), dtype=str)).take(tableio.numpy_to_arrow(codes))
             f = pa.field(name, pa.string())
         elif name in texts:
-            col = pa.array(np.asarray(results[name]), pa.string(), from_pandas=True)
+            col = tableio.objects_to_arrow(np.asarray(results[name]))
             f = pa.field(name, pa.string())
         else:
             col = right.column(name)

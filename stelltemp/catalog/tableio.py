@@ -61,6 +61,7 @@ from __future__ import annotations
 import codecs
 import contextlib
 import csv
+import functools
 import io
 import json
 import re
@@ -149,6 +150,70 @@ def with_column_info(field, unit=None, description=None):
     return field.with_metadata(meta) if meta else field
 
 
+def numpy_to_arrow(data, mask=None):
+    """An Arrow array of a 1-d numpy array, as ``pa.array(data)`` makes it (``mask``: True where null).
+
+    Numbers and booleans are wrapped from their buffer: ``pa.array`` asks
+    pyarrow's pandas shim about every input, which imports pandas, a quarter
+    of a second of a short run.  Other kinds go to ``pa.array``.
+    """
+    kind = data.dtype.kind
+    if data.ndim != 1 or kind not in "fiub" or not data.dtype.isnative:
+        arr = pa.array(data)
+        return arr if mask is None or not mask.any() else pc.if_else(pa.array(mask), pa.scalar(None, arr.type), arr)
+    n = len(data)
+    valid = None
+    if mask is not None and mask.any():
+        valid = pa.py_buffer(np.packbits(~np.asarray(mask, bool), bitorder="little"))
+    if kind == "b":
+        return pa.Array.from_buffers(pa.bool_(), n, [valid, pa.py_buffer(np.packbits(data, bitorder="little"))])
+    data = np.ascontiguousarray(data)
+    return pa.Array.from_buffers(pa.from_numpy_dtype(data.dtype), n, [valid, pa.py_buffer(data)])
+
+
+def text_to_arrow(data):
+    """An Arrow string array of a 1-d numpy text array (``U``), as ``pa.array(data, pa.string())`` makes it.
+
+    ASCII text is built from its buffer (the reason is `numpy_to_arrow`'s) as
+    fixed-width cells whose NUL padding Arrow trims; text with other
+    characters or with NULs inside goes to ``pa.array``.
+    """
+    width = data.dtype.itemsize // 4
+    if data.ndim != 1 or data.dtype.kind != "U" or not data.dtype.isnative or width == 0 or len(data) == 0:
+        return pa.array(data, type=pa.string())
+    codes = np.ascontiguousarray(data).view(np.uint32)
+    if codes.max() >= 128:
+        return pa.array(data, type=pa.string())
+    cells = pa.Array.from_buffers(pa.binary(width), len(data), [None, pa.py_buffer(codes.astype(np.uint8))])
+    text = pc.utf8_rtrim(cells.cast(pa.string()), characters="\x00")
+    if pc.max(pc.count_substring(text, "\x00")).as_py():  # pa.array ends a cell at its first NUL
+        return pa.array(data, type=pa.string())
+    return text
+
+
+def objects_to_arrow(values):
+    """An Arrow string array of a 1-d object array of ``str`` and ``None``, as
+    ``pa.array(values, pa.string(), from_pandas=True)`` makes it.
+
+    The engine's text columns hold a few shared strings: each distinct value
+    is converted once and taken per row (faster than ``pa.array`` and without
+    its pandas import, see `numpy_to_arrow`).  Anything else goes to ``pa.array``.
+    """
+    index = {}
+    try:
+        codes = np.fromiter((index.setdefault(v, len(index)) for v in values), np.int64, len(values))
+    except TypeError:  # an unhashable value
+        return pa.array(values, pa.string(), from_pandas=True)
+    distinct = list(index)
+    if not all(v is None or type(v) is str for v in distinct):
+        return pa.array(values, pa.string(), from_pandas=True)
+    nulls = np.array([v is None for v in distinct], bool)
+    words = text_to_arrow(np.array(["" if v is None else v for v in distinct], dtype=str))
+    if nulls.any():
+        words = pc.if_else(numpy_to_arrow(nulls), pa.nulls(len(distinct), pa.string()), words)
+    return words.take(numpy_to_arrow(codes))
+
+
 def astropy_to_arrow(table):
     """An astropy Table as a pyarrow Table (units into field metadata)."""
     arrays, fields = [], []
@@ -165,12 +230,12 @@ def astropy_to_arrow(table):
         elif data.dtype.kind == "S":
             arr = pa.array(np.char.decode(data, "utf-8", errors="replace"), type=pa.string())
         elif data.dtype.kind == "U":
-            arr = pa.array(data, type=pa.string())
+            arr = text_to_arrow(data)
         elif data.dtype.kind == "O":
             arr = pa.array([None if v is None else str(v) for v in data], type=pa.string())
         else:
-            arr = pa.array(data)
-        if mask is not None and mask.any():
+            arr = numpy_to_arrow(data, mask)
+        if mask is not None and mask.any() and arr.null_count == 0:
             arr = pc.if_else(pa.array(mask), pa.scalar(None, arr.type), arr)
         meta = {}
         if unit is not None and str(unit):
@@ -190,6 +255,10 @@ def arrow_to_astropy(table):
     out = Table()
     for field, col in zip(table.schema, table.columns):
         unit = unit_of_field(field)
+        empty = _empty_data(field.type) if len(col) == 0 else None
+        if empty is not None:  # (a header's empty table) without to_numpy, which imports pandas
+            out[field.name] = Column(empty, unit=unit, description=description_of_field(field))
+            continue
         nulls = np.asarray(pc.is_null(col.combine_chunks() if isinstance(col, pa.ChunkedArray) else col)
                            .to_numpy(zero_copy_only=False), dtype=bool)  # ChunkedArray.to_numpy imports pandas
         typ = field.type
@@ -212,6 +281,17 @@ def arrow_to_astropy(table):
         else:
             out[field.name] = Column(data, unit=unit, description=description)
     return out
+
+
+def _empty_data(typ):
+    """The zero-length numpy array `arrow_to_astropy` makes of an empty column of type ``typ`` (None: not known)."""
+    if pa.types.is_string(typ) or pa.types.is_large_string(typ):
+        return np.zeros(0, "U1")
+    if pa.types.is_null(typ):
+        return np.zeros(0, np.float64)
+    if pa.types.is_floating(typ) or pa.types.is_integer(typ) or pa.types.is_boolean(typ):
+        return np.zeros(0, typ.to_pandas_dtype())
+    return None
 
 
 def _zero_of(typ):
@@ -972,12 +1052,127 @@ def _is_text(typ):
 
 
 def astropy_header(schema, run_meta):
-    """astropy's YAML table header (as kept in Parquet's ``table_meta_yaml``) for an arrow schema and a run record."""
+    """astropy's YAML table header (as kept in Parquet's ``table_meta_yaml``) for an arrow schema and a run record.
+
+    The text is astropy's (`astropy.table.meta.get_yaml_from_table`), made by
+    `_plain_header_yaml` when the header holds only plain values (the run
+    record and column attributes always do): astropy's own dumper imports
+    ``astropy.io.misc.yaml`` and with it ``astropy.coordinates``, a third of
+    a second of a short run.
+    """
+    from collections import OrderedDict
+
     from astropy.table import meta as astropy_meta
 
-    empty = arrow_to_astropy(schema.empty_table())
+    # the zero-row table from typed empty arrays: ``schema.empty_table()`` imports pandas
+    empty = arrow_to_astropy(pa.Table.from_arrays([pa.nulls(0, f.type) for f in schema], schema=schema))
     empty.meta.update(run_meta)
-    return "\n".join(astropy_meta.get_yaml_from_table(empty))
+    header = {"datatype": [astropy_meta._get_col_attributes(col) for col in empty.columns.values()]}
+    if empty.meta:
+        header["meta"] = OrderedDict(empty.meta)
+    if not _plain_yaml_value(header):
+        return "\n".join(astropy_meta.get_yaml_from_table(empty))
+    return _plain_header_yaml(header)
+
+
+#: scalar types the light writer represents as astropy's YAML dumper does (astropy.io.misc.yaml.AstropyDumper)
+_PLAIN_YAML_SCALARS = frozenset((str, bool, int, float, type(None), np.bool_, np.str_, np.intc, np.intp, np.int8,
+                                 np.int16, np.int32, np.int64, np.uint8, np.uint16, np.uint32, np.uint64,
+                                 np.float16, np.float32, np.float64))
+
+
+def _plain_yaml_value(value):
+    """True if ``value`` holds only dicts, lists, tuples and `_PLAIN_YAML_SCALARS` (no units, arrays, times…)."""
+    from collections import OrderedDict
+
+    from astropy.table.meta import ColumnDict
+
+    if type(value) in (dict, OrderedDict, ColumnDict):
+        return all(_plain_yaml_value(k) and _plain_yaml_value(v) for k, v in value.items())
+    if type(value) in (list, tuple):
+        return all(_plain_yaml_value(v) for v in value)
+    return type(value) in _PLAIN_YAML_SCALARS
+
+
+@functools.lru_cache(maxsize=1)
+def _header_dumper():
+    """A YAML dumper writing plain values exactly as astropy's table-header dumper does.
+
+    Its methods and representers are those of ``AstropyDumper`` (floats by
+    ``str``, numpy scalars, tuples) and of the ``TableDumper`` inside
+    `astropy.table.meta.get_yaml_from_header` (ordered mappings as
+    ``!!omap``, column keys in their own order), astropy 8 (BSD licence);
+    a test compares the two on many headers.
+    """
+    import yaml
+    from collections import OrderedDict
+
+    from astropy.table import meta as astropy_meta
+
+    class HeaderDumper(yaml.SafeDumper):
+        def _represent_tuple(self, data):
+            return self.represent_sequence("tag:yaml.org,2002:python/tuple", data)
+
+        def represent_float(self, data):
+            if data != data or (data == 0.0 and data == 1.0):
+                value = ".nan"
+            elif data == self.inf_value:
+                value = ".inf"
+            elif data == -self.inf_value:
+                value = "-.inf"
+            else:
+                value = str(data).lower()
+                if "." not in value and "e" in value:  # 1e17 is no YAML float; 1.0e17 is
+                    value = value.replace("e", ".0e", 1)
+            return self.represent_scalar("tag:yaml.org,2002:float", value)
+
+        def represent_mapping(self, tag, mapping, flow_style=None):
+            value = []
+            node = yaml.MappingNode(tag, value, flow_style=flow_style)
+            if self.alias_key is not None:
+                self.represented_objects[self.alias_key] = node
+            best_style = True
+            if hasattr(mapping, "items"):
+                mapping = mapping.items()
+                if hasattr(mapping, "sort"):  # astropy's ColumnOrderList: column keys in their own order
+                    mapping.sort()
+                else:
+                    mapping = list(mapping)
+                    try:
+                        mapping = sorted(mapping)
+                    except TypeError:
+                        pass
+            for item_key, item_value in mapping:
+                node_key = self.represent_data(item_key)
+                node_value = self.represent_data(item_value)
+                if not (isinstance(node_key, yaml.ScalarNode) and not node_key.style):
+                    best_style = False
+                if not (isinstance(node_value, yaml.ScalarNode) and not node_value.style):
+                    best_style = False
+                value.append((node_key, node_value))
+            if flow_style is None:
+                node.flow_style = self.default_flow_style if self.default_flow_style is not None else best_style
+            return node
+
+    HeaderDumper.add_representer(tuple, HeaderDumper._represent_tuple)
+    HeaderDumper.add_representer(np.bool_, yaml.representer.SafeRepresenter.represent_bool)
+    HeaderDumper.add_representer(np.str_, yaml.representer.SafeRepresenter.represent_str)
+    for np_type in (np.intc, np.intp, np.int8, np.int16, np.int32, np.int64,
+                    np.uint8, np.uint16, np.uint32, np.uint64):
+        HeaderDumper.add_representer(np_type, yaml.representer.SafeRepresenter.represent_int)
+    for np_type in (np.float16, np.float32, np.float64):
+        HeaderDumper.add_representer(np_type, HeaderDumper.represent_float)
+    HeaderDumper.add_representer(OrderedDict, astropy_meta._repr_odict)
+    HeaderDumper.add_representer(astropy_meta.ColumnDict, astropy_meta._repr_column_dict)
+    return HeaderDumper
+
+
+def _plain_header_yaml(header):
+    """The YAML text astropy writes for a header of plain values (see `_header_dumper`)."""
+    import yaml
+
+    text = yaml.dump(header, default_flow_style=None, Dumper=_header_dumper(), width=130)
+    return "\n".join(text.splitlines())
 
 
 class CsvSink(Sink):

@@ -243,7 +243,7 @@ def goal_fixed_cost(repeats):
 
 
 def goal_tour(repeats):
-    times = []
+    times, refs = [], []
     with tempfile.TemporaryDirectory() as tmp:
         _fresh(["-m", "stelltemp.cli", "tour", "--output", str(Path(tmp) / "prime")], cwd=ROOT)
         for r in range(repeats):
