@@ -322,7 +322,9 @@ def test_sigterm_removes_the_temporary_file(tmp_path):
     out = tmp_path / "o.parquet"
     proc = subprocess.Popen([sys.executable, "-m", "stelltemp.cli", "catalogue", str(inp), "-o", str(out),
                              "--quiet", "--chunk-rows", "20000"], stderr=subprocess.PIPE, text=True,
-                            cwd=ROOT, env={**os.environ, "PYTHONPATH": str(ROOT)})
+                            # numpy kernels: a signal landing while numba loads is a separate case
+                            # (left open, see the speed issue's note)
+                            cwd=ROOT, env={**os.environ, "PYTHONPATH": str(ROOT), "STELLTEMP_JIT": "0"})
     deadline = time.time() + 120
     while time.time() < deadline and not any(p.name.endswith(PART_SUFFIX) for p in tmp_path.iterdir()):
         if proc.poll() is not None:
