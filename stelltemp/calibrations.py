@@ -58,6 +58,7 @@ import numpy as np
 
 from stelltemp.errors import StelltempError
 from stelltemp.passbands import is_builtin_name, resolve_key
+from stelltemp.patterns import distinct_int_rows
 
 #: θ_eff · T_eff (K): the usual scaling of the reciprocal temperature.
 THETA_SCALE = 5040.0
@@ -711,7 +712,7 @@ def coverage_notes(colours, feh=None, logg=None, applied=None):
         # relation fits the class, the numbers as printed): write it once per
         # distinct set of facts instead of once per star
         keys = _note_keys(rels, z, g, assumed, todo)
-        _, first, inverse = np.unique(keys, axis=0, return_index=True, return_inverse=True)
+        first, inverse = distinct_int_rows(keys)
         texts += [_coverage_note(rels, keys[i]) for i in first]
         codes.ravel()[todo] = 2 + inverse.ravel()
     return np.array(texts, dtype=object)[codes]

@@ -13,7 +13,7 @@ import pytest
 
 from stelltemp import bandgrid as bg
 from stelltemp.engine import combine
-from stelltemp.engine.patterns import unique_rows
+from stelltemp.patterns import distinct_int_rows, unique_rows
 
 KEYS5 = ["B_JC", "V_JC", "Ic_JC", "J_2MASS", "Ks_2MASS"]
 
@@ -121,4 +121,17 @@ def test_unique_rows_matches_numpy():
         pats, inv = unique_rows(bits)
         want, want_inv = np.unique(bits, axis=0, return_inverse=True)
         np.testing.assert_array_equal(pats, want)
+        np.testing.assert_array_equal(inv, np.asarray(want_inv).reshape(-1))
+
+
+def test_distinct_int_rows_matches_numpy():
+    rng = np.random.default_rng(4)
+    cases = [rng.integers(-3, 4, (3000, 6)),  # packed into one integer
+             rng.integers(-2**40, 2**40, (3000, 3)),  # too wide to pack: whole-row sort
+             np.zeros((5, 0), np.int64), np.zeros((0, 4), np.int64)]
+    cases[0][:, 2] = 7  # a constant column
+    for keys in cases:
+        first, inv = distinct_int_rows(keys)
+        _, want_first, want_inv = np.unique(keys, axis=0, return_index=True, return_inverse=True)
+        np.testing.assert_array_equal(first, want_first)
         np.testing.assert_array_equal(inv, np.asarray(want_inv).reshape(-1))

@@ -54,7 +54,7 @@ from .. import bandgrid as bg
 from .. import kernels
 from ..calibrations import coverage_notes, relations
 from . import flags as fl
-from .patterns import unique_rows
+from ..patterns import unique_rows
 
 #: Gauss–Newton iterations: each linearises the relations at the current T_eff (and, when
 #: E(B−V) is fitted, re-evaluates the colour excess exactly at the current E(B−V))

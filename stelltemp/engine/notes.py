@@ -20,7 +20,7 @@ Examples
 
 import numpy as np
 
-from .patterns import unique_rows
+from ..patterns import unique_rows
 
 SEPARATOR = "; "
 
