@@ -557,6 +557,8 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
                    est=est, cov=cov, chi2=chi2, ly=ly, lp=lp, c_diag=c_diag, info_known=info_known)
         if it == 0:
             last = dict(now, x=x.copy())  # x0 (the first pass) stays as it is
+        elif rows.size == n:  # every star moved: this pass is the latest of all (no scatter)
+            last = now
         else:
             for name, value in now.items():
                 last[name][rows] = value
