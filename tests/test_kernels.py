@@ -164,3 +164,32 @@ def test_combination_identical_compiled_and_numpy(both, fit_ebv, ebv_err):
     assert np.isfinite(slow.teff).sum() > 200
     for f in FIELDS + ("teff_lo", "teff_hi", "p_value"):
         _same(np.asarray(getattr(fast, f)), np.asarray(getattr(slow, f)))
+
+
+_CACHE_PROBE = """
+import numpy as np
+from stelltemp import kernels
+from stelltemp.engine import estimate
+kernels.MIN_ROWS = 0
+n = 50
+rng = np.random.default_rng(0)
+mags = {"B_JC": 10.6 + rng.normal(0, 0.02, n), "V_JC": np.full(n, 10.0)}
+estimate(mags, ebv=np.full(n, 0.1), ebv_err=0.02)
+jit = kernels.jit_for(1)
+print(sum(len(f.stats.cache_misses) for f in jit.values()), sum(len(f.stats.cache_hits) for f in jit.values()))
+"""
+
+
+def test_a_new_process_loads_the_kernels_from_the_disk_cache(tmp_path):
+    # kernels built inside a function captured their helpers as closure cells, whose pickled
+    # form differs in every process: numba's cache never matched and every run recompiled
+    import os
+    import subprocess
+    import sys
+
+    env = dict(os.environ, NUMBA_CACHE_DIR=str(tmp_path / "numba"))
+    env.pop("STELLTEMP_JIT", None)
+    runs = [subprocess.run([sys.executable, "-c", _CACHE_PROBE], env=env, capture_output=True, text=True,
+                           check=True).stdout.split() for _ in range(2)]
+    misses, hits = (int(v) for v in runs[1])
+    assert misses == 0 and hits >= 3  # the second process compiled nothing

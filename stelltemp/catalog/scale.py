@@ -51,6 +51,7 @@ from stelltemp.catalog.batch import (
     run_catalogue,
     set_up_run,
 )
+from stelltemp.catalog.heap import engine_heap
 from stelltemp.errors import StelltempError
 
 LOCAL_SCHEDULERS = ("threads", "processes", "synchronous")
@@ -165,7 +166,7 @@ def _work(chunks, ctx, tag):
 
     summary = RunSummary(backend="dask")
     path = os.path.join(ctx.part_dir, f"part-{tag:08d}.arrow")
-    with pa.OSFile(path, "wb") as fh, pa.ipc.new_file(fh, ctx.out_schema) as writer:
+    with engine_heap(), pa.OSFile(path, "wb") as fh, pa.ipc.new_file(fh, ctx.out_schema) as writer:
         for chunk, notes in chunks:
             chunk = chunk.rename_columns(list(ctx.colnames))
             if ctx.old:  # an earlier run's result columns, recomputed (--renew-results)
