@@ -351,4 +351,118 @@ def _build(numba):
                     for q2 in range(p):
                         cov[k, q, q2] = np.nan
 
-    return {"invert_cells": invert_cells, "evaluate_cells": evaluate_cells, "combine_cells": combine_cells}
+    @njit(inline="always")
+    def poly(coef, pows, counts, d, x, z, g):
+        """Row d of a packed relation's polynomial at one star: `Relation._poly`, term by term."""
+        out = 0.0
+        for i in range(counts[d]):
+            term = coef[d, i]
+            e = pows[d, i, 0]
+            if e:
+                pw = x
+                for _ in range(e - 1):
+                    pw = pw * x
+                term = term * pw
+            e = pows[d, i, 1]
+            if e:
+                pw = z
+                for _ in range(e - 1):
+                    pw = pw * z
+                term = term * pw
+            e = pows[d, i, 2]
+            if e:
+                pw = g
+                for _ in range(e - 1):
+                    pw = pw * g
+                term = term * pw
+            out = out + term
+        return out
+
+    @njit(inline="always")
+    def relation_at(x, z, g, form, bounds, needs_logg, coef, pows, counts, xs, ts, slopes):
+        """T_eff, ∂T/∂X, ∂T/∂[Fe/H] and inside of one packed relation at one star (`Relation.at`)."""
+        nan = np.nan
+        inside = x >= bounds[0] and x <= bounds[1] and z >= bounds[2] and z <= bounds[3]
+        if needs_logg:
+            inside = inside and g >= bounds[4] and g < bounds[5]
+        if not inside:
+            return nan, nan, nan, False
+        floor = bounds[6]
+        if form == 2:  # table: linear in the nodes (np.interp's formula), exact at the nodes
+            n = xs.size
+            xc = x
+            if xc < xs[0]:
+                xc = xs[0]
+            elif xc > xs[n - 1]:
+                xc = xs[n - 1]
+            lo = 0  # the last node at or below xc (searchsorted, side="right", minus one)
+            hi = n
+            while hi - lo > 1:
+                mid = (lo + hi) >> 1
+                if xs[mid] <= xc:
+                    lo = mid
+                else:
+                    hi = mid
+            seg = min(lo, n - 2)
+            t = ts[lo] if xs[lo] == xc else slopes[seg] * (xc - xs[seg]) + ts[seg]
+            return t, slopes[seg], 0.0, True
+        ze = z if z >= floor else floor
+        p = poly(coef, pows, counts, 0, x, ze, g)
+        p_x = poly(coef, pows, counts, 1, x, ze, g)
+        p_z = poly(coef, pows, counts, 2, x, ze, g)
+        scale = bounds[7]
+        if form == 0:  # θ = scale / T
+            t = scale / p
+            p2 = p * p
+            d_x = -scale * p_x / p2
+            d_z = -scale * p_z / p2
+            ok = p > 0.0
+        else:
+            t = scale * p
+            d_x = scale * p_x
+            d_z = scale * p_z
+            ok = t > 0.0
+        if not ok:
+            return nan, nan, nan, False
+        if z < floor:  # held at the floor: no [Fe/H] dependence
+            d_z = 0.0
+        return t, d_x, d_z, True
+
+    @njit
+    def relation_cells(x, z, g, form, bounds, needs_logg, coef, pows, counts, xs, ts, slopes,
+                       t, d_x, d_z, inside):
+        for k in range(x.size):
+            t[k], d_x[k], d_z[k], inside[k] = relation_at(x[k], z[k], g[k], form, bounds, needs_logg,
+                                                          coef, pows, counts, xs, ts, slopes)
+
+    @njit
+    def linearise_relation(x, t_hat, z, g, used, steps, form, bounds, needs_logg, coef, pows, counts,
+                           xs, ts, slopes, y, s, gz):
+        lo = bounds[0]
+        hi = bounds[1]
+        for k in range(x.size):
+            target = t_hat[k]
+            if not (used[k] and np.isfinite(target)):
+                continue
+            xm = x[k]
+            xm = lo if xm < lo else (hi if xm > hi else xm)
+            done = False
+            for _ in range(steps):
+                ti, si, gi, ok = relation_at(xm, z[k], g[k], form, bounds, needs_logg, coef, pows, counts,
+                                             xs, ts, slopes)
+                step = xm + (target - ti) / si
+                step = lo if step < lo else (hi if step > hi else step)
+                if step == xm:  # an exact fixed point: the evaluation just made is the final one
+                    done = True
+                    break
+                xm = step
+            if not done:
+                ti, si, gi, ok = relation_at(xm, z[k], g[k], form, bounds, needs_logg, coef, pows, counts,
+                                             xs, ts, slopes)
+            if ok and abs(ti - target) < 0.5 and np.isfinite(si):
+                y[k] = target + si * (x[k] - xm)
+                s[k] = si
+                gz[k] = gi if np.isfinite(gi) else 0.0
+
+    return {"invert_cells": invert_cells, "evaluate_cells": evaluate_cells, "combine_cells": combine_cells,
+            "relation_cells": relation_cells, "linearise_relation": linearise_relation}

@@ -1,5 +1,7 @@
 """Tests of the empirical colour–T_eff relations (stelltemp.calibrations)."""
 
+import functools
+import operator
 import shutil
 
 import numpy as np
@@ -673,8 +675,14 @@ def test_relations_command_uses_the_combination(capsys):
 
 
 def test_polynomial_with_kept_powers_equals_the_plain_formula():
-    """`Relation._poly` keeps powers between value and derivatives: the bits of Σ c X^p Z^q G^r as written."""
+    """`Relation._poly` keeps powers between value and derivatives: the bits of Σ c X^p Z^q G^r as written.
+
+    Powers are repeated products from the left (X³ = X·X·X), never ``**``.
+    """
     rng = np.random.default_rng(1)
+
+    def pw(base, e):
+        return functools.reduce(operator.mul, [base] * e) if e else 1.0
 
     def plain(rel, x, z, g, dx=0, dz=0):
         out = np.zeros(np.broadcast(x, z, g).shape)
@@ -685,7 +693,7 @@ def test_polynomial_with_kept_powers_equals_the_plain_formula():
             if dz:
                 k, q = k * q, q - 1
             if k != 0.0:
-                out = out + k * x**p * z**q * (g**r if r else 1.0)
+                out = out + k * pw(x, p) * pw(z, q) * pw(g, r)
         return out
 
     polys = [rel for rel in cal.relations() if rel.form != "table"]
