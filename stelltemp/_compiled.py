@@ -12,6 +12,8 @@ every Dask worker).
 import numba
 import numpy as np
 
+from .kernels import BLOCK
+
 _OPTIONS = dict(cache=True, nogil=True, error_model="numpy", fastmath=False)
 
 
@@ -283,4 +285,180 @@ def combine_cells(s, g, used, var_m, blue, red, same, scatter, feh_var, a, v, y,
                     cov[k, q, q2] = np.nan
 
 
-KERNELS = {"invert_cells": invert_cells, "evaluate_cells": evaluate_cells, "combine_cells": combine_cells}
+@_njit()
+def relation_block(x, z, g, m, form, bounds, needs_logg, coef, pows, counts, xs, ts, slopes,
+                   xp, zp, gp, t, d_x, d_z, ok):
+    """`Relation.at` for the first m stars of a block, term by term over the block.
+
+    The same operations per star as `Relation._evaluate` (a power factor
+    X⁰ is a product with an exact 1.0, which changes no bit), but each
+    term's loop runs over the stars, in registers and vector lanes.
+    """
+    nan = np.nan
+    floor = bounds[6]
+    scale = bounds[7]
+    if form == 2:  # table: linear in the nodes (np.interp's formula), exact at the nodes
+        n = xs.size
+        for j in range(m):
+            xc = x[j]
+            if not (xc >= bounds[0] and xc <= bounds[1]):
+                continue  # outside: NaN below, no search
+            xc = xs[0] if xc < xs[0] else (xs[n - 1] if xc > xs[n - 1] else xc)
+            # branch-free search: the last node at or below xc (searchsorted "right", minus one)
+            lo = 0
+            span = n
+            while span > 1:
+                half = span >> 1
+                lo += half * (xs[lo + half] <= xc)
+                span -= half
+            seg = min(lo, n - 2)
+            t[j] = ts[lo] if xs[lo] == xc else slopes[seg] * (xc - xs[seg]) + ts[seg]
+            d_x[j] = slopes[seg]
+            d_z[j] = 0.0
+    else:
+        for j in range(m):
+            ze = z[j] if z[j] >= floor else floor  # the paper's floor (−inf: none)
+            xp[0, j] = 1.0
+            xp[1, j] = x[j]
+            zp[0, j] = 1.0
+            zp[1, j] = ze
+            gp[0, j] = 1.0
+            gp[1, j] = g[j]
+        # powers as repeated products, as `Relation._poly` forms them: x³ = (x·x)·x
+        for e in range(2, xp.shape[0]):
+            for j in range(m):
+                xp[e, j] = xp[e - 1, j] * xp[1, j]
+        for e in range(2, zp.shape[0]):
+            for j in range(m):
+                zp[e, j] = zp[e - 1, j] * zp[1, j]
+        for e in range(2, gp.shape[0]):
+            for j in range(m):
+                gp[e, j] = gp[e - 1, j] * gp[1, j]
+        for d in range(3):
+            acc = t if d == 0 else (d_x if d == 1 else d_z)
+            for j in range(m):
+                acc[j] = 0.0
+            for i in range(counts[d]):
+                c = coef[d, i]
+                a = pows[d, i, 0]
+                b = pows[d, i, 1]
+                r = pows[d, i, 2]
+                for j in range(m):
+                    acc[j] = acc[j] + c * xp[a, j] * zp[b, j] * gp[r, j]
+        for j in range(m):
+            p = t[j]
+            if form == 0:  # θ = scale / T
+                p2 = p * p
+                t[j] = scale / p
+                d_x[j] = -scale * d_x[j] / p2
+                d_z[j] = -scale * d_z[j] / p2
+                ok[j] = p > 0.0
+            else:
+                t[j] = scale * p
+                d_x[j] = scale * d_x[j]
+                d_z[j] = scale * d_z[j]
+                ok[j] = t[j] > 0.0
+    for j in range(m):
+        xj = x[j]
+        zj = z[j]
+        inside = xj >= bounds[0] and xj <= bounds[1] and zj >= bounds[2] and zj <= bounds[3]
+        if needs_logg:
+            inside = inside and g[j] >= bounds[4] and g[j] < bounds[5]
+        if form != 2:
+            inside = inside and ok[j]
+        ok[j] = inside
+        if not inside:
+            t[j] = nan
+            d_x[j] = nan
+            d_z[j] = nan
+        elif zj < floor:  # held at the floor: no [Fe/H] dependence
+            d_z[j] = 0.0
+
+@_njit()
+def relation_scratch(coef_pows, m):
+    """Blocks of the powers of X, [Fe/H] and log g that a relation's terms use."""
+    top = np.ones(3, np.int64)
+    for d in range(coef_pows.shape[0]):
+        for i in range(coef_pows.shape[1]):
+            for v in range(3):
+                top[v] = max(top[v], coef_pows[d, i, v])
+    return np.empty((top[0] + 1, m)), np.empty((top[1] + 1, m)), np.empty((top[2] + 1, m))
+
+@_njit()
+def relation_cells(x, z, g, form, bounds, needs_logg, coef, pows, counts, xs, ts, slopes,
+                   t, d_x, d_z, inside):
+    n = x.size
+    xp, zp, gp = relation_scratch(pows, BLOCK)
+    for k0 in range(0, n, BLOCK):
+        m = min(BLOCK, n - k0)
+        relation_block(x[k0:k0 + m], z[k0:k0 + m], g[k0:k0 + m], m, form, bounds, needs_logg, coef, pows,
+                       counts, xs, ts, slopes, xp, zp, gp, t[k0:k0 + m], d_x[k0:k0 + m], d_z[k0:k0 + m],
+                       inside[k0:k0 + m])
+
+@_njit()
+def linearise_relation(x, t_hat, z, g, used, steps, form, bounds, needs_logg, coef, pows, counts,
+                       xs, ts, slopes, y, s, gz):
+    lo = bounds[0]
+    hi = bounds[1]
+    xp, zp, gp = relation_scratch(pows, BLOCK)
+    # a block of stars to invert: where each came from, its colour now and its inputs
+    where = np.empty(BLOCK, np.intp)
+    xm, zb, gb, tb = np.empty(BLOCK), np.empty(BLOCK), np.empty(BLOCK), np.empty(BLOCK)
+    at_t, at_s, at_g, at_ok = np.empty(BLOCK), np.empty(BLOCK), np.empty(BLOCK), np.empty(BLOCK, np.bool_)
+    # per star of the block (by its first slot): the final colour and evaluation
+    fin_x, fin_t, fin_s, fin_g = np.empty(BLOCK), np.empty(BLOCK), np.empty(BLOCK), np.empty(BLOCK)
+    fin_ok = np.empty(BLOCK, np.bool_)
+    slot = np.empty(BLOCK, np.intp)
+    n = x.size
+    k = 0
+    while k < n:
+        m = 0
+        while k < n and m < BLOCK:
+            if used[k] and np.isfinite(t_hat[k]):
+                where[m] = k
+                v = x[k]
+                xm[m] = lo if v < lo else (hi if v > hi else v)
+                zb[m] = z[k]
+                gb[m] = g[k]
+                tb[m] = t_hat[k]
+                slot[m] = m
+                m += 1
+            k += 1
+        total = m
+        for _ in range(steps):
+            if m == 0:
+                break
+            relation_block(xm, zb, gb, m, form, bounds, needs_logg, coef, pows, counts, xs, ts, slopes,
+                           xp, zp, gp, at_t, at_s, at_g, at_ok)
+            # keep the stars still moving at the front; an exact fixed point ends a star's steps
+            # with the evaluation just made
+            keep = 0
+            for j in range(m):
+                step = xm[j] + (tb[j] - at_t[j]) / at_s[j]
+                step = lo if step < lo else (hi if step > hi else step)
+                if step == xm[j]:
+                    q = slot[j]
+                    fin_x[q], fin_t[q], fin_s[q], fin_g[q], fin_ok[q] = xm[j], at_t[j], at_s[j], at_g[j], at_ok[j]
+                else:
+                    slot[keep], xm[keep], zb[keep], gb[keep], tb[keep] = slot[j], step, zb[j], gb[j], tb[j]
+                    keep += 1
+            m = keep
+        if m:
+            relation_block(xm, zb, gb, m, form, bounds, needs_logg, coef, pows, counts, xs, ts, slopes,
+                           xp, zp, gp, at_t, at_s, at_g, at_ok)
+            for j in range(m):
+                q = slot[j]
+                fin_x[q], fin_t[q], fin_s[q], fin_g[q], fin_ok[q] = xm[j], at_t[j], at_s[j], at_g[j], at_ok[j]
+        for q in range(total):
+            kk = where[q]
+            target = t_hat[kk]
+            si = fin_s[q]
+            if fin_ok[q] and abs(fin_t[q] - target) < 0.5 and np.isfinite(si):
+                y[kk] = target + si * (x[kk] - fin_x[q])
+                s[kk] = si
+                gi = fin_g[q]
+                gz[kk] = gi if np.isfinite(gi) else 0.0
+
+
+KERNELS = {"invert_cells": invert_cells, "evaluate_cells": evaluate_cells, "combine_cells": combine_cells,
+           "relation_cells": relation_cells, "linearise_relation": linearise_relation}

@@ -56,6 +56,7 @@ from pathlib import Path
 
 import numpy as np
 
+from stelltemp import kernels
 from stelltemp.errors import StelltempError
 from stelltemp.passbands import is_builtin_name, resolve_key
 from stelltemp.patterns import distinct_int_rows
@@ -241,6 +242,43 @@ class Relation:
     def _powers(self):
         return tuple(parse_term(t) for t in self.terms)
 
+    @functools.cached_property
+    def _packed(self):
+        """The relation as plain arrays, for `kernels.relation_cells` (packed once).
+
+        ``(form, bounds, coef, pows, counts, xs, ts, slopes)``: the form's
+        index in `FORMS`; ``bounds`` = colour, [Fe/H] and log g ranges, the
+        [Fe/H] floor (−inf if none) and the scale; then for the value, ∂/∂X
+        and ∂/∂[Fe/H] (rows 0, 1, 2) the nonzero coefficients of `_poly`
+        (derivative factors applied) and their powers of X, [Fe/H] and
+        log g; then the table's nodes and the slopes of its segments.
+        """
+        bounds = np.array([*self.colour_range, *self.feh_range, *self.logg_range,
+                           -np.inf if self.feh_floor is None else self.feh_floor, self.scale], float)
+        rows = []
+        for dx, dz in ((0, 0), (1, 0), (0, 1)):  # the loop of `_poly`, its zero terms left out
+            row = []
+            for c, (p, q, r) in zip(self.coeffs, self._powers):
+                k = c
+                if dx:
+                    k, p = k * p, p - 1
+                if dz:
+                    k, q = k * q, q - 1
+                if k != 0.0:
+                    row.append((k, p, q, r))
+            rows.append(row)
+        width = max(len(row) for row in rows)
+        coef = np.zeros((3, width))
+        pows = np.zeros((3, width, 3), np.int64)
+        for d, row in enumerate(rows):
+            for i, (k, *pqr) in enumerate(row):
+                coef[d, i] = k
+                pows[d, i] = pqr
+        counts = np.array([len(row) for row in rows], np.int64)
+        xs, ts = (np.asarray(v, float) for v in self.nodes) if self.form == "table" else (np.zeros(2),) * 2
+        slopes = np.diff(ts) / np.diff(xs) if self.form == "table" else np.zeros(1)
+        return FORMS.index(self.form), bounds, coef, pows, counts, xs, ts, slopes
+
     @property
     def needs_logg(self):
         """True when the formula has log g terms: it applies only to stars with a given log g."""
@@ -276,13 +314,17 @@ class Relation:
 
         ``powers`` (a dict) keeps each power of x, z and g between the calls
         of one evaluation; a factor X⁰ (exactly 1) is not multiplied in, so
-        the sum has the same bits as the plain formula.
+        the sum has the same bits as the plain formula.  Integer powers are
+        repeated products in a fixed order (x² = x·x, x³ = x²·x …), not
+        ``x**e``, whose rounding for e ≥ 3 depends on the library (numpy,
+        its SIMD paths on another CPU, the compiled kernel): the compiled
+        twin (`kernels.relation_cells`) forms them the same way.
         """
         powers = {} if powers is None else powers
 
         def power(name, base, e):
             if (name, e) not in powers:
-                powers[name, e] = base**e
+                powers[name, e] = base if e == 1 else power(name, base, e - 1) * base
             return powers[name, e]
 
         out = np.zeros(np.broadcast(x, z, g).shape)
@@ -306,19 +348,21 @@ class Relation:
         """(T_eff, ∂T/∂X, ∂T/∂Z, valid) at colour x, evaluation [Fe/H] z and log g g."""
         with np.errstate(divide="ignore", invalid="ignore"):
             if self.form == "table":
-                xs, ts = (np.asarray(v, float) for v in self.nodes)
+                _, _, _, _, _, xs, ts, slopes = self._packed
                 xc = np.clip(np.where(np.isfinite(x), x, xs[0]), xs[0], xs[-1])
-                t = np.interp(xc, xs, ts)
-                seg = np.clip(np.searchsorted(xs, xc, side="right") - 1, 0, len(xs) - 2)
-                d_x = (ts[seg + 1] - ts[seg]) / (xs[seg + 1] - xs[seg])
-                return t, d_x, np.zeros_like(t), np.isfinite(x)
+                j = np.searchsorted(xs, xc, side="right") - 1  # xs[j] ≤ xc < xs[j + 1]
+                seg = np.minimum(j, len(xs) - 2)
+                # np.interp's formula, its product and sum rounded one at a time (as the
+                # compiled twin does), exact at the nodes and at the top end
+                t = np.where(xs[j] == xc, ts[j], slopes[seg] * (xc - xs[seg]) + ts[seg])
+                return t, slopes[seg], np.zeros_like(t), np.isfinite(x)
             powers = {}
             p = self._poly(x, z, g, powers=powers)
             p_x = self._poly(x, z, g, dx=1, powers=powers)
             p_z = self._poly(x, z, g, dz=1, powers=powers)
             if self.form == "theta":
                 t = self.scale / p
-                p2 = p**2
+                p2 = p * p
                 return t, -self.scale * p_x / p2, -self.scale * p_z / p2, p > 0.0
             t = self.scale * p
             return t, self.scale * p_x, self.scale * p_z, t > 0.0
@@ -409,6 +453,9 @@ class Relation:
         >>> round(float(t)), bool(dx < 0), bool(ok)
         (5755, True, True)
         """
+        jit = kernels.jit_for(np.size(colour))
+        if jit is not None:
+            return self._at_compiled(jit, colour, feh, logg)
         x, z, z_eval, g, inside = self._prepare(colour, feh, logg)
         t, d_x, d_z, valid = self._evaluate(x, z_eval, g)
         inside = inside & valid
@@ -416,6 +463,27 @@ class Relation:
             d_z = np.where(z < self.feh_floor, 0.0, d_z)
         return (np.where(inside, t, np.nan), np.where(inside, d_x, np.nan),
                 np.where(inside, d_z, np.nan), inside)
+
+    def _at_compiled(self, jit, colour, feh, logg):
+        """`at` by `kernels.relation_cells`: the same bits, one pass per star."""
+        x = _float_array(colour, "colour")
+        z = _float_array(DEFAULT_FEH if feh is None else feh, "[Fe/H]")
+        g = _float_array(np.nan if logg is None else logg, "log g")
+        try:
+            shape = np.broadcast_shapes(x.shape, z.shape, g.shape)
+        except ValueError:
+            raise StelltempError(
+                f"{self.key}: colour shape {x.shape}, [Fe/H] shape {z.shape} and log g shape "
+                f"{g.shape} do not match") from None
+        x, z, g = (np.ascontiguousarray(np.broadcast_to(v, shape)).ravel() for v in (x, z, g))
+        out = tuple(np.empty(x.size) for _ in range(3)) + (np.empty(x.size, bool),)
+        jit["relation_cells"](x, z, g, *self._kernel_args, *out)
+        return tuple(v.reshape(shape) for v in out)
+
+    @functools.cached_property
+    def _kernel_args(self):
+        form, bounds, coef, pows, counts, xs, ts, slopes = self._packed
+        return form, bounds, self.needs_logg, coef, pows, counts, xs, ts, slopes
 
     def applies_to(self, logg=None):
         """Whether the relation's luminosity class fits each star.

@@ -3,8 +3,8 @@
 Large arrays go through loops compiled by numba (one pass per star, all
 its steps kept in registers); small calls, and every call when numba is
 missing or ``STELLTEMP_JIT=0`` is set, run the numpy code beside each
-kernel.  Both compute the same thing: ``tests/test_kernels.py`` checks
-that they agree to rounding.
+kernel.  Both compute the same thing in the same order of operations:
+``tests/test_kernels.py`` checks that they agree bit for bit.
 
 numba is imported only by the first call with at least `MIN_ROWS` stars
 (later calls of any size then use the kernels too), and compiles with ``cache=True`` (machine code kept in numba's cache folder
@@ -24,6 +24,18 @@ The kernels
     :mod:`stelltemp.engine.combine` per star: the relations' covariance,
     its Cholesky factor and the generalised least squares estimate (the
     twin of ``combine._combine_pass``, in the same order of operations).
+`relation_cells`
+    One empirical colour–T_eff relation at many stars: T_eff, ∂T/∂X,
+    ∂T/∂[Fe/H] and whether it applies (the twin of ``Relation.at``, from the
+    arrays of ``Relation._packed``).
+`linearise_relation`
+    The Newton inversion of one relation at each star's current T_eff and
+    the linearised pseudo-observation there (the twin of
+    ``combine._linearise_at``, one call per relation).
+
+The relation kernels work on blocks of `BLOCK` stars, one term of the
+polynomial at a time across the block, so the loops over stars vectorise;
+every star still gets the operations of the numpy code in its order.
 """
 
 import os
@@ -34,6 +46,8 @@ import numpy as np
 MIN_ROWS = 20_000
 #: Newton steps inside a cell, from the linear guess: ~1e-4 → 1e-8 → 1e-16 in t
 NEWTON_STEPS = 4
+#: stars per block of the relation kernels (their powers and sums stay in the cache)
+BLOCK = 256
 
 _state = {"jit": None}  # the compiled functions once loaded, False if unavailable
 

@@ -1,5 +1,7 @@
 """Tests of the empirical colour–T_eff relations (stelltemp.calibrations)."""
 
+import functools
+import operator
 import shutil
 
 import numpy as np
@@ -673,8 +675,14 @@ def test_relations_command_uses_the_combination(capsys):
 
 
 def test_polynomial_with_kept_powers_equals_the_plain_formula():
-    """`Relation._poly` keeps powers between value and derivatives: the bits of Σ c X^p Z^q G^r as written."""
+    """`Relation._poly` keeps powers between value and derivatives: the bits of Σ c X^p Z^q G^r as written.
+
+    Powers are repeated products from the left (X³ = X·X·X), never ``**``.
+    """
     rng = np.random.default_rng(1)
+
+    def pw(base, e):
+        return functools.reduce(operator.mul, [base] * e) if e else 1.0
 
     def plain(rel, x, z, g, dx=0, dz=0):
         out = np.zeros(np.broadcast(x, z, g).shape)
@@ -685,7 +693,7 @@ def test_polynomial_with_kept_powers_equals_the_plain_formula():
             if dz:
                 k, q = k * q, q - 1
             if k != 0.0:
-                out = out + k * x**p * z**q * (g**r if r else 1.0)
+                out = out + k * pw(x, p) * pw(z, q) * pw(g, r)
         return out
 
     polys = [rel for rel in cal.relations() if rel.form != "table"]
@@ -697,3 +705,27 @@ def test_polynomial_with_kept_powers_equals_the_plain_formula():
         for rel in polys:
             for d in ((0, 0), (1, 0), (0, 1)):
                 assert np.array_equal(rel._poly(x, z, g, *d), plain(rel, x, z, g, *d), equal_nan=True), rel.key
+
+
+def test_table_form_is_np_interp_at_nodes_between_ends_and_outside():
+    """The tabulated sequences: np.interp's bits (product and sum rounded apart), the segment slope."""
+    rng = np.random.default_rng(2)
+    tables = [rel for rel in cal.relations() if rel.form == "table"]
+    assert len(tables) >= 5
+    for rel in tables:
+        xs, ts = (np.asarray(v, float) for v in rel.nodes)
+        mid = (xs[1:] + xs[:-1]) / 2
+        between = rng.uniform(xs[0], xs[-1], 500)
+        x = np.concatenate([xs, mid, between, [xs[0], xs[-1], np.nextafter(xs[-1], -np.inf)]])
+        t, d_x, d_z, inside = rel.at(x, 0.0)
+        # colour ranges equal the node span: every one of these points is inside
+        assert inside.all(), rel.key
+        assert np.array_equal(t, np.interp(x, xs, ts)), rel.key
+        assert np.array_equal(t[:xs.size], ts), rel.key  # the nodes exactly, the top end too
+        seg = np.clip(np.searchsorted(xs, x, side="right") - 1, 0, xs.size - 2)
+        assert np.array_equal(d_x, (ts[seg + 1] - ts[seg]) / (xs[seg + 1] - xs[seg])), rel.key
+        assert np.all(d_z == 0.0)
+        out = np.array([np.nextafter(xs[0], -np.inf), xs[0] - 1.0, np.nextafter(xs[-1], np.inf),
+                        xs[-1] + 1.0, np.nan, np.inf])
+        t, d_x, d_z, inside = rel.at(out, 0.0)
+        assert not inside.any() and np.isnan(t).all() and np.isnan(d_x).all(), rel.key

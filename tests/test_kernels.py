@@ -193,3 +193,90 @@ def test_a_new_process_loads_the_kernels_from_the_disk_cache(tmp_path):
                            check=True).stdout.split() for _ in range(2)]
     misses, hits = (int(v) for v in runs[1])
     assert misses == 0 and hits >= 3  # the second process compiled nothing
+
+
+def _relation_inputs(rel, n, rng):
+    """Colours spanning the relation's range and beyond, [Fe/H] below its floor, log g of every kind."""
+    lo, hi = rel.colour_range
+    width = hi - lo
+    x = rng.uniform(lo - 0.3 * width, hi + 0.3 * width, n)
+    x[::41] = np.nan
+    x[1::53], x[2::53] = lo, hi  # the range's own ends (inclusive)
+    if rel.form == "table":  # exactly at the nodes, and halfway between them
+        xs = np.asarray(rel.nodes[0])
+        x[3::7] = rng.choice(xs, x[3::7].size)
+        x[4::7] = rng.choice((xs[1:] + xs[:-1]) / 2, x[4::7].size)
+    f_lo, f_hi = rel.feh_range
+    z = rng.uniform(f_lo - 0.5, f_hi + 0.5, n)
+    if rel.feh_floor is not None:
+        z[5::9] = rng.uniform(f_lo, rel.feh_floor, z[5::9].size)  # held at the floor
+        z[6::97] = rel.feh_floor
+    z[::37] = np.nan
+    g = rng.choice([np.nan, 1.0, 2.0, 2.999, 3.0, 3.5, 4.4, 5.5], n)  # unknown, giant, dwarf, edges
+    return x, z, g
+
+
+def test_every_relation_identical_compiled_and_numpy(both):
+    """`Relation.at` compiled and in numpy: the same bits on every branch of every relation."""
+    from stelltemp import calibrations as cal
+
+    rng = np.random.default_rng(8)
+    rels = cal.relations()
+    assert {rel.form for rel in rels} == set(cal.FORMS)
+    for rel in rels:
+        x, z, g = _relation_inputs(rel, 4000, rng)
+        fast, slow = both(rel.at, x, z, g)
+        for a, b in zip(fast, slow):
+            _same(a, b)
+        t, _, d_z, inside = slow
+        assert inside.any() and (~inside).any(), rel.key
+        assert np.isnan(t[~inside]).all() and np.isfinite(t[inside]).all(), rel.key
+        if rel.feh_floor is not None:
+            held = inside & (z < rel.feh_floor)
+            assert held.any() and np.all(d_z[held] == 0.0), rel.key
+        if rel.needs_logg:
+            assert not inside[np.isnan(g)].any(), rel.key
+
+
+def test_compiled_relation_keeps_shapes_and_scalars(both):
+    """Broadcast inputs and scalars come back in numpy's shapes and types from the kernel too."""
+    from stelltemp import calibrations as cal
+
+    rel = cal.get_relation("c10_vk")
+    colours = np.linspace(0.5, 3.5, 12).reshape(3, 4)
+    fast, slow = both(rel.at, colours, np.array([[-4.0], [0.0], [0.3]]), None)
+    for a, b in zip(fast, slow):
+        _same(a, b)
+    fast, slow = both(rel.at, 1.56, 0.0)
+    for a, b in zip(fast, slow):
+        assert isinstance(a, np.ndarray) and a.shape == ()
+        _same(a, b)
+
+
+def test_linearise_identical_compiled_and_numpy(both):
+    """The Newton inversion at the current T_eff: compiled per star, the numpy steps' bits."""
+    from stelltemp import calibrations as cal
+    from stelltemp.engine import combine
+
+    rng = np.random.default_rng(9)
+    n = 3000
+    moved = kept = 0
+    for rel in cal.relations():
+        setup = combine._Setup([rel.blue, rel.red], [rel])
+        x, z, g = _relation_inputs(rel, n, rng)
+        t, s, gz, inside = rel.at(x, z, g)
+        used = inside & np.isfinite(s)
+        y = np.where(used, t, np.nan)[:, None]
+        s = np.where(used, s, 0.0)[:, None]
+        gz = np.where(used & np.isfinite(gz), gz, 0.0)[:, None]
+        # the current estimate: at the colour's own T_eff (an exact fixed point at once),
+        # near it, far off (out of the relation's range) or unknown
+        t_hat = np.where(np.isfinite(t), t, 5000.0) * rng.choice([1.0, 0.99, 1.03, 1.3, 0.5, np.nan], n)
+        args = (setup, t_hat, x[:, None], y, s, gz, used[:, None], np.where(np.isfinite(z), z, 0.0), g)
+        fast, slow = both(combine._linearise_at, *args)
+        for a, b in zip(fast, slow):
+            _same(a, b)
+        changed = used & (slow[1][:, 0] != s[:, 0])
+        moved += changed.sum()
+        kept += (used & ~changed & (t_hat != t)).sum()
+    assert moved > 10_000 and kept > 1000  # both outcomes exercised: linearised and kept

@@ -243,6 +243,12 @@ def _linearise_at(setup, t_hat, x, y, s, g, used, feh, logg):
     relation's range, the observed-colour values are kept.
     """
     y, s, g = y.copy(), s.copy(), g.copy()
+    jit = kernels.jit_for(len(t_hat))
+    if jit is not None:  # the same steps per star, compiled (the same bits)
+        for i, rel in enumerate(setup.rels):
+            jit["linearise_relation"](x[:, i], t_hat, feh, logg, used[:, i], _INVERSE_STEPS,
+                                      *rel._kernel_args, y[:, i], s[:, i], g[:, i])
+        return y, s, g
     for i, rel in enumerate(setup.rels):
         rows = np.nonzero(used[:, i] & np.isfinite(t_hat))[0]
         if rows.size == 0:
