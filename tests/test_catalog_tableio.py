@@ -135,6 +135,25 @@ def test_csv_duplicate_names_comments_and_bad_lines(tmp_path):
     assert any("2 CSV line(s) with a wrong number of fields kept as flagged rows" in n for n in reader.notes)
 
 
+def test_malformed_lines_of_a_later_block_stay_in_place(tmp_path):
+    # the parser reports the bad lines of the block it reads ahead while the block before is
+    # handed out: those rows belong to the next chunk, not to the end of this one
+    n = 100_000  # invented rows, about 2.6 MB: several blocks of at least 1 MB
+    lines = ["id,V_JC,x"] + [f"{k},{10 + k % 700 / 100:.4f},{k % 3}.123456" for k in range(n)]
+    lines[45_001] = "45000,12.0"
+    lines[80_001] = "80000,11.0,2,extra"
+    path = tmp_path / "in.csv"
+    path.write_text("\n".join(lines) + "\n")
+    reader = ChunkReader(path, chunk_rows=100)
+    ids, notes = [], []
+    for chunk in reader:
+        notes += [(len(ids) + row, text) for row, text, _ in reader.row_notes]
+        ids += [int(v) for v in chunk["id"].to_pylist()]
+    assert ids == list(range(n))
+    assert notes == [(45_000, "line 45002: 2 field(s) for 3 columns, values not used"),
+                     (80_000, "line 80002: 4 field(s) for 3 columns, values not used")]
+
+
 def test_csv_streams_in_bounded_chunks(tmp_path):
     path = tmp_path / "big.csv"
     n = 200_000

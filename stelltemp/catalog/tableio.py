@@ -423,8 +423,7 @@ class ChunkReader:
                 for batch in stream:
                     table, notes = _decode_text(pa.Table.from_batches([batch]), self.colnames)
                     if bad:
-                        table, notes = self._insert_malformed(table, notes, bad, done, lines)
-                        bad.clear()
+                        table, notes, bad[:] = self._insert_malformed(table, notes, bad, done, lines)
                     self._refuse_swallowed_lines(table, done, lines)
                     done += table.num_rows
                     self.row_notes = notes
@@ -433,7 +432,7 @@ class ChunkReader:
                 if not str(exc).startswith("Empty CSV file"):  # a header and no data: no rows
                     raise StelltempError(f"{self.path}: unreadable CSV ({_first_line(exc)})") from None
         if bad:  # rows reported after the last block (never seen, kept for safety)
-            table, notes = self._insert_malformed(self.schema.empty_table(), [], bad, done, lines)
+            table, notes, _ = self._insert_malformed(self.schema.empty_table(), [], bad, done, lines, last=True)
             self.row_notes = notes
             yield table
         note = (f"{self.malformed_lines} CSV line(s) with a wrong number of fields kept as flagged rows "
@@ -441,16 +440,25 @@ class ChunkReader:
         if self.malformed_lines and note not in self.notes:  # the reader may be iterated twice
             self.notes.append(note)
 
-    def _insert_malformed(self, table, notes, bad, done, lines):
+    def _insert_malformed(self, table, notes, bad, done, lines, last=False):
         """Put each malformed line back at its place as a row of text cells, flagged.
 
         pyarrow numbers rows from 1 over the data (blank lines not counted),
         good and malformed alike, so ``row.number - 1`` is the row's place.
+        The parser reports the malformed lines of the block after this one
+        too (it reads one block ahead): those past this table's last row are
+        returned, for the next table, not appended here out of order (with
+        ``last``, after the last block, every one is placed).
+        Returns the table, its row notes and the malformed rows left for later.
         """
         import bisect
 
         pieces, out_notes, at, placed = [], [], 0, []
-        for row in sorted(bad, key=lambda r: r.number):
+        rows = sorted(bad, key=lambda r: r.number)
+        for k, row in enumerate(rows):
+            if not last and row.number - 1 - done - len(placed) > table.num_rows:
+                later = rows[k:]
+                break
             line = lines.line_of(row.number)
             if "\n" in row.text or "\r" in row.text:
                 raise StelltempError(
@@ -467,12 +475,14 @@ class ChunkReader:
             placed.append(orig)
             at = orig
             self.malformed_lines += 1
+        else:
+            later = []
         if at < table.num_rows:
             pieces.append(table.slice(at))
         for i, text, drop in notes:
             out_notes.append((i + bisect.bisect_right(placed, i), text, drop))
         merged = pa.concat_tables([p.cast(self.schema) for p in pieces]) if pieces else self.schema.empty_table()
-        return merged, sorted(out_notes)
+        return merged, sorted(out_notes), later
 
     def _refuse_swallowed_lines(self, table, done, lines):
         """A cell holding a line break and a comma is an unclosed quote that swallowed lines."""
