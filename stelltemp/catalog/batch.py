@@ -26,6 +26,7 @@ from stelltemp.catalog.hygiene import prepare_inputs
 from stelltemp.catalog.mapping import ColumnMap, default_mapping, load_mapping, mapping_from_dict
 from stelltemp.engine import flags as F
 from stelltemp.errors import StelltempError
+from stelltemp.threads import ordered_map
 from stelltemp.validation import check_number
 
 #: suffix given to a result column whose name is already an input column
@@ -590,21 +591,27 @@ def run_catalogue(
     types, input_info = run.types, run.input_info
 
     summary = RunSummary(input=str(input_path), output=str(output_path))
-    names = None
     with tableio.open_sink(output_path, run.record, overwrite) as sink, progress_bar(
         reader.num_rows, quiet
     ) as bar:
         merge = merge_arrow if sink.kind == "arrow" else merge_astropy
         if run.declared:
             sink.declared_types = run.declared
-        for chunk in _nonempty_or_one_empty(reader):
+
+        def computed(item):  # on a thread of its own when there are several
+            chunk, row_notes = item
             chunk = _without(chunk, old)
-            res = compute_chunk(chunk, cmap, opts, engine, reader.row_notes if len(chunk) else ())
-            if names is None:
-                names = result_names(colnames, res.colnames)
+            res = compute_chunk(chunk, cmap, opts, engine, row_notes)
+            return res, merge(chunk, res, result_names(colnames, res.colnames), types, input_info)
+
+        # each chunk with the reader's notes on it, taken before the reader moves on
+        chunks = ((chunk, reader.row_notes if len(chunk) else ()) for chunk in _nonempty_or_one_empty(reader))
+        # the default engine is safe on threads; another engine runs here, one chunk at a time
+        threads = None if engine is default_engine() else 1
+        for res, merged in ordered_map(computed, chunks, threads):
             summary.add(res)
-            sink.write(merge(chunk, res, names, types, input_info))
-            bar.update(len(chunk))
+            sink.write(merged)
+            bar.update(len(res))
     summary.notes.extend(reader.notes)
     summary.notes.extend(run.closing_notes(sink))
     summary.wall_time_s = time.perf_counter() - t0

@@ -52,6 +52,7 @@ from stelltemp.catalog.batch import (
     set_up_run,
 )
 from stelltemp.catalog.heap import engine_heap
+from stelltemp.threads import in_order, single_thread
 from stelltemp.errors import StelltempError
 
 LOCAL_SCHEDULERS = ("threads", "processes", "synchronous")
@@ -166,7 +167,8 @@ def _work(chunks, ctx, tag):
 
     summary = RunSummary(backend="dask")
     path = os.path.join(ctx.part_dir, f"part-{tag:08d}.arrow")
-    with engine_heap(), pa.OSFile(path, "wb") as fh, pa.ipc.new_file(fh, ctx.out_schema) as writer:
+    # one worker per core already: the engine starts no threads of its own here
+    with single_thread(), engine_heap(), pa.OSFile(path, "wb") as fh, pa.ipc.new_file(fh, ctx.out_schema) as writer:
         for chunk, notes in chunks:
             chunk = chunk.rename_columns(list(ctx.colnames))
             if ctx.old:  # an earlier run's result columns, recomputed (--renew-results)
@@ -341,18 +343,10 @@ def _append(sink, path, rows):
 
 def _ordered(tasks, client, local, nworkers, ahead):
     """Run ``(function, args)`` tasks, at most `ahead` in flight; yield their results in task order."""
-    import collections
-
     import dask
 
     if client is not None:
-        inflight = collections.deque()
-        for fn, args in tasks:
-            inflight.append(client.submit(fn, *args, pure=False))
-            if len(inflight) >= ahead:
-                yield inflight.popleft().result()
-        while inflight:
-            yield inflight.popleft().result()
+        yield from in_order(lambda task: client.submit(task[0], *task[1], pure=False), tasks, ahead)
         return
     kw = {"scheduler": local} if local == "synchronous" else {"scheduler": local, "num_workers": nworkers}
     batch = []
