@@ -307,31 +307,34 @@ def _cholesky_solve(c, rhs):
     matrix that is not positive definite gives NaN.
     """
     n, r, _ = c.shape
-    low = np.zeros((n, r, r))
+    # stars along the last axis: every operation below reads and writes contiguous rows
+    c = np.ascontiguousarray(np.moveaxis(c, 0, -1))
+    rhs = np.ascontiguousarray(np.moveaxis(rhs, 0, -1))
+    low = np.zeros((r, r, n))
     with np.errstate(invalid="ignore", divide="ignore"):
         for j in range(r):
-            d = c[:, j, j].copy()
+            d = c[j, j].copy()
             for k in range(j):
-                d -= low[:, j, k] * low[:, j, k]
-            low[:, j, j] = np.sqrt(d)
+                d -= low[j, k] * low[j, k]
+            low[j, j] = np.sqrt(d)
             for i in range(j + 1, r):
-                acc = c[:, i, j].copy()
+                acc = c[i, j].copy()
                 for k in range(j):
-                    acc -= low[:, i, k] * low[:, j, k]
-                low[:, i, j] = acc / low[:, j, j]
+                    acc -= low[i, k] * low[j, k]
+                low[i, j] = acc / low[j, j]
         z = np.empty_like(rhs)
         for i in range(r):
-            acc = rhs[:, i, :].copy()
+            acc = rhs[i].copy()
             for k in range(i):
-                acc -= low[:, i, k, None] * z[:, k, :]
-            z[:, i, :] = acc / low[:, i, i, None]
+                acc -= low[i, k] * z[k]
+            z[i] = acc / low[i, i]
         x = np.empty_like(rhs)
         for i in range(r - 1, -1, -1):
-            acc = z[:, i, :].copy()
+            acc = z[i].copy()
             for k in range(i + 1, r):
-                acc -= low[:, k, i, None] * x[:, k, :]
-            x[:, i, :] = acc / low[:, i, i, None]
-    return x
+                acc -= low[k, i] * x[k]
+            x[i] = acc / low[i, i]
+    return np.ascontiguousarray(np.moveaxis(x, -1, 0))
 
 
 def _dot(a, b):
