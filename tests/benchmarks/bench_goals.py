@@ -257,8 +257,9 @@ def goal_tour(repeats):
 
 
 def _one_core(fn, *args, **kwargs):
-    """Time ``fn`` with this process pinned to one core (the engine is single-threaded; this
-    keeps pyarrow's and BLAS's helper threads off the second core too)."""
+    """Time ``fn`` with this process pinned to one core (the engine then runs one thread, as it
+    counts the cores this process may use; pyarrow's and BLAS's helper threads stay off the
+    second core too)."""
     if not hasattr(os, "sched_setaffinity"):
         return None
     cores = os.sched_getaffinity(0)
