@@ -35,6 +35,16 @@ def node_colour(nodes, kk, as0, as1, bs0, bs1):
     """Colour of temperature node kk at the star's E(B−V) (cubic Hermite in E)."""
     return nodes[2 * kk] * as0 + nodes[2 * kk + 2] * as1 + nodes[2 * kk + 1] * bs0 + nodes[2 * kk + 3] * bs1
 
+@_njit(inline="always")
+def clamped_cell(v, last):
+    """Cell index of grid coordinate v, clamped to 0…last, and the position in the cell."""
+    j = int(np.floor(v))
+    if j < 0:
+        j = 0
+    elif j > last:
+        j = last
+    return j, v - j
+
 @_njit()
 def invert_cells(c, e, nodes, patches, nt, ne, lnt0, h_t, e0, h_e,
                  rj, rj_e0, rj_h, e_min, e_max, steps, bad, no_sol, edge,
@@ -50,13 +60,7 @@ def invert_cells(c, e, nodes, patches, nt, ne, lnt0, h_t, e0, h_e,
         if not (e_ok and np.isfinite(ck)):
             flags[k] = bad
             continue
-        v = (ek - e0) / h_e
-        j = int(np.floor(v))
-        if j < 0:
-            j = 0
-        elif j > ne - 2:
-            j = ne - 2
-        s = v - j
+        j, s = clamped_cell((ek - e0) / h_e, ne - 2)
         s2 = s * s
         s3 = s2 * s
         as0 = 2 * s3 - 3 * s2 + 1
@@ -70,13 +74,7 @@ def invert_cells(c, e, nodes, patches, nt, ne, lnt0, h_t, e0, h_e,
         c_hot = node_colour(nodes, kk, as0, as1, bs0, bs1)
         if ck < c_hot:
             # Rayleigh–Jeans colour at this E, linear on its uniform grid
-            x = (ek - rj_e0) / rj_h
-            m = int(np.floor(x))
-            if m < 0:
-                m = 0
-            elif m > n_rj - 2:
-                m = n_rj - 2
-            f = x - m
+            m, f = clamped_cell((ek - rj_e0) / rj_h, n_rj - 2)
             limit = rj[m] + f * (rj[m + 1] - rj[m])
             flags[k] = no_sol if ck < limit else edge
             continue

@@ -257,16 +257,7 @@ class Relation:
                            -np.inf if self.feh_floor is None else self.feh_floor, self.scale], float)
         rows = []
         for dx, dz in ((0, 0), (1, 0), (0, 1)):  # the loop of `_poly`, its zero terms left out
-            row = []
-            for c, (p, q, r) in zip(self.coeffs, self._powers):
-                k = c
-                if dx:
-                    k, p = k * p, p - 1
-                if dz:
-                    k, q = k * q, q - 1
-                if k != 0.0:
-                    row.append((k, p, q, r))
-            rows.append(row)
+            rows.append([term for term in self._derived_terms(dx, dz) if term[0] != 0.0])
         width = max(len(row) for row in rows)
         coef = np.zeros((3, width))
         pows = np.zeros((3, width, 3), np.int64)
@@ -309,6 +300,16 @@ class Relation:
         z_eval = z if self.feh_floor is None else np.maximum(z, self.feh_floor)
         return x, z, z_eval, g, inside
 
+    def _derived_terms(self, dx, dz):
+        """(coefficient, power of X, of [Fe/H], of log g) of each term after ∂/∂X (dx) and ∂/∂[Fe/H] (dz)."""
+        for c, (p, q, r) in zip(self.coeffs, self._powers):
+            k = c
+            if dx:
+                k, p = k * p, p - 1
+            if dz:
+                k, q = k * q, q - 1
+            yield k, p, q, r
+
     def _poly(self, x, z, g, dx=0, dz=0, powers=None):
         """Σ cᵢ ∂(Xᵖ Zᑫ Gʳ) with ``dx``/``dz`` derivatives (0 or 1) taken.
 
@@ -328,12 +329,7 @@ class Relation:
             return powers[name, e]
 
         out = np.zeros(np.broadcast(x, z, g).shape)
-        for c, (p, q, r) in zip(self.coeffs, self._powers):
-            k = c
-            if dx:
-                k, p = k * p, p - 1
-            if dz:
-                k, q = k * q, q - 1
+        for k, p, q, r in self._derived_terms(dx, dz):
             if k == 0.0:
                 continue
             term = k * power("x", x, p) if p else k  # a scalar k adds the bits of a full array

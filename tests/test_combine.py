@@ -140,7 +140,7 @@ def test_row_notes_join_per_row():
 
 def test_outside_calibration_only_for_a_colour_that_should_have_worked():
     """B-V = 2.0 for a star whose V-Ks says ~5800 K: C10 B-V covers 5800 K, so the colour is suspect."""
-    m = {"jc.B": [10.64, 12.0], "jc.V": [10.0, 10.0], "2mass.Ks": [8.5, 8.5]}
+    m = {"B_JC": [10.64, 12.0], "V_JC": [10.0, 10.0], "Ks_2MASS": [8.5, 8.5]}
     res = estimate(m, {k: [0.01, 0.01] for k in m}, feh=0.0, logg=4.4)
     assert not res["flags"][0] & fl.OUTSIDE_CALIBRATION
     assert res["flags"][1] & fl.OUTSIDE_CALIBRATION and res["cal_used"][1] == "c10_vk"
