@@ -52,8 +52,8 @@ from stelltemp.catalog.batch import (
     set_up_run,
 )
 from stelltemp.catalog.heap import engine_heap
-from stelltemp.threads import in_order, single_thread
 from stelltemp.errors import StelltempError
+from stelltemp.threads import in_order, single_thread
 
 LOCAL_SCHEDULERS = ("threads", "processes", "synchronous")
 #: partitions per worker a Parquet run aims at (enough to balance uneven rows, few enough to keep
