@@ -61,6 +61,14 @@ class RunOptions:
         ``teff_cal`` (the given E(B−V) and its error act as a prior).
     cal_detail : bool
         Add each calibrated relation's own temperature and error as columns.
+
+    Examples
+    --------
+    >>> RunOptions(rv=3.1, law="G23").check()  # nothing to say: usable
+    >>> RunOptions(rv=-1.0).check()
+    Traceback (most recent call last):
+    ...
+    stelltemp.errors.StelltempError: R_V must be a positive number, got -1.0
     """
 
     rv: float = 3.1
@@ -84,6 +92,15 @@ class RunSummary:
 
     A row counts as a success when at least one of its temperature columns
     (unit K, errors excluded) is finite.
+
+    Examples
+    --------
+    >>> import astropy.units as u
+    >>> from astropy.table import QTable
+    >>> summary = RunSummary(input="in.csv", output="out.csv")
+    >>> summary.add(QTable({"t_bb": [5800.0, float("nan")] * u.K, "flags": [0, 1]}))
+    >>> summary.rows, summary.successes, summary.clean_rows
+    (2, 1, 1)
     """
 
     input: str = ""

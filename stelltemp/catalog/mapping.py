@@ -77,6 +77,17 @@ class ColumnMap:
         Input name (one of `SCALAR_INPUTS`) -> catalogue column.
     values : dict of str -> float
         Input name (``ebv``, ``ebv_err``) -> one value for every row (mag).
+
+    Examples
+    --------
+    >>> cmap = ColumnMap(bands={"V_JC": BandColumns("vmag", "e_vmag"), "B_JC": BandColumns("bmag")},
+    ...                  columns={"ebv": "reddening"})
+    >>> cmap.required_columns()
+    ['vmag', 'e_vmag', 'bmag', 'reddening']
+    >>> cmap.check(["vmag", "e_vmag", "bmag"])
+    Traceback (most recent call last):
+    ...
+    stelltemp.errors.StelltempError: column 'reddening' (for ebv) is not in the table
     """
 
     bands: dict = field(default_factory=dict)
