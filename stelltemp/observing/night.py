@@ -332,6 +332,21 @@ def best_windows(alt_deg, times, dark_mask, min_alt_deg=30.0):
         Start/end times are interpolated linearly in altitude where the
         window is bounded by ``min_alt_deg``; otherwise they are the edges of
         dark time on the grid.
+
+    Examples
+    --------
+    Two invented targets on a grid of 9 dark times 0.05 d apart: one rises
+    to 55°, the other never reaches 35°.
+
+    >>> import numpy as np
+    >>> from astropy.time import Time
+    >>> times = Time(60000.0 + np.linspace(0, 0.4, 9), format="mjd")
+    >>> alt = np.array([[20, 30, 40, 50, 55, 50, 40, 30, 20.0], [5, 6, 7, 8, 9, 10, 11, 12, 13.0]])
+    >>> high, low = best_windows(alt, times, np.ones(9, bool), min_alt_deg=35.0)
+    >>> round(float((high.end - high.start).to_value("h")), 2), high.max_alt_deg, round(high.min_airmass, 3)
+    (6.0, 55.0, 1.22)
+    >>> low.usable, low.max_alt_deg
+    (False, 13.0)
     """
     alt = np.atleast_2d(alt_deg)
     mjd = times.mjd

@@ -335,6 +335,18 @@ def saturation_advice(exposure_s, target_snr, source_rate, aperture_rate, sky_ra
     Returns
     -------
     SaturationAdvice
+
+    Examples
+    --------
+    A bright invented star, 2e5 e⁻/s in a 2.5″ seeing disc on 0.6″ pixels,
+    planned as one 60 s frame on a camera of 80,000 e⁻ full well:
+
+    >>> advice = saturation_advice(60.0, None, source_rate=2.0e5, aperture_rate=1.8e5,
+    ...                            sky_rate_binned=20.0, dark_rate_binned=0.1, read_noise_e=8.0, n_pix=50,
+    ...                            n_background=500, fwhm=2.5, pixel_arcsec=0.6, full_well_e=80000,
+    ...                            gain_e_per_adu=1.5, saturation_adu=65535, warn=False)
+    >>> advice.status, advice.n_exposures, round(advice.exposure_s, 2), round(advice.limit_s, 2)
+    ('saturated', 8, 7.52, 7.6)
     """
     t = _positive("exposure time", exposure_s)
     phys, read = _pixel_rates(source_rate, fwhm, pixel_arcsec, binning, sky_rate_binned, dark_rate_binned,
