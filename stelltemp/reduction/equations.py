@@ -57,6 +57,16 @@ class BandSetup:
         (blue, red) passband keys of the standard colour used in the colour term.
     second_order : bool
         Fit the colour-dependent extinction k'' as well.
+
+    Examples
+    --------
+    >>> v = BandSetup("V", "V_JC", ("B_JC", "V_JC"))
+    >>> v.colour_name, v.n_parameters
+    ('B_JC-V_JC', 3)
+    >>> BandSetup("V", "V_JC", ("V_JC", "V_JC"))
+    Traceback (most recent call last):
+    ...
+    stelltemp.errors.StelltempError: filter V: the colour needs two different bands, got ('V_JC', 'V_JC')
     """
 
     filter: str
@@ -127,6 +137,15 @@ def default_setups(filters, second_order=False):
     Returns
     -------
     list of BandSetup, ordered by wavelength
+
+    Examples
+    --------
+    >>> for s in default_setups({"V": "V_JC", "B": "B_JC", "I": "Ic_JC", "R": "Rc_JC"}, second_order={"B"}):
+    ...     print(s.filter, s.band, s.colour_name, s.n_parameters)
+    B B_JC B_JC-V_JC 4
+    V V_JC B_JC-V_JC 3
+    R Rc_JC V_JC-Rc_JC 3
+    I Ic_JC Rc_JC-Ic_JC 3
     """
     from ..passbands import get_passband
 
