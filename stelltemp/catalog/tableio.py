@@ -453,7 +453,7 @@ class ChunkReader:
         """
         import bisect
 
-        pieces, out_notes, at, placed = [], [], 0, []
+        pieces, out_notes, at, placed, later = [], [], 0, [], []
         rows = sorted(bad, key=lambda r: r.number)
         for k, row in enumerate(rows):
             if not last and row.number - 1 - done - len(placed) > table.num_rows:
@@ -475,8 +475,6 @@ class ChunkReader:
             placed.append(orig)
             at = orig
             self.malformed_lines += 1
-        else:
-            later = []
         if at < table.num_rows:
             pieces.append(table.slice(at))
         for i, text, drop in notes:

@@ -124,7 +124,7 @@ def _block_rows(n, threads):
     return -(-n // count)
 
 
-def _in_blocks(call, n, per_star, rows, threads):
+def _in_blocks(call, n, per_star, threads):
     """``call(**inputs)`` over row blocks of the per-star inputs, results joined into one QTable.
 
     Values of ``per_star`` with n entries are sliced per block; scalars (and
@@ -132,9 +132,11 @@ def _in_blocks(call, n, per_star, rows, threads):
     table equals one unblocked call.  Each block is copied into columns
     allocated once and then dropped, so the memory of one block is reused
     by the next and the whole run holds one table, not the blocks and their join.
-    Blocks of ``rows`` stars run side by side on ``threads`` threads (each
-    exactly as alone: the same bits for any block size and thread count).
+    Blocks of `_block_rows` stars run side by side on ``threads`` threads
+    (each exactly as alone: the same bits for any block size and thread count).
     """
+    rows = _block_rows(n, threads)
+
     def part(value, sl):
         if isinstance(value, dict):
             return {k: part(v, sl) for k, v in value.items()}
@@ -281,7 +283,7 @@ def estimate(mags, errs=None, *, ebv=0.0, ebv_err=0.0, av=None, av_err=None, rv=
         if all(np.ndim(x) <= 1 and np.size(x) in (0, 1, n_rows) for x in values if x is not None):
             table = _in_blocks(lambda **kw: estimate(**kw, rv=rv, law=law, fit_ebv=fit_ebv, method=method,
                                                      cal_ebv=cal_ebv, cal_detail=cal_detail),
-                               n_rows, per_star, _block_rows(n_rows, threads), threads)
+                               n_rows, per_star, threads)
             return table
         # otherwise the unblocked path below names the badly shaped input
     pivots = [get_passband(k).pivot_wavelength.value for k in keys]
