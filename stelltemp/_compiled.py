@@ -109,29 +109,37 @@ def invert_cells(c, e, nodes, patches, nt, ne, lnt0, h_t, e0, h_e,
         lnt[k] = lnt0 + (i + t) * h_t
         slope[k] = dp / h_t
 
+@_njit(inline="always")
+def table_point(lnt, ebv, patches, nt, ne, lnt0, h_t, e0, h_e, want_de):
+    """Value, ∂/∂lnT and ∂/∂E (0.0 unless ``want_de``) of a bicubic Hermite table at one point."""
+    u = (lnt - lnt0) / h_t
+    v = (ebv - e0) / h_e
+    # as numpy's fmin(fmax(x, 0), n − 2): NaN goes to cell 0 and stays in t or s
+    uu = u if u > 0.0 else 0.0
+    vv = v if v > 0.0 else 0.0
+    i = int(min(uu, nt - 2.0))
+    j = int(min(vv, ne - 2.0))
+    t = u - i
+    s = v - j
+    base = (i * (ne - 1) + j) * 16
+    q0, q1, q2, q3 = cell_cubic(patches, base, s)
+    value = q0 + t * (q1 + t * (q2 + t * q3))
+    d_lnt = (q1 + t * (2 * q2 + 3 * t * q3)) / h_t
+    d_e = 0.0
+    if want_de:
+        r0 = patches[base + 1] + s * (2 * patches[base + 2] + 3 * s * patches[base + 3])
+        r1 = patches[base + 5] + s * (2 * patches[base + 6] + 3 * s * patches[base + 7])
+        r2 = patches[base + 9] + s * (2 * patches[base + 10] + 3 * s * patches[base + 11])
+        r3 = patches[base + 13] + s * (2 * patches[base + 14] + 3 * s * patches[base + 15])
+        d_e = (r0 + t * (r1 + t * (r2 + t * r3))) / h_e
+    return value, d_lnt, d_e
+
 @_njit()
 def evaluate_cells(lnt, ebv, patches, nt, ne, lnt0, h_t, e0, h_e, want_de, value, d_lnt, d_e):
-    n = lnt.size
-    for k in range(n):
-        u = (lnt[k] - lnt0) / h_t
-        v = (ebv[k] - e0) / h_e
-        # as numpy's fmin(fmax(x, 0), n − 2): NaN goes to cell 0 and stays in t or s
-        uu = u if u > 0.0 else 0.0
-        vv = v if v > 0.0 else 0.0
-        i = int(min(uu, nt - 2.0))
-        j = int(min(vv, ne - 2.0))
-        t = u - i
-        s = v - j
-        base = (i * (ne - 1) + j) * 16
-        q0, q1, q2, q3 = cell_cubic(patches, base, s)
-        value[k] = q0 + t * (q1 + t * (q2 + t * q3))
-        d_lnt[k] = (q1 + t * (2 * q2 + 3 * t * q3)) / h_t
+    for k in range(lnt.size):
+        value[k], d_lnt[k], de = table_point(lnt[k], ebv[k], patches, nt, ne, lnt0, h_t, e0, h_e, want_de)
         if want_de:
-            r0 = patches[base + 1] + s * (2 * patches[base + 2] + 3 * s * patches[base + 3])
-            r1 = patches[base + 5] + s * (2 * patches[base + 6] + 3 * s * patches[base + 7])
-            r2 = patches[base + 9] + s * (2 * patches[base + 10] + 3 * s * patches[base + 11])
-            r3 = patches[base + 13] + s * (2 * patches[base + 14] + 3 * s * patches[base + 15])
-            d_e[k] = (r0 + t * (r1 + t * (r2 + t * r3))) / h_e
+            d_e[k] = de
 
 @_njit()
 def cholesky_solve(c, rhs, q, r, low, z, x):
@@ -158,129 +166,141 @@ def cholesky_solve(c, rhs, q, r, low, z, x):
                 acc -= low[k, i] * x[k, col]
             x[i, col] = acc / low[i, i]
 
+@_njit(inline="always")
+def combine_star(s, g, used, var_m, blue, red, same, scatter, feh_var, a, v, y, fit, ebv_var,
+                 prior_prec, prior_d, est, cov, l_y, l_p, c_diag, c, rhs, low, z, sol, idx):
+    """One star of `combine_cells` (its rows as 1-D arrays); returns (χ², aᵀC₀⁻¹a)."""
+    r = s.size
+    p = 2 if fit else 1
+    # only the relations this star uses: the numpy twin pads the others with identity
+    # rows, which add exact zeros to every sum (same bits, fewer operations)
+    u = 0
+    for i in range(r):
+        c_diag[i] = 1.0
+        if used[i]:
+            idx[u] = i
+            u += 1
+    for ii in range(u):
+        i = idx[ii]
+        bi, ri = blue[i], red[i]
+        vi = v[i]
+        for jj in range(u):
+            j = idx[jj]
+            bj, rj = blue[j], red[j]
+            # D Σ_m Dᵀ: the bands the two colours share, with their signs
+            phot = 0.0
+            if bi == bj:
+                phot += var_m[bi]
+            if bi == rj:
+                phot -= var_m[bi]
+            if ri == bj:
+                phot -= var_m[ri]
+            if ri == rj:
+                phot += var_m[ri]
+            cij = s[i] * s[j] * phot
+            cij += scatter[i] * scatter[j] if same[i, j] else 0.0
+            cij += g[i] * g[j] * feh_var
+            cij = cij + 0.0
+            c[ii, jj] = cij if fit else cij + vi * v[j] * ebv_var
+        c_diag[i] = c[ii, ii]
+        rhs[ii, 0] = a[i]
+        rhs[ii, 1] = vi
+        rhs[ii, 2] = y[i]
+    cholesky_solve(c, rhs, 3, u, low, z, sol)
+    i00 = 0.0
+    av = 0.0
+    va = 0.0
+    vv = 0.0
+    for ii in range(u):
+        i00 += rhs[ii, 0] * sol[ii, 0]
+    for ii in range(u):
+        av += rhs[ii, 0] * sol[ii, 1]
+    for ii in range(u):
+        va += rhs[ii, 1] * sol[ii, 0]
+    for ii in range(u):
+        vv += rhs[ii, 1] * sol[ii, 1]
+    if fit:
+        i11 = vv + prior_prec
+        det = i00 * i11 - av * va
+        cv00, cv01, cv10, cv11 = i11 / det, -av / det, -va / det, i00 / det
+    else:
+        det = i00
+        cv00, cv01, cv10, cv11 = 1.0 / i00, 0.0, 0.0, 0.0
+    ok = det > 0 and u > 0
+    if not ok:
+        cv00, cv01, cv10, cv11 = 1.0, 0.0, 0.0, 1.0
+    for q in range(p):
+        l_p[q] = 0.0
+        for i in range(r):
+            l_y[q, i] = 0.0
+    for ii in range(u):
+        i = idx[ii]
+        if fit:
+            l_y[0, i] = cv00 * sol[ii, 0] + cv01 * sol[ii, 1]
+            l_y[1, i] = cv10 * sol[ii, 0] + cv11 * sol[ii, 1]
+        else:
+            l_y[0, i] = cv00 * sol[ii, 0]
+    if fit and u > 0:
+        l_p[0] = cv01 * prior_prec
+        l_p[1] = cv11 * prior_prec
+    e0 = 0.0
+    for ii in range(u):
+        e0 += l_y[0, idx[ii]] * rhs[ii, 2]
+    e0 = e0 + l_p[0] * prior_d
+    e1 = 0.0
+    if fit:
+        for ii in range(u):
+            e1 += l_y[1, idx[ii]] * rhs[ii, 2]
+        e1 = e1 + l_p[1] * prior_d
+    # r = y − A e and C⁻¹r = w − Z e
+    x2 = 0.0
+    for ii in range(u):
+        if fit:
+            resid = rhs[ii, 2] - (rhs[ii, 0] * e0 + rhs[ii, 1] * e1)
+            white = sol[ii, 2] - (sol[ii, 0] * e0 + sol[ii, 1] * e1)
+        else:
+            resid = rhs[ii, 2] - rhs[ii, 0] * e0
+            white = sol[ii, 2] - sol[ii, 0] * e0
+        x2 += resid * white
+    if fit:
+        x2 = x2 + prior_prec * (e1 - prior_d) ** 2
+    info_known = i00
+    if not fit and ebv_var > 0:
+        # aᵀC₀⁻¹a with C₀ = C − σ_E² v vᵀ (Sherman–Morrison: no second factorisation)
+        info_known = i00 + ebv_var * (av * av) / (1.0 - ebv_var * vv)
+    if ok:
+        est[0] = e0
+        cov[0, 0] = cv00
+        if fit:
+            est[1] = e1
+            cov[0, 1] = cv01
+            cov[1, 0] = cv10
+            cov[1, 1] = cv11
+        return x2, info_known
+    for q in range(p):
+        est[q] = np.nan
+        for q2 in range(p):
+            cov[q, q2] = np.nan
+    return np.nan, info_known
+
+
 @_njit()
 def combine_cells(s, g, used, var_m, blue, red, same, scatter, feh_var, a, v, y, fit, ebv_var,
                   prior_prec, prior_d, est, cov, chi2, l_y, l_p, c_diag, info_known):
     n, r = s.shape
-    p = 2 if fit else 1
-    c = np.empty((r, r))
-    rhs = np.empty((r, 3))
-    low = np.zeros((r, r))
-    z = np.empty((r, 3))
-    sol = np.empty((r, 3))
-    idx = np.empty(r, np.intp)
+    c, rhs, low, z, sol, idx = combine_scratch(r)
     for k in range(n):
-        # only the relations this star uses: the numpy twin pads the others with identity
-        # rows, which add exact zeros to every sum (same bits, fewer operations)
-        u = 0
-        for i in range(r):
-            c_diag[k, i] = 1.0
-            if used[k, i]:
-                idx[u] = i
-                u += 1
-        for ii in range(u):
-            i = idx[ii]
-            bi, ri = blue[i], red[i]
-            vi = v[k, i]
-            for jj in range(u):
-                j = idx[jj]
-                bj, rj = blue[j], red[j]
-                # D Σ_m Dᵀ: the bands the two colours share, with their signs
-                phot = 0.0
-                if bi == bj:
-                    phot += var_m[k, bi]
-                if bi == rj:
-                    phot -= var_m[k, bi]
-                if ri == bj:
-                    phot -= var_m[k, ri]
-                if ri == rj:
-                    phot += var_m[k, ri]
-                cij = s[k, i] * s[k, j] * phot
-                cij += scatter[k, i] * scatter[k, j] if same[i, j] else 0.0
-                cij += g[k, i] * g[k, j] * feh_var[k]
-                cij = cij + 0.0
-                c[ii, jj] = cij if fit else cij + vi * v[k, j] * ebv_var[k]
-            c_diag[k, i] = c[ii, ii]
-            rhs[ii, 0] = a[k, i]
-            rhs[ii, 1] = vi
-            rhs[ii, 2] = y[k, i]
-        cholesky_solve(c, rhs, 3, u, low, z, sol)
-        i00 = 0.0
-        av = 0.0
-        va = 0.0
-        vv = 0.0
-        for ii in range(u):
-            i00 += rhs[ii, 0] * sol[ii, 0]
-        for ii in range(u):
-            av += rhs[ii, 0] * sol[ii, 1]
-        for ii in range(u):
-            va += rhs[ii, 1] * sol[ii, 0]
-        for ii in range(u):
-            vv += rhs[ii, 1] * sol[ii, 1]
-        if fit:
-            i11 = vv + prior_prec[k]
-            det = i00 * i11 - av * va
-            cv00, cv01, cv10, cv11 = i11 / det, -av / det, -va / det, i00 / det
-        else:
-            det = i00
-            cv00, cv01, cv10, cv11 = 1.0 / i00, 0.0, 0.0, 0.0
-        ok = det > 0 and u > 0
-        if not ok:
-            cv00, cv01, cv10, cv11 = 1.0, 0.0, 0.0, 1.0
-        for q in range(p):
-            l_p[k, q] = 0.0
-            for i in range(r):
-                l_y[k, q, i] = 0.0
-        for ii in range(u):
-            i = idx[ii]
-            if fit:
-                l_y[k, 0, i] = cv00 * sol[ii, 0] + cv01 * sol[ii, 1]
-                l_y[k, 1, i] = cv10 * sol[ii, 0] + cv11 * sol[ii, 1]
-            else:
-                l_y[k, 0, i] = cv00 * sol[ii, 0]
-        if fit and u > 0:
-            l_p[k, 0] = cv01 * prior_prec[k]
-            l_p[k, 1] = cv11 * prior_prec[k]
-        e0 = 0.0
-        for ii in range(u):
-            e0 += l_y[k, 0, idx[ii]] * rhs[ii, 2]
-        e0 = e0 + l_p[k, 0] * prior_d[k]
-        e1 = 0.0
-        if fit:
-            for ii in range(u):
-                e1 += l_y[k, 1, idx[ii]] * rhs[ii, 2]
-            e1 = e1 + l_p[k, 1] * prior_d[k]
-        # r = y − A e and C⁻¹r = w − Z e
-        x2 = 0.0
-        for ii in range(u):
-            if fit:
-                resid = rhs[ii, 2] - (rhs[ii, 0] * e0 + rhs[ii, 1] * e1)
-                white = sol[ii, 2] - (sol[ii, 0] * e0 + sol[ii, 1] * e1)
-            else:
-                resid = rhs[ii, 2] - rhs[ii, 0] * e0
-                white = sol[ii, 2] - sol[ii, 0] * e0
-            x2 += resid * white
-        if fit:
-            x2 = x2 + prior_prec[k] * (e1 - prior_d[k]) ** 2
-        info_known[k] = i00
-        if not fit and ebv_var[k] > 0:
-            # aᵀC₀⁻¹a with C₀ = C − σ_E² v vᵀ (Sherman–Morrison: no second factorisation)
-            info_known[k] = i00 + ebv_var[k] * (av * av) / (1.0 - ebv_var[k] * vv)
-        if ok:
-            est[k, 0] = e0
-            cov[k, 0, 0] = cv00
-            chi2[k] = x2
-            if fit:
-                est[k, 1] = e1
-                cov[k, 0, 1] = cv01
-                cov[k, 1, 0] = cv10
-                cov[k, 1, 1] = cv11
-        else:
-            chi2[k] = np.nan
-            for q in range(p):
-                est[k, q] = np.nan
-                for q2 in range(p):
-                    cov[k, q, q2] = np.nan
+        chi2[k], info_known[k] = combine_star(
+            s[k], g[k], used[k], var_m[k], blue, red, same, scatter[k], feh_var[k], a[k], v[k], y[k], fit,
+            ebv_var[k], prior_prec[k], prior_d[k], est[k], cov[k], l_y[k], l_p[k], c_diag[k],
+            c, rhs, low, z, sol, idx)
+
+
+@_njit()
+def combine_scratch(r):
+    """Work arrays of `combine_star` for r relations."""
+    return (np.empty((r, r)), np.empty((r, 3)), np.zeros((r, r)), np.empty((r, 3)), np.empty((r, 3)),
+            np.empty(r, np.intp))
 
 
 @_njit()
@@ -394,19 +414,60 @@ def relation_cells(x, z, g, form, bounds, needs_logg, coef, pows, counts, xs, ts
                        inside[k0:k0 + m])
 
 @_njit()
+def newton_block(m, steps, form, bounds, needs_logg, coef, pows, counts, xs, ts, slopes, xp, zp, gp,
+                 xm, zb, gb, tb, slot, at_t, at_s, at_g, at_ok, fin_x, fin_t, fin_s, fin_g, fin_ok):
+    """Newton steps from colours xm towards the temperatures tb, for the first m stars of a block.
+
+    Each star's final colour and the relation's values there land in
+    ``fin_*`` at its ``slot``; the block's arrays are reordered on the way
+    (the stars still moving kept at the front).
+    """
+    lo = bounds[0]
+    hi = bounds[1]
+    for _ in range(steps):
+        if m == 0:
+            break
+        relation_block(xm, zb, gb, m, form, bounds, needs_logg, coef, pows, counts, xs, ts, slopes,
+                       xp, zp, gp, at_t, at_s, at_g, at_ok)
+        # keep the stars still moving at the front; an exact fixed point ends a star's steps
+        # with the evaluation just made
+        keep = 0
+        for j in range(m):
+            step = xm[j] + (tb[j] - at_t[j]) / at_s[j]
+            step = lo if step < lo else (hi if step > hi else step)
+            if step == xm[j]:
+                q = slot[j]
+                fin_x[q], fin_t[q], fin_s[q], fin_g[q], fin_ok[q] = xm[j], at_t[j], at_s[j], at_g[j], at_ok[j]
+            else:
+                slot[keep], xm[keep], zb[keep], gb[keep], tb[keep] = slot[j], step, zb[j], gb[j], tb[j]
+                keep += 1
+        m = keep
+    if m:
+        relation_block(xm, zb, gb, m, form, bounds, needs_logg, coef, pows, counts, xs, ts, slopes,
+                       xp, zp, gp, at_t, at_s, at_g, at_ok)
+        for j in range(m):
+            q = slot[j]
+            fin_x[q], fin_t[q], fin_s[q], fin_g[q], fin_ok[q] = xm[j], at_t[j], at_s[j], at_g[j], at_ok[j]
+
+
+@_njit()
+def block_scratch(size):
+    """Work arrays of one block: stars' rows, colours, [Fe/H], log g, targets, slots, evaluations, finals."""
+    return (np.empty(size, np.intp), np.empty(size), np.empty(size), np.empty(size), np.empty(size),
+            np.empty(size, np.intp), np.empty(size), np.empty(size), np.empty(size), np.empty(size, np.bool_),
+            np.empty(size), np.empty(size), np.empty(size), np.empty(size), np.empty(size, np.bool_))
+
+
+@_njit()
 def linearise_relation(x, t_hat, z, g, used, steps, form, bounds, needs_logg, coef, pows, counts,
                        xs, ts, slopes, y, s, gz):
     lo = bounds[0]
     hi = bounds[1]
     xp, zp, gp = relation_scratch(pows, BLOCK)
-    # a block of stars to invert: where each came from, its colour now and its inputs
-    where = np.empty(BLOCK, np.intp)
-    xm, zb, gb, tb = np.empty(BLOCK), np.empty(BLOCK), np.empty(BLOCK), np.empty(BLOCK)
-    at_t, at_s, at_g, at_ok = np.empty(BLOCK), np.empty(BLOCK), np.empty(BLOCK), np.empty(BLOCK, np.bool_)
-    # per star of the block (by its first slot): the final colour and evaluation
-    fin_x, fin_t, fin_s, fin_g = np.empty(BLOCK), np.empty(BLOCK), np.empty(BLOCK), np.empty(BLOCK)
-    fin_ok = np.empty(BLOCK, np.bool_)
-    slot = np.empty(BLOCK, np.intp)
+    # a block of stars to invert: where each came from, its colour now and its inputs; the
+    # relation's values at the current colours; per star (by its first slot) the final ones
+    (where, xm, zb, gb, tb, slot, at_t, at_s, at_g, at_ok,
+     fin_x, fin_t, fin_s, fin_g, fin_ok) = block_scratch(BLOCK)
     n = x.size
     k = 0
     while k < n:
@@ -422,32 +483,9 @@ def linearise_relation(x, t_hat, z, g, used, steps, form, bounds, needs_logg, co
                 slot[m] = m
                 m += 1
             k += 1
-        total = m
-        for _ in range(steps):
-            if m == 0:
-                break
-            relation_block(xm, zb, gb, m, form, bounds, needs_logg, coef, pows, counts, xs, ts, slopes,
-                           xp, zp, gp, at_t, at_s, at_g, at_ok)
-            # keep the stars still moving at the front; an exact fixed point ends a star's steps
-            # with the evaluation just made
-            keep = 0
-            for j in range(m):
-                step = xm[j] + (tb[j] - at_t[j]) / at_s[j]
-                step = lo if step < lo else (hi if step > hi else step)
-                if step == xm[j]:
-                    q = slot[j]
-                    fin_x[q], fin_t[q], fin_s[q], fin_g[q], fin_ok[q] = xm[j], at_t[j], at_s[j], at_g[j], at_ok[j]
-                else:
-                    slot[keep], xm[keep], zb[keep], gb[keep], tb[keep] = slot[j], step, zb[j], gb[j], tb[j]
-                    keep += 1
-            m = keep
-        if m:
-            relation_block(xm, zb, gb, m, form, bounds, needs_logg, coef, pows, counts, xs, ts, slopes,
-                           xp, zp, gp, at_t, at_s, at_g, at_ok)
-            for j in range(m):
-                q = slot[j]
-                fin_x[q], fin_t[q], fin_s[q], fin_g[q], fin_ok[q] = xm[j], at_t[j], at_s[j], at_g[j], at_ok[j]
-        for q in range(total):
+        newton_block(m, steps, form, bounds, needs_logg, coef, pows, counts, xs, ts, slopes, xp, zp, gp,
+                     xm, zb, gb, tb, slot, at_t, at_s, at_g, at_ok, fin_x, fin_t, fin_s, fin_g, fin_ok)
+        for q in range(m):
             kk = where[q]
             target = t_hat[kk]
             si = fin_s[q]
@@ -458,5 +496,199 @@ def linearise_relation(x, t_hat, z, g, used, steps, form, bounds, needs_logg, co
                 gz[kk] = gi if np.isfinite(gi) else 0.0
 
 
+@_njit()
+def calibrate_cells(m, var_m, feh, feh_var, logg, applies, t_start, e_start, ebv, ebv_var, prior_prec, fit,
+                    patches, offsets, tab_shape, tab_grid,
+                    blue, red, same, scatter0, scatter_frac,
+                    forms, bounds, needs_logg, coef, pows, counts, xs, ts, slopes, n_nodes,
+                    iterations, inverse_steps, tol_t, tol_e, settling, e_min, e_max, min_free,
+                    x0, first_used, x, kx, y, s, used, sc, v, n_used, bad, est, cov, chi2, l_y, l_p, c_diag,
+                    info_known, moving, seen_lo, seen_hi, e_lin):
+    """The Gauss–Newton passes of `combine.calibrated_teff` (its `_iterate`), compiled: the same bits.
+
+    Stars go through in blocks of `BLOCK`.  Each pass of a block runs, for
+    the stars still moving: the colour excess of every band at the current
+    T_eff and E(B−V) (``colour_excess``); each relation at the dereddened
+    colours, over the block (``_evaluate``); its linearisation at the
+    current T_eff (``_linearise_at``, the steps of `linearise_relation`);
+    then per star the scatter, the design, the combination (`combine_star`)
+    and the convergence test.  A star stops where the numpy loop stops
+    computing it, so the outputs are the quantities of its last pass
+    (``x0`` and ``first_used`` those of its first).
+    """
+    n, nb = m.shape
+    r = blue.size
+    xp, zp, gp = relation_scratch(pows.reshape(-1, pows.shape[2], 3), BLOCK)
+    (where, xm, zb, gb, tb, slot, at_t, at_s, at_g, at_ok,
+     fin_x, fin_t, fin_s, fin_g, fin_ok) = block_scratch(BLOCK)
+    act = np.empty(BLOCK, np.intp)
+    t_ref, el, t_hat = np.empty(BLOCK), np.empty(BLOCK), np.empty(BLOCK)
+    lo_seen, hi_seen = np.empty(BLOCK), np.empty(BLOCK)
+    still = np.empty(BLOCK, np.bool_)
+    allowed = np.empty((BLOCK, r), np.bool_)
+    kt, gz = np.empty((BLOCK, r)), np.empty((BLOCK, r))
+    ex, de, dt = np.empty(nb), np.empty(nb), np.empty(nb)
+    a = np.empty(r)
+    c, rhs, low, z, sol, idx = combine_scratch(r)
+    for k0 in range(0, n, BLOCK):
+        nblk = min(BLOCK, n - k0)
+        for j in range(nblk):
+            t_ref[j] = t_start[k0 + j]
+            el[j] = e_start[k0 + j]
+            t_hat[j] = np.nan
+            lo_seen[j] = np.nan
+            hi_seen[j] = np.nan
+            still[j] = True
+        for it in range(iterations):
+            na = 0
+            for j in range(nblk):
+                if still[j]:
+                    act[na] = j
+                    na += 1
+            if na == 0:
+                break
+            # `colour_excess` (every band at (T_ref, E) minus at (T_ref, 0)) and the colours
+            for q in range(na):
+                j = act[q]
+                k = k0 + j
+                if it and np.isfinite(t_hat[j]):
+                    t_ref[j] = t_hat[j]
+                lnt = np.log(t_ref[j] if np.isfinite(t_ref[j]) else 5800.0)
+                eu = el[j] if np.isfinite(el[j]) else 0.0
+                eu = e_min if eu < e_min else (e_max if eu > e_max else eu)
+                for b in range(nb):
+                    pb = patches[offsets[b]:offsets[b + 1]]
+                    nt, ne = tab_shape[b, 0], tab_shape[b, 1]
+                    g0, h_t, e0, h_e = tab_grid[b, 0], tab_grid[b, 1], tab_grid[b, 2], tab_grid[b, 3]
+                    red_v, red_t, red_e = table_point(lnt, eu, pb, nt, ne, g0, h_t, e0, h_e, True)
+                    int_v, int_t, _ = table_point(lnt, 0.0, pb, nt, ne, g0, h_t, e0, h_e, False)
+                    ex[b] = red_v - int_v
+                    de[b] = red_e
+                    dt[b] = red_t - int_t
+                for i in range(r):
+                    bi, ri = blue[i], red[i]
+                    x[k, i] = m[k, bi] - m[k, ri] - (ex[bi] - ex[ri])
+                    kx[k, i] = de[bi] - de[ri]
+                    kt[j, i] = dt[bi] - dt[ri]
+                    if it == 0:
+                        x0[k, i] = x[k, i]
+            for i in range(r):
+                nx = n_nodes[i]
+                args_xs, args_ts, args_sl = xs[i, :nx], ts[i, :nx], slopes[i, :nx - 1]
+                # `_evaluate`: the relation at the dereddened colours of its candidates (a star
+                # that is not one gets what the numpy code gives it: unused, NaN, 0, 0)
+                mm = 0
+                for q in range(na):
+                    j = act[q]
+                    k = k0 + j
+                    used[k, i] = False
+                    y[k, i] = np.nan
+                    s[k, i] = 0.0
+                    gz[j, i] = 0.0
+                    if applies[k, i] and np.isfinite(x[k, i]) and (it == 0 or allowed[j, i]):
+                        where[mm] = j
+                        xm[mm] = x[k, i]
+                        zb[mm] = feh[k]
+                        gb[mm] = logg[k]
+                        mm += 1
+                    elif it == 0:
+                        first_used[k, i] = False
+                        allowed[j, i] = fit  # with E(B−V) given, a star keeps its first-pass relations
+                relation_block(xm, zb, gb, mm, forms[i], bounds[i], needs_logg[i], coef[i], pows[i], counts[i],
+                               args_xs, args_ts, args_sl, xp, zp, gp, at_t, at_s, at_g, at_ok)
+                for q in range(mm):
+                    j = where[q]
+                    k = k0 + j
+                    ti, si, gi = at_t[q], at_s[q], at_g[q]
+                    ok = at_ok[q] and np.isfinite(ti) and np.isfinite(si)
+                    if it == 0:
+                        first_used[k, i] = ok
+                        allowed[j, i] = ok or fit
+                    if ok:
+                        used[k, i] = True
+                        y[k, i] = ti
+                        s[k, i] = si
+                        gz[j, i] = gi if np.isfinite(gi) else 0.0
+                # `_linearise_at`: the relation at the colour it would give at the current T_eff
+                if it:
+                    lo, hi = bounds[i, 0], bounds[i, 1]
+                    mm = 0
+                    for q in range(na):
+                        j = act[q]
+                        k = k0 + j
+                        if used[k, i] and np.isfinite(t_hat[j]):
+                            where[mm] = j
+                            v0 = x[k, i]
+                            xm[mm] = lo if v0 < lo else (hi if v0 > hi else v0)
+                            zb[mm] = feh[k]
+                            gb[mm] = logg[k]
+                            tb[mm] = t_hat[j]
+                            slot[mm] = mm
+                            mm += 1
+                    newton_block(mm, inverse_steps, forms[i], bounds[i], needs_logg[i], coef[i], pows[i],
+                                 counts[i], args_xs, args_ts, args_sl, xp, zp, gp, xm, zb, gb, tb, slot,
+                                 at_t, at_s, at_g, at_ok, fin_x, fin_t, fin_s, fin_g, fin_ok)
+                    for q in range(mm):
+                        j = where[q]
+                        k = k0 + j
+                        target = t_hat[j]
+                        si = fin_s[q]
+                        if fin_ok[q] and abs(fin_t[q] - target) < 0.5 and np.isfinite(si):
+                            y[k, i] = target + si * (x[k, i] - fin_x[q])
+                            s[k, i] = si
+                            gi = fin_g[q]
+                            gz[j, i] = gi if np.isfinite(gi) else 0.0
+            # per star: scatter, design, the combination (`_combine_pass`) and convergence
+            for q in range(na):
+                j = act[q]
+                k = k0 + j
+                tr = t_ref[j]
+                nu = 0
+                for i in range(r):
+                    # hypot(x, ±0) is |x| exactly (C99 F.10.4.3), and most scatters are constant
+                    frac = scatter_frac[i] * tr
+                    sc[k, i] = abs(scatter0[i]) if frac == 0.0 else np.hypot(scatter0[i], frac)
+                    v[k, i] = s[k, i] * kx[k, i]
+                    a[i] = 1.0 + s[k, i] * kt[j, i] / tr if used[k, i] else 1.0
+                    y[k, i] = y[k, i] - (1.0 - a[i]) * tr
+                    nu += used[k, i]
+                n_used[k] = nu
+                pp = prior_prec[k] if fit else 0.0
+                pd = ebv[k] - el[j] if fit else 0.0
+                chi2[k], info_known[k] = combine_star(
+                    s[k], gz[j], used[k], var_m[k], blue, red, same, sc[k], feh_var[k], a, v[k], y[k], fit,
+                    0.0 if fit else ebv_var[k], pp, pd, est[k], cov[k], l_y[k], l_p[k], c_diag[k],
+                    c, rhs, low, z, sol, idx)
+                if fit:
+                    bd = nu == 0 or (pp == 0 and nu < min_free)
+                    step_e = 0.0 if bd or not np.isfinite(est[k, 1]) else est[k, 1]
+                else:
+                    bd = nu == 0
+                    step_e = 0.0
+                bad[k] = bd
+                new_t = np.nan if bd else est[k, 0]
+                if it == 0:
+                    t_hat[j] = new_t
+                else:
+                    old = t_hat[j]
+                    if it >= settling:  # np.fmin / np.fmax: a NaN loses
+                        lo_, hi_ = lo_seen[j], hi_seen[j]
+                        lo_seen[j] = new_t if np.isnan(lo_) else (lo_ if np.isnan(new_t) else min(lo_, new_t))
+                        hi_seen[j] = new_t if np.isnan(hi_) else (hi_ if np.isnan(new_t) else max(hi_, new_t))
+                    step_t = new_t - old
+                    step_t = step_t if np.isfinite(step_t) else 0.0
+                    still[j] = abs(step_t) >= tol_t or abs(step_e) >= tol_e
+                    t_hat[j] = new_t if still[j] else old
+                if still[j] and it < iterations - 1:
+                    e_new = el[j] + step_e
+                    el[j] = e_min if e_new < e_min else (e_max if e_new > e_max else e_new)
+        for j in range(nblk):
+            moving[k0 + j] = still[j]
+            seen_lo[k0 + j] = lo_seen[j]
+            seen_hi[k0 + j] = hi_seen[j]
+            e_lin[k0 + j] = el[j]
+
+
 KERNELS = {"invert_cells": invert_cells, "evaluate_cells": evaluate_cells, "combine_cells": combine_cells,
-           "relation_cells": relation_cells, "linearise_relation": linearise_relation}
+           "relation_cells": relation_cells, "linearise_relation": linearise_relation,
+           "calibrate_cells": calibrate_cells}

@@ -32,6 +32,14 @@ The kernels
     The Newton inversion of one relation at each star's current T_eff and
     the linearised pseudo-observation there (the twin of
     ``combine._linearise_at``, one call per relation).
+`calibrate_cells`
+    Every Gauss–Newton pass of ``combine.calibrated_teff`` fused: for a
+    block of stars at a time, the colour excess of each band, each
+    relation at the dereddened colours and its linearisation (the steps
+    above, on the block), then per star the combination and the
+    convergence test (the twin of ``combine._iterate``).  It saves the
+    numpy glue between the kernels above: 5 bands, 1e5 stars, 1.39 → 1.07 s
+    (min of 3) for a whole ``estimate`` with E(B−V) given.
 
 The relation kernels work on blocks of `BLOCK` stars, one term of the
 polynomial at a time across the block, so the loops over stars vectorise;

@@ -29,6 +29,8 @@ from .errors import StelltempError
 ENV = "STELLTEMP_THREADS"
 #: at most this many threads unless `ENV` asks for more
 MAX_DEFAULT = 8
+#: fewest stars worth a thread of their own (below it, starting the thread costs more than it saves)
+MIN_ROWS_PER_THREAD = 1 << 14
 
 _local = threading.local()
 
@@ -125,4 +127,27 @@ def ordered_map(fn, items, threads=None):
         pool.shutdown(wait=True, cancel_futures=True)
 
 
-__all__ = ["ENV", "engine_threads", "in_order", "ordered_map", "single_thread"]
+def split_rows(n, min_rows, threads=None):
+    """Equal slices of ``n`` rows, one per thread (default `engine_threads`), none under ``min_rows``.
+
+    For a compiled loop over independent stars: each slice is computed
+    exactly as the whole would be, so the split changes no bit.
+
+    Examples
+    --------
+    >>> split_rows(100, 30, threads=2), split_rows(100, 60, threads=2)
+    ([slice(0, 50, None), slice(50, 100, None)], [slice(0, 100, None)])
+    """
+    threads = engine_threads() if threads is None else int(threads)
+    count = max(1, min(threads, n // max(1, min_rows)))
+    size = -(-n // count) if n else 0
+    return [slice(k, min(n, k + size)) for k in range(0, n, size)] if n else [slice(0, 0)]
+
+
+def run_split(fn, n, min_rows):
+    """``fn(rows)`` for each slice of `split_rows`, side by side; for work that writes its own output."""
+    for _ in ordered_map(fn, split_rows(n, min_rows)):
+        pass
+
+
+__all__ = ["ENV", "MIN_ROWS_PER_THREAD", "engine_threads", "in_order", "ordered_map", "run_split", "single_thread", "split_rows"]

@@ -162,8 +162,44 @@ def test_combination_identical_compiled_and_numpy(both, fit_ebv, ebv_err):
     fast, slow = both(combine.calibrated_teff, m, sig, KEYS5, tbb, e, np.full(len(e), ebv_err),
                       fit_ebv=fit_ebv, feh=feh, feh_err=feh_err, logg=logg)
     assert np.isfinite(slow.teff).sum() > 200
-    for f in FIELDS + ("teff_lo", "teff_hi", "p_value"):
+    for f in FIELDS + ("teff_lo", "teff_hi", "p_value", "not_settled"):
         _same(np.asarray(getattr(fast, f)), np.asarray(getattr(slow, f)))
+    assert list(fast.notes) == list(slow.notes)
+
+
+def test_fused_passes_identical_with_monte_carlo_and_relations_no_star_uses(both):
+    """The compiled passes (`calibrate_cells`) and the numpy ones: same bits, also for the interval
+    drawn by Monte Carlo and with relations that no star of the call can use (dropped afterwards)."""
+    from stelltemp.engine import combine
+    from test_combine_batched import FIELDS, KEYS5, _stars
+
+    m, sig, tbb, e, feh, feh_err, logg = _stars(300, KEYS5, 21)
+    logg = np.full(len(e), np.nan)  # dwarfs only: every giant relation goes unused
+    for fit_ebv in (False, True):
+        fast, slow = both(combine.calibrated_teff, m, sig, KEYS5, tbb, e, np.full(len(e), 0.04),
+                          fit_ebv=fit_ebv, feh=feh, feh_err=feh_err, logg=logg, monte_carlo=64, seed=5)
+        assert not fast.used[:, [k.endswith("giant") for k in fast.keys]].any()
+        for f in FIELDS + ("teff_lo", "teff_hi", "p_value", "not_settled"):
+            _same(np.asarray(getattr(fast, f)), np.asarray(getattr(slow, f)))
+
+
+def test_fused_passes_one_star_at_a_time(monkeypatch):
+    """A star's compiled result does not depend on the other stars of its call (blocks, dropouts)."""
+    from stelltemp.engine import combine
+    from test_combine_batched import KEYS5, _stars
+
+    monkeypatch.setattr(kernels, "MIN_ROWS", 0)
+    monkeypatch.delenv("STELLTEMP_JIT", raising=False)
+    m, sig, tbb, e, feh, feh_err, logg = _stars(kernels.BLOCK + 40, KEYS5, 23)  # two blocks
+    kw = dict(fit_ebv=True, feh=feh, feh_err=feh_err, logg=logg)
+    err = np.full(len(e), 0.03)
+    whole = combine.calibrated_teff(m, sig, KEYS5, tbb, e, err, **kw)
+    for k in range(0, len(e), 37):
+        one = combine.calibrated_teff(m[k:k + 1], sig[k:k + 1], KEYS5, tbb[k:k + 1], e[k:k + 1], err[k:k + 1],
+                                      **{name: v[k:k + 1] for name, v in kw.items() if name != "fit_ebv"},
+                                      fit_ebv=True)
+        for f in ("teff", "teff_err", "ebv", "chi2", "n_used"):
+            _same(np.asarray(getattr(whole, f))[k:k + 1], np.asarray(getattr(one, f)))
 
 
 _CACHE_PROBE = """

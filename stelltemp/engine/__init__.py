@@ -25,7 +25,7 @@ from ..calibrations import ASSUMED_STAGE, DEFAULT_FEH
 from ..errors import StelltempError
 from ..extinction import DEFAULT_LAW, DEFAULT_RV, check_law
 from ..passbands import get_passband
-from ..threads import engine_threads, ordered_map
+from ..threads import MIN_ROWS_PER_THREAD, engine_threads, ordered_map
 from ..validation import RANGES, check_memory, check_number, check_size
 from . import flags as fl
 from .colour import colour_interval, invert_colour
@@ -107,7 +107,7 @@ def _clean_photometry(mags, errs, keys, n, notes=None):
 #: stars per internal block of `estimate` at most: time and memory grow linearly with rows
 BLOCK_ROWS = 1 << 16
 #: fewest stars in a block of their own when blocks run on several threads
-MIN_THREAD_BLOCK = 1 << 14
+MIN_THREAD_BLOCK = MIN_ROWS_PER_THREAD
 
 
 def _block_rows(n, threads):

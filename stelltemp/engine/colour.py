@@ -29,6 +29,7 @@ from ..extinction import DEFAULT_LAW, DEFAULT_RV, relative_extinction
 from ..photometry import mag_offset
 from . import flags as fl
 from .. import kernels
+from ..threads import MIN_ROWS_PER_THREAD, run_split
 
 _BLOCK = 1 << 15  # stars per block of the inversion
 _NEWTON_STEPS = kernels.NEWTON_STEPS
@@ -115,11 +116,16 @@ def _invert_compiled(jit, c, e, table, e_fine, rj):
     """`invert_colour` by the compiled kernel (same steps as `_invert_block`, one star at a time)."""
     nt, ne = table.shape
     n = c.size
+    c, e = np.ascontiguousarray(c), np.ascontiguousarray(e)
     lnt, slope, flags = np.empty(n), np.empty(n), np.empty(n, np.int64)
-    jit["invert_cells"](np.ascontiguousarray(c), np.ascontiguousarray(e), *_flat(table), nt, ne,
-                        table.lnt0, table.h_t, table.e0, table.h_e, rj, e_fine[0], e_fine[1] - e_fine[0],
-                        bg.E_MIN, bg.E_MAX, kernels.NEWTON_STEPS, fl.BAD_INPUT, fl.NO_SOLUTION,
-                        fl.AT_GRID_EDGE, lnt, slope, flags)
+
+    def rows(part):  # stars are independent: a large call runs in slices on the machine's cores
+        jit["invert_cells"](c[part], e[part], *_flat(table), nt, ne, table.lnt0, table.h_t, table.e0,
+                            table.h_e, rj, e_fine[0], e_fine[1] - e_fine[0], bg.E_MIN, bg.E_MAX,
+                            kernels.NEWTON_STEPS, fl.BAD_INPUT, fl.NO_SOLUTION, fl.AT_GRID_EDGE,
+                            lnt[part], slope[part], flags[part])
+
+    run_split(rows, n, MIN_ROWS_PER_THREAD)
     return lnt, slope, flags
 
 

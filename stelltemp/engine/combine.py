@@ -514,6 +514,79 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
     if np.any(free):
         e_lin = np.where(free, _start_ebv(setup, m, sig_m, keys, t_ref, feh, feh_err, logg, law, rv),
                          e_lin)
+    iterate = _iterate if kernels.jit_for(n) is None else _iterate_compiled
+    setup0 = setup
+    setup, keep, x0, last, moving, seen_lo, seen_hi, e_lin = iterate(
+        setup, m, sig_m, keys, feh, feh_err, logg, law, rv, fit_ebv, ebv, ebv_err, prior_prec, e_lin, t_ref)
+    if last is None:
+        notes = _notes(setup0, x0, logg, feh_given, fit_ebv, prior_prec, np.zeros(n, int))
+        return _nothing(n, setup0, np.zeros(n, bool), notes)
+    x, kx, y, s, used, sc, v, n_used, bad, est, cov, chi2, ly, lp, c_diag, info_known = (
+        last[name] for name in ("x", "kx", "y", "s", "used", "sc", "v", "n_used", "bad", "est",
+                                "cov", "chi2", "ly", "lp", "c_diag", "info_known"))
+    teff = np.where(bad, np.nan, est[:, 0])
+    teff_err = np.where(bad, np.nan, np.sqrt(cov[:, 0, 0]))
+    # a star still moving after the last pass: tabulated relations have kinks, and where the
+    # weights jump at a node the iteration can cycle through two to six values for ever; quote
+    # the middle of the range it went through after the first passes, with half that range in
+    # the error (flagged when it matters), not whichever value the last pass happened to give
+    unsettled = moving & np.isfinite(teff) & np.isfinite(seen_lo)
+    half = np.where(unsettled, (seen_hi - seen_lo) / 2, 0.0)
+    not_settled = unsettled & (half > UNSETTLED_SHARE * teff_err)
+    teff = np.where(unsettled, (seen_lo + seen_hi) / 2, teff)
+    teff_err = np.where(unsettled, np.hypot(teff_err, half), teff_err)
+    n_par = 2 if fit_ebv else 1
+    dof = np.where(bad, 0, n_used - n_par + (fit_ebv & (prior_prec > 0)))
+    dof = np.maximum(dof, 0)
+    chi2 = np.where(dof > 0, chi2, np.nan)
+    from .chisq import chi2_survival as chdtrc  # P(χ² ≥ x); scipy.special costs 0.25 s to import
+
+    with np.errstate(invalid="ignore"):
+        p_value = np.where(dof > 0, chdtrc(np.maximum(dof, 1), chi2), np.nan)
+    if fit_ebv:
+        ebv_fit = np.where(bad, np.nan, e_lin + est[:, 1])
+        ebv_fit_err = np.where(bad, np.nan, np.sqrt(cov[:, 1, 1]))
+    else:
+        ebv_fit = ebv_fit_err = nan
+    # per relation, over every candidate of the run (the same columns in every block of rows)
+    cols = np.flatnonzero(keep)
+    err_each = np.full((n, len(setup0.rels)), np.nan)
+    teff_each = np.full((n, len(setup0.rels)), np.nan)
+    used_all = np.zeros((n, len(setup0.rels)), bool)
+    err_each[:, cols] = np.where(used, np.sqrt(c_diag), np.nan)
+    teff_each[:, cols] = np.where(used, y, np.nan)
+    used_all[:, cols] = used
+
+    lo, hi = teff - teff_err, teff + teff_err
+    if monte_carlo and np.any(~bad):
+        lo, hi = _monte_carlo(setup, int(monte_carlo), seed, teff, x, kx, s, used, sig_m, feh,
+                              feh_err, logg, sc, ebv_err, fit_ebv, ly, lp)
+        lo = np.where(bad, np.nan, lo)
+        hi = np.where(bad, np.nan, hi)
+
+    share = np.where(bad, np.nan, _reddening_share(info_known, teff_err))
+    notes = _notes(setup0, x0, logg, feh_given, fit_ebv, prior_prec, n_used)
+    return CalibratedTeff(teff, teff_err, lo, hi, ebv_fit, ebv_fit_err, chi2, dof, p_value, n_used,
+                          used_all, tuple(rel.key for rel in setup0.rels), teff_each, err_each,
+                          _outside(setup0, x0, used_all, teff, feh, logg), notes, share, not_settled)
+
+
+
+def _iterate(setup, m, sig_m, keys, feh, feh_err, logg, law, rv, fit_ebv, ebv, ebv_err, prior_prec,
+             e_lin, t_ref):
+    """The Gauss–Newton passes of `calibrated_teff`, in numpy, over all stars at once.
+
+    Returns the run's relations (those no star can use left out), which of
+    the candidates they are (``keep``), the colours of the first pass, the
+    quantities of each star's last pass (a dict of arrays; None when no
+    relation is left), whether it was still moving, the range of its
+    estimates after the settling passes and the final E(B−V) of the
+    linearisation.  `_iterate_compiled` is the same computation, one star
+    at a time, compiled.
+    """
+    n = m.shape[0]
+    r = len(setup.rels)
+    e_lin = e_lin.copy()
     t_hat = None
     allowed = None
     rows = np.arange(n)  # the stars still moving: a converged star is not computed again
@@ -541,8 +614,7 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
                 x, kx, kt, y, s, g, used = (q[:, keep] for q in (x, kx, kt, y, s, g, used))
             allowed = None if fit_ebv else used.copy()
             if r == 0:
-                notes = _notes(setup0, x0, logg, feh_given, fit_ebv, prior_prec, np.zeros(n, int))
-                return _nothing(n, setup0, np.zeros(n, bool), notes)
+                return setup, keep, x0, None, None, None, None, e_lin
         if t_hat is not None:
             y, s, g = _linearise_at(setup, t_hat[rows], x, y, s, g, used, fz, lg)
         sc = _scatter(setup, tr)
@@ -592,55 +664,95 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
         if not moving.any() or it == _ITERATIONS - 1:
             break
         e_lin[rows] = np.where(moving[rows], np.clip(el + step_e, bg.E_MIN, bg.E_MAX), el)
-    x, kx, y, s, used, sc, v, n_used, bad, est, cov, chi2, ly, lp, c_diag, info_known = (
-        last[name] for name in ("x", "kx", "y", "s", "used", "sc", "v", "n_used", "bad", "est",
-                                "cov", "chi2", "ly", "lp", "c_diag", "info_known"))
+    return setup, keep, x0, last, moving, seen_lo, seen_hi, e_lin
 
-    teff = np.where(bad, np.nan, est[:, 0])
-    teff_err = np.where(bad, np.nan, np.sqrt(cov[:, 0, 0]))
-    # a star still moving after the last pass: tabulated relations have kinks, and where the
-    # weights jump at a node the iteration can cycle through two to six values for ever; quote
-    # the middle of the range it went through after the first passes, with half that range in
-    # the error (flagged when it matters), not whichever value the last pass happened to give
-    unsettled = moving & np.isfinite(teff) & np.isfinite(seen_lo)
-    half = np.where(unsettled, (seen_hi - seen_lo) / 2, 0.0)
-    not_settled = unsettled & (half > UNSETTLED_SHARE * teff_err)
-    teff = np.where(unsettled, (seen_lo + seen_hi) / 2, teff)
-    teff_err = np.where(unsettled, np.hypot(teff_err, half), teff_err)
-    n_par = 2 if fit_ebv else 1
-    dof = np.where(bad, 0, n_used - n_par + (fit_ebv & (prior_prec > 0)))
-    dof = np.maximum(dof, 0)
-    chi2 = np.where(dof > 0, chi2, np.nan)
-    from .chisq import chi2_survival as chdtrc  # P(χ² ≥ x); scipy.special costs 0.25 s to import
 
-    with np.errstate(invalid="ignore"):
-        p_value = np.where(dof > 0, chdtrc(np.maximum(dof, 1), chi2), np.nan)
-    if fit_ebv:
-        ebv_fit = np.where(bad, np.nan, e_lin + est[:, 1])
-        ebv_fit_err = np.where(bad, np.nan, np.sqrt(cov[:, 1, 1]))
-    else:
-        ebv_fit = ebv_fit_err = nan
-    # per relation, over every candidate of the run (the same columns in every block of rows)
-    cols = np.flatnonzero(keep)
-    err_each = np.full((n, len(setup0.rels)), np.nan)
-    teff_each = np.full((n, len(setup0.rels)), np.nan)
-    used_all = np.zeros((n, len(setup0.rels)), bool)
-    err_each[:, cols] = np.where(used, np.sqrt(c_diag), np.nan)
-    teff_each[:, cols] = np.where(used, y, np.nan)
-    used_all[:, cols] = used
+def _iterate_compiled(setup, m, sig_m, keys, feh, feh_err, logg, law, rv, fit_ebv, ebv, ebv_err, prior_prec,
+                      e_lin, t_ref):
+    """`_iterate` by `kernels.calibrate_cells`: every pass of a star fused in one loop (the same bits).
 
-    lo, hi = teff - teff_err, teff + teff_err
-    if monte_carlo and np.any(~bad):
-        lo, hi = _monte_carlo(setup, int(monte_carlo), seed, teff, x, kx, s, used, sig_m, feh,
-                              feh_err, logg, sc, ebv_err, fit_ebv, ly, lp)
-        lo = np.where(bad, np.nan, lo)
-        hi = np.where(bad, np.nan, hi)
+    The kernel runs on every candidate relation; the ones no star can use
+    are left out afterwards, as `_iterate` leaves them out after its first
+    pass (they add nothing to any sum, so no bit changes).
+    """
+    n, nb = m.shape
+    r = len(setup.rels)
+    p = 2 if fit_ebv else 1
+    f = np.ascontiguousarray
+    applies = np.column_stack([rel.applies_to(logg) for rel in setup.rels]).reshape(n, r)
+    out = dict(x0=np.empty((n, r)), first_used=np.empty((n, r), bool), x=np.empty((n, r)), kx=np.empty((n, r)),
+               y=np.empty((n, r)), s=np.empty((n, r)), used=np.empty((n, r), bool), sc=np.empty((n, r)),
+               v=np.empty((n, r)), n_used=np.empty(n, np.int64), bad=np.empty(n, bool), est=np.empty((n, p)),
+               cov=np.empty((n, p, p)), chi2=np.empty(n), ly=np.empty((n, p, r)), lp=np.empty((n, p)),
+               c_diag=np.empty((n, r)), info_known=np.empty(n), moving=np.empty(n, bool),
+               seen_lo=np.empty(n), seen_hi=np.empty(n), e_lin=np.empty(n))
+    var_m = np.where(np.isfinite(sig_m), sig_m, 0.0) ** 2
+    kernels.jit_for(n)["calibrate_cells"](
+        f(m), f(var_m), f(feh), f(feh_err**2), f(logg), f(applies), f(t_ref), f(e_lin), f(ebv), f(ebv_err**2),
+        f(prior_prec), bool(fit_ebv), *_table_stack(keys, law, rv), setup.blue, setup.red, f(setup.same),
+        *_relation_stack(setup.rels), _ITERATIONS, _INVERSE_STEPS, _TOL_T, _TOL_E, _SETTLING_PASSES,
+        bg.E_MIN, bg.E_MAX, MIN_RELATIONS_FREE_EBV, *out.values())
+    x0 = out.pop("x0")
+    first = out.pop("first_used")
+    moving, seen_lo, seen_hi, e_lin = (out.pop(name) for name in ("moving", "seen_lo", "seen_hi", "e_lin"))
+    out["n_used"] = out["n_used"].astype(int)
+    keep = (applies & np.isfinite(x0)).any(axis=0) if fit_ebv else first.any(axis=0)
+    if not keep.all():
+        setup = setup.subset(keep)
+        for name in ("x", "kx", "y", "s", "used", "sc", "v", "c_diag"):
+            out[name] = out[name][:, keep]
+        out["ly"] = out["ly"][:, :, keep]
+    if not keep.any():
+        return setup, keep, x0, None, None, None, None, e_lin
+    return setup, keep, x0, out, moving, seen_lo, seen_hi, e_lin
 
-    share = np.where(bad, np.nan, _reddening_share(info_known, teff_err))
-    notes = _notes(setup0, x0, logg, feh_given, fit_ebv, prior_prec, n_used)
-    return CalibratedTeff(teff, teff_err, lo, hi, ebv_fit, ebv_fit_err, chi2, dof, p_value, n_used,
-                          used_all, tuple(rel.key for rel in setup0.rels), teff_each, err_each,
-                          _outside(setup0, x0, used_all, teff, feh, logg), notes, share, not_settled)
+
+#: the stacked band tables of recent runs, by the identity of their tables (which it keeps alive)
+_TABLE_STACKS = {}
+
+
+def _table_stack(keys, law, rv):
+    """Every band's Hermite table as the arrays `kernels.calibrate_cells` takes (kept between calls).
+
+    ``(patches, offsets, shape, grid)``: the flat patches of all bands in
+    one array, where each band's start, each table's (n_T, n_E) and its
+    (ln T₀, h_t, E₀, h_E).
+    """
+    tables = tuple(bg.band_table(key, law, rv) for key in keys)
+    ident = tuple(id(t) for t in tables)
+    if ident not in _TABLE_STACKS:
+        if len(_TABLE_STACKS) >= 8:
+            _TABLE_STACKS.pop(next(iter(_TABLE_STACKS)))
+        flat = [t.flat_patches for t in tables]
+        offsets = np.concatenate([[0], np.cumsum([a.size for a in flat])]).astype(np.intp)
+        shape = np.array([t.shape[:2] for t in tables], np.intp).reshape(len(tables), 2)
+        grid = np.array([[t.lnt0, t.h_t, t.e0, t.h_e] for t in tables], float).reshape(len(tables), 4)
+        _TABLE_STACKS[ident] = tables, (np.concatenate(flat), offsets, shape, grid)
+    return _TABLE_STACKS[ident][1]
+
+
+def _relation_stack(rels):
+    """The relations' packed arrays (`Relation._packed`) stacked, padded to the widest, for the kernel.
+
+    ``(scatter, scatter_frac, forms, bounds, needs_logg, coef, pows, counts,
+    xs, ts, slopes, n_nodes)``; the kernel takes each relation's first
+    ``counts`` terms and ``n_nodes`` nodes.
+    """
+    packs = [rel._packed for rel in rels]
+    r = len(rels)
+    width = max(pk[2].shape[1] for pk in packs)
+    n_nodes = np.array([pk[5].size for pk in packs], np.intp)
+    coef, pows = np.zeros((r, 3, width)), np.zeros((r, 3, width, 3), np.int64)
+    xs, ts = np.zeros((r, n_nodes.max())), np.zeros((r, n_nodes.max()))
+    slopes = np.zeros((r, n_nodes.max() - 1))
+    for i, (_, _, c, pw, _, x, t, sl) in enumerate(packs):
+        coef[i, :, :c.shape[1]] = c
+        pows[i, :, :c.shape[1]] = pw
+        xs[i, :x.size], ts[i, :t.size], slopes[i, :sl.size] = x, t, sl
+    return (np.array([rel.scatter for rel in rels], float), np.array([rel.scatter_frac for rel in rels], float),
+            np.array([pk[0] for pk in packs], np.int64), np.stack([pk[1] for pk in packs]),
+            np.array([rel.needs_logg for rel in rels], bool), coef, pows,
+            np.stack([pk[4] for pk in packs]), xs, ts, slopes, n_nodes)
 
 
 def _reddening_share(info_known, teff_err):
