@@ -128,7 +128,7 @@ def ordered_map(fn, items, threads=None):
 
 
 def split_rows(n, min_rows, threads=None):
-    """Equal slices of ``n`` rows, one per thread (default `engine_threads`), none under ``min_rows``.
+    """Slices of ``n`` rows as equal as can be, one per thread (default `engine_threads`), none under ``min_rows``.
 
     For a compiled loop over independent stars: each slice is computed
     exactly as the whole would be, so the split changes no bit.
@@ -140,8 +140,8 @@ def split_rows(n, min_rows, threads=None):
     """
     threads = engine_threads() if threads is None else int(threads)
     count = max(1, min(threads, n // max(1, min_rows)))
-    size = -(-n // count) if n else 0
-    return [slice(k, min(n, k + size)) for k in range(0, n, size)] if n else [slice(0, 0)]
+    edges = [k * n // count for k in range(count + 1)]  # sizes differ by one at most
+    return [slice(lo, hi) for lo, hi in zip(edges[:-1], edges[1:])]
 
 
 def run_split(fn, n, min_rows):

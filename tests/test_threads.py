@@ -160,3 +160,33 @@ def test_a_bad_thread_count_stops_a_catalogue_run_with_no_output(tmp_path, monke
     with pytest.raises(StelltempError, match=ENV):
         run_catalogue(src, tmp_path / "out.csv", quiet=True)
     assert not (tmp_path / "out.csv").exists()
+
+
+def test_split_rows_covers_every_row_once():
+    from stelltemp.threads import split_rows
+
+    for n in (0, 1, 5, 99, 100, 101, 1000):
+        for threads in (1, 2, 3, 8):
+            parts = split_rows(n, 10, threads=threads)
+            rows = np.concatenate([np.arange(n)[p] for p in parts])
+            assert list(rows) == list(range(n))
+            assert len(parts) <= max(1, threads) and (n < 20 or all(p.stop - p.start >= 10 for p in parts))
+
+
+def test_an_inversion_split_over_threads_equals_one_thread(monkeypatch):
+    pytest.importorskip("numba")
+    from stelltemp import kernels
+    from stelltemp.engine import colour as col
+
+    monkeypatch.setattr(kernels, "MIN_ROWS", 0)
+    monkeypatch.setattr(col, "MIN_ROWS_PER_THREAD", 100)
+    rng = np.random.default_rng(4)
+    c = rng.uniform(-0.5, 2.5, 1001)
+    e = rng.uniform(0, 2, 1001)
+    c[::50] = np.nan
+    monkeypatch.setenv(ENV, "3")
+    split = col.invert_colour(c, "B_JC", "V_JC", e)
+    monkeypatch.setenv(ENV, "1")
+    whole = col.invert_colour(c, "B_JC", "V_JC", e)
+    for a, b in zip(split, whole):
+        assert np.array_equal(a, b, equal_nan=True)
