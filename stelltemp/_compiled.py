@@ -557,11 +557,8 @@ def calibrate_cells(m, var_m, feh, feh_var, logg, applies, t_start, e_start, ebv
                 eu = el[j] if np.isfinite(el[j]) else 0.0
                 eu = e_min if eu < e_min else (e_max if eu > e_max else eu)
                 for b in range(nb):
-                    pb = patches[offsets[b]:offsets[b + 1]]
-                    nt, ne = tab_shape[b, 0], tab_shape[b, 1]
-                    g0, h_t, e0, h_e = tab_grid[b, 0], tab_grid[b, 1], tab_grid[b, 2], tab_grid[b, 3]
-                    red_v, red_t, red_e = table_point(lnt, eu, pb, nt, ne, g0, h_t, e0, h_e, True)
-                    int_v, int_t, _ = table_point(lnt, 0.0, pb, nt, ne, g0, h_t, e0, h_e, False)
+                    red_v, red_t, red_e = band_point(b, lnt, eu, patches, offsets, tab_shape, tab_grid, True)
+                    int_v, int_t, _ = band_point(b, lnt, 0.0, patches, offsets, tab_shape, tab_grid, False)
                     ex[b] = red_v - int_v
                     de[b] = red_e
                     dt[b] = red_t - int_t
@@ -689,6 +686,105 @@ def calibrate_cells(m, var_m, feh, feh_var, logg, applies, t_start, e_start, ebv
             e_lin[k0 + j] = el[j]
 
 
+@_njit(inline="always")
+def band_point(b, lnt, ebv, patches, offsets, tab_shape, tab_grid, want_de):
+    """`table_point` of band b of a stack (`bandgrid.table_stack`)."""
+    return table_point(lnt, ebv, patches[offsets[b]:offsets[b + 1]], tab_shape[b, 0], tab_shape[b, 1],
+                       tab_grid[b, 0], tab_grid[b, 1], tab_grid[b, 2], tab_grid[b, 3], want_de)
+
+
+@_njit()
+def fit_cells(m, w, lnt, e, ebv0, prior_w, todo, fit, patches, offsets, tab_shape, tab_grid,
+              iterations, tol, max_step, lnt_lo, lnt_hi, e_min, e_max):
+    """The Gauss–Newton loop of `fit.fit_blackbody`, one star at a time (its twin, the same bits).
+
+    ``lnt`` and ``e`` hold each star's start and receive its solution; stars
+    with ``todo`` False are left as they are.  Sums run over the bands in
+    order, as the numpy loop's `fit._rowsum` does.
+    """
+    n, nb = m.shape
+    mod, d_t, d_e, r = np.empty(nb), np.empty(nb), np.empty(nb), np.empty(nb)
+    for k in range(n):
+        if not todo[k]:
+            continue
+        t = lnt[k]
+        ek = e[k]
+        best = np.inf
+        step_t = 0.0
+        step_e = 0.0
+        for _ in range(iterations):
+            for b in range(nb):
+                mod[b], d_t[b], d_e[b] = band_point(b, t, ek, patches, offsets, tab_shape, tab_grid, fit)
+            wsum = 0.0
+            for b in range(nb):
+                wsum += w[k, b]
+            acc = 0.0
+            for b in range(nb):
+                acc += w[k, b] * (m[k, b] - mod[b])
+            a = acc / wsum
+            chi = 0.0
+            for b in range(nb):
+                r[b] = m[k, b] - mod[b] - a
+                chi += w[k, b] * r[b] * r[b]
+            if fit:
+                chi = chi + prior_w[k] * (ek - ebv0[k]) ** 2
+            if chi > best * (1 + 1e-12) + 1e-12:
+                # worse: go back halfway along the last step and evaluate again next round
+                step_t /= 2
+                step_e /= 2
+                t -= step_t
+                ek -= step_e
+            else:
+                best = chi
+                # profiled Jacobian: derivative columns minus their weighted means
+                acc = 0.0
+                for b in range(nb):
+                    acc += w[k, b] * d_t[b]
+                mean_t = acc / wsum
+                htt = 0.0
+                gt = 0.0
+                for b in range(nb):
+                    jt = d_t[b] - mean_t
+                    htt += w[k, b] * jt * jt
+                for b in range(nb):
+                    gt += w[k, b] * (d_t[b] - mean_t) * r[b]
+                if fit:
+                    acc = 0.0
+                    for b in range(nb):
+                        acc += w[k, b] * d_e[b]
+                    mean_e = acc / wsum
+                    hte = 0.0
+                    hee = 0.0
+                    ge = 0.0
+                    for b in range(nb):
+                        hte += w[k, b] * (d_t[b] - mean_t) * (d_e[b] - mean_e)
+                    for b in range(nb):
+                        hee += w[k, b] * (d_e[b] - mean_e) * (d_e[b] - mean_e)
+                    for b in range(nb):
+                        ge += w[k, b] * (d_e[b] - mean_e) * r[b]
+                    hee = hee + prior_w[k]
+                    ge = ge + prior_w[k] * (ebv0[k] - ek)
+                    det = htt * hee - hte * hte
+                    dt = (hee * gt - hte * ge) / det if det > 0 else 0.0
+                    de = (htt * ge - hte * gt) / det if det > 0 else 0.0
+                else:
+                    dt = gt / htt if htt > 0 else 0.0
+                    de = 0.0
+                dt = -max_step if dt < -max_step else (max_step if dt > max_step else dt)
+                new_t = t + dt
+                new_t = lnt_lo if new_t < lnt_lo else (lnt_hi if new_t > lnt_hi else new_t)
+                new_e = ek + de
+                new_e = e_min if new_e < e_min else (e_max if new_e > e_max else new_e)
+                step_t = new_t - t
+                step_e = new_e - ek
+                t = new_t
+                ek = new_e
+            if not (abs(step_t) > tol or abs(step_e) > tol):
+                break
+        lnt[k] = t
+        e[k] = ek
+
+
 KERNELS = {"invert_cells": invert_cells, "evaluate_cells": evaluate_cells, "combine_cells": combine_cells,
            "relation_cells": relation_cells, "linearise_relation": linearise_relation,
-           "calibrate_cells": calibrate_cells}
+           "calibrate_cells": calibrate_cells, "fit_cells": fit_cells}

@@ -325,6 +325,34 @@ def band_table(passband, law=DEFAULT_LAW, rv=DEFAULT_RV):
     return _band_table(band if band.system == "user" else band.key, law, float(rv))
 
 
+#: the stacked band tables of recent runs, by the identity of their tables (which it keeps alive)
+_STACKS = {}
+
+
+def table_stack(keys, law, rv):
+    """Every band's Hermite table as flat arrays, for the kernels that evaluate several bands per star.
+
+    (`kernels.calibrate_cells`, `kernels.fit_cells`); kept between calls.
+
+    ``(patches, offsets, shape, grid)``: the flat patches of all bands in
+    one array, where each band's start, each table's (n_T, n_E) and its
+    (ln T₀, h_t, E₀, h_E).
+    """
+    tables = tuple(band_table(key, law, rv) for key in keys)
+    ident = tuple(id(t) for t in tables)
+    entry = _STACKS.get(ident)
+    if entry is None:
+        flat = [t.flat_patches for t in tables]
+        offsets = np.concatenate([[0], np.cumsum([a.size for a in flat])]).astype(np.intp)
+        shape = np.array([t.shape[:2] for t in tables], np.intp).reshape(len(tables), 2)
+        grid = np.array([[t.lnt0, t.h_t, t.e0, t.h_e] for t in tables], float).reshape(len(tables), 4)
+        entry = tables, (np.concatenate(flat), offsets, shape, grid)
+        if len(_STACKS) >= 8:
+            _STACKS.pop(next(iter(_STACKS), None), None)  # threads may race here: harmless
+        _STACKS[ident] = entry
+    return entry[1]
+
+
 def colour_table(blue, red, law=DEFAULT_LAW, rv=DEFAULT_RV):
     """Hermite table of the blackbody colour m_blue − m_red.
 

@@ -316,3 +316,20 @@ def test_linearise_identical_compiled_and_numpy(both):
         moved += changed.sum()
         kept += (used & ~changed & (t_hat != t)).sum()
     assert moved > 10_000 and kept > 1000  # both outcomes exercised: linearised and kept
+
+
+@pytest.mark.parametrize("fit_ebv, ebv_err", [(False, np.inf), (True, 0.1), (True, np.inf)])
+def test_blackbody_fit_identical_compiled_and_numpy(both, fit_ebv, ebv_err):
+    """`kernels.fit_cells` gives the numpy loop of `fit_blackbody` bit for bit (missing bands,
+    too few bands, step halving, grid edges included)."""
+    from stelltemp.engine.fit import fit_blackbody
+    from test_combine_batched import KEYS5, _stars
+
+    m, sig, tbb, e, feh, feh_err, logg = _stars(500, KEYS5, 31)
+    m[:5] = [[np.nan, np.nan, np.nan, 9.0, 8.0]] * 5  # too few bands with E(B-V) free
+    m[5:10, :2] += 4.0  # far from any blackbody: a poor fit that halves its steps
+    m[10:15] = [[25.0, 20.0, 15.0, 10.0, 5.0]] * 5  # very red: the cool edge
+    fast, slow = both(fit_blackbody, m, sig, KEYS5, ebv=np.clip(e, 0, None), ebv_err=ebv_err, fit_ebv=fit_ebv)
+    assert np.isfinite(slow["t"]).sum() > 400
+    for name in slow:
+        _same(np.asarray(fast[name]), np.asarray(slow[name]))

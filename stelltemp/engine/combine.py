@@ -689,7 +689,7 @@ def _iterate_compiled(setup, m, sig_m, keys, feh, feh_err, logg, law, rv, fit_eb
     var_m = np.where(np.isfinite(sig_m), sig_m, 0.0) ** 2
     kernels.jit_for(n)["calibrate_cells"](
         f(m), f(var_m), f(feh), f(feh_err**2), f(logg), f(applies), f(t_ref), f(e_lin), f(ebv), f(ebv_err**2),
-        f(prior_prec), bool(fit_ebv), *_table_stack(keys, law, rv), setup.blue, setup.red, f(setup.same),
+        f(prior_prec), bool(fit_ebv), *bg.table_stack(keys, law, rv), setup.blue, setup.red, f(setup.same),
         *_relation_stack(setup.rels), _ITERATIONS, _INVERSE_STEPS, _TOL_T, _TOL_E, _SETTLING_PASSES,
         bg.E_MIN, bg.E_MAX, MIN_RELATIONS_FREE_EBV, *out.values())
     x0 = out.pop("x0")
@@ -705,30 +705,6 @@ def _iterate_compiled(setup, m, sig_m, keys, feh, feh_err, logg, law, rv, fit_eb
     if not keep.any():
         return setup, keep, x0, None, None, None, None, e_lin
     return setup, keep, x0, out, moving, seen_lo, seen_hi, e_lin
-
-
-#: the stacked band tables of recent runs, by the identity of their tables (which it keeps alive)
-_TABLE_STACKS = {}
-
-
-def _table_stack(keys, law, rv):
-    """Every band's Hermite table as the arrays `kernels.calibrate_cells` takes (kept between calls).
-
-    ``(patches, offsets, shape, grid)``: the flat patches of all bands in
-    one array, where each band's start, each table's (n_T, n_E) and its
-    (ln T₀, h_t, E₀, h_E).
-    """
-    tables = tuple(bg.band_table(key, law, rv) for key in keys)
-    ident = tuple(id(t) for t in tables)
-    if ident not in _TABLE_STACKS:
-        if len(_TABLE_STACKS) >= 8:
-            _TABLE_STACKS.pop(next(iter(_TABLE_STACKS)))
-        flat = [t.flat_patches for t in tables]
-        offsets = np.concatenate([[0], np.cumsum([a.size for a in flat])]).astype(np.intp)
-        shape = np.array([t.shape[:2] for t in tables], np.intp).reshape(len(tables), 2)
-        grid = np.array([[t.lnt0, t.h_t, t.e0, t.h_e] for t in tables], float).reshape(len(tables), 4)
-        _TABLE_STACKS[ident] = tables, (np.concatenate(flat), offsets, shape, grid)
-    return _TABLE_STACKS[ident][1]
 
 
 def _relation_stack(rels):

@@ -19,6 +19,7 @@ reduced χ²; a poor fit is flagged instead (p < 0.001).
 import numpy as np
 
 from .. import bandgrid as bg
+from .. import kernels
 from ..extinction import DEFAULT_LAW, DEFAULT_RV
 from ..passbands import get_passband
 from . import flags as fl
@@ -56,6 +57,20 @@ def _start(mags, weights, keys, ebv, law, rv):
         if done.all():
             break
     return lnt
+
+
+def _rowsum(x):
+    """Σ over the last axis (the bands), in ascending order, as `kernels.fit_cells` sums.
+
+    Examples
+    --------
+    >>> float(_rowsum(np.array([[0.1, 0.2, 0.3]]))[0]) == (0.1 + 0.2) + 0.3
+    True
+    """
+    acc = np.zeros(x.shape[:-1])
+    for b in range(x.shape[-1]):
+        acc = acc + x[..., b]
+    return acc
 
 
 def _inverse_symmetric(a):
@@ -161,7 +176,12 @@ def fit_blackbody(mags, errs, keys, ebv=0.0, ebv_err=np.inf, fit_ebv=False,
     # Gauss–Newton with the offset a profiled out (variable projection), one
     # model evaluation per iteration; a step that raises χ² is halved instead.
     # Converged stars drop out of the active set.
-    active = np.nonzero(~too_few)[0]
+    jit = kernels.jit_for(n)
+    active = np.nonzero(~too_few)[0] if jit is None else np.zeros(0, np.intp)
+    if jit is not None:  # the same loop, one star at a time, compiled (the same bits)
+        jit["fit_cells"](np.ascontiguousarray(m), np.ascontiguousarray(w), lnt, e, ebv0, np.ascontiguousarray(prior_w),
+                         ~too_few, bool(fit_ebv), *bg.table_stack(keys, law, rv), _MAX_ITERATIONS, _TOL, _MAX_STEP,
+                         lnt_lo, lnt_hi, bg.E_MIN, bg.E_MAX)
     best = np.full(n, np.inf)  # χ² at the last accepted point
     step_t = np.zeros(n)
     step_e = np.zeros(n)
@@ -170,10 +190,10 @@ def fit_blackbody(mags, errs, keys, ebv=0.0, ebv_err=np.inf, fit_ebv=False,
             break
         ws, ms = w[active], m[active]
         mod, d_t, d_e = model_rows(active, lnt[active], e[active], fit_ebv)
-        wsum = ws.sum(axis=1)
-        a_act = (ws * (ms - mod)).sum(axis=1) / wsum
+        wsum = _rowsum(ws)
+        a_act = _rowsum(ws * (ms - mod)) / wsum
         r = ms - mod - a_act[:, None]
-        chi = (ws * r * r).sum(axis=1)
+        chi = _rowsum(ws * r * r)
         if fit_ebv:
             chi = chi + prior_w[active] * (e[active] - ebv0[active]) ** 2
         worse = chi > best[active] * (1 + 1e-12) + 1e-12
@@ -188,14 +208,14 @@ def fit_blackbody(mags, errs, keys, ebv=0.0, ebv_err=np.inf, fit_ebv=False,
         best[idx] = chi[ok]
         # profiled Jacobian: derivative columns minus their weighted means
         wk = ws[ok]
-        jt = d_t[ok] - ((wk * d_t[ok]).sum(axis=1) / wsum[ok])[:, None]
-        htt = (wk * jt * jt).sum(axis=1)
-        gt = (wk * jt * r[ok]).sum(axis=1)
+        jt = d_t[ok] - (_rowsum(wk * d_t[ok]) / wsum[ok])[:, None]
+        htt = _rowsum(wk * jt * jt)
+        gt = _rowsum(wk * jt * r[ok])
         if fit_ebv:
-            je = d_e[ok] - ((wk * d_e[ok]).sum(axis=1) / wsum[ok])[:, None]
-            hte = (wk * jt * je).sum(axis=1)
-            hee = (wk * je * je).sum(axis=1) + prior_w[idx]
-            ge = (wk * je * r[ok]).sum(axis=1) + prior_w[idx] * (ebv0[idx] - e[idx])
+            je = d_e[ok] - (_rowsum(wk * d_e[ok]) / wsum[ok])[:, None]
+            hte = _rowsum(wk * jt * je)
+            hee = _rowsum(wk * je * je) + prior_w[idx]
+            ge = _rowsum(wk * je * r[ok]) + prior_w[idx] * (ebv0[idx] - e[idx])
             det = htt * hee - hte * hte
             with np.errstate(divide="ignore", invalid="ignore"):
                 dt = np.where(det > 0, (hee * gt - hte * ge) / det, 0.0)
