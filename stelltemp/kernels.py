@@ -40,6 +40,11 @@ The kernels
     convergence test (the twin of ``combine._iterate``).  It saves the
     numpy glue between the kernels above: 5 bands, 1e5 stars, 1.39 → 1.07 s
     (min of 3) for a whole ``estimate`` with E(B−V) given.
+`fit_cells`
+    The Gauss–Newton loop of the multi-band blackbody fit
+    (``fit.fit_blackbody``), one star at a time, its sums over the bands
+    in ascending order as the numpy loop's ``_rowsum``: 5 bands, 1e5
+    stars, 0.46 → 0.28 s for the whole fit (one thread).
 
 The relation kernels work on blocks of `BLOCK` stars, one term of the
 polynomial at a time across the block, so the loops over stars vectorise;
