@@ -458,6 +458,28 @@ def block_scratch(size):
             np.empty(size), np.empty(size), np.empty(size), np.empty(size), np.empty(size, np.bool_))
 
 
+@_njit(inline="always")
+def stage_star(mm, origin, colour, lo, hi, feh, logg, target, where, xm, zb, gb, tb, slot):
+    """Put a star into slot mm of a Newton block, its colour clamped to the relation's range; mm + 1."""
+    where[mm] = origin
+    xm[mm] = lo if colour < lo else (hi if colour > hi else colour)
+    zb[mm] = feh
+    gb[mm] = logg
+    tb[mm] = target
+    slot[mm] = mm
+    return mm + 1
+
+
+@_njit(inline="always")
+def pseudo_observation(q, target, colour, fin_x, fin_t, fin_s, fin_g, fin_ok):
+    """(usable, ỹ, slope, ∂T/∂[Fe/H]) of block star q once inverted: ỹ = T̂ + s(X_m)·(X − X_m)."""
+    si = fin_s[q]
+    if fin_ok[q] and abs(fin_t[q] - target) < 0.5 and np.isfinite(si):
+        gi = fin_g[q]
+        return True, target + si * (colour - fin_x[q]), si, (gi if np.isfinite(gi) else 0.0)
+    return False, 0.0, 0.0, 0.0
+
+
 @_njit()
 def linearise_relation(x, t_hat, z, g, used, steps, form, bounds, needs_logg, coef, pows, counts,
                        xs, ts, slopes, y, s, gz):
@@ -474,26 +496,15 @@ def linearise_relation(x, t_hat, z, g, used, steps, form, bounds, needs_logg, co
         m = 0
         while k < n and m < BLOCK:
             if used[k] and np.isfinite(t_hat[k]):
-                where[m] = k
-                v = x[k]
-                xm[m] = lo if v < lo else (hi if v > hi else v)
-                zb[m] = z[k]
-                gb[m] = g[k]
-                tb[m] = t_hat[k]
-                slot[m] = m
-                m += 1
+                m = stage_star(m, k, x[k], lo, hi, z[k], g[k], t_hat[k], where, xm, zb, gb, tb, slot)
             k += 1
         newton_block(m, steps, form, bounds, needs_logg, coef, pows, counts, xs, ts, slopes, xp, zp, gp,
                      xm, zb, gb, tb, slot, at_t, at_s, at_g, at_ok, fin_x, fin_t, fin_s, fin_g, fin_ok)
         for q in range(m):
             kk = where[q]
-            target = t_hat[kk]
-            si = fin_s[q]
-            if fin_ok[q] and abs(fin_t[q] - target) < 0.5 and np.isfinite(si):
-                y[kk] = target + si * (x[kk] - fin_x[q])
-                s[kk] = si
-                gi = fin_g[q]
-                gz[kk] = gi if np.isfinite(gi) else 0.0
+            good, yq, sq, gq = pseudo_observation(q, t_hat[kk], x[kk], fin_x, fin_t, fin_s, fin_g, fin_ok)
+            if good:
+                y[kk], s[kk], gz[kk] = yq, sq, gq
 
 
 @_njit()
@@ -614,27 +625,18 @@ def calibrate_cells(m, var_m, feh, feh_var, logg, applies, t_start, e_start, ebv
                         j = act[q]
                         k = k0 + j
                         if used[k, i] and np.isfinite(t_hat[j]):
-                            where[mm] = j
-                            v0 = x[k, i]
-                            xm[mm] = lo if v0 < lo else (hi if v0 > hi else v0)
-                            zb[mm] = feh[k]
-                            gb[mm] = logg[k]
-                            tb[mm] = t_hat[j]
-                            slot[mm] = mm
-                            mm += 1
+                            mm = stage_star(mm, j, x[k, i], lo, hi, feh[k], logg[k], t_hat[j], where, xm, zb,
+                                            gb, tb, slot)
                     newton_block(mm, inverse_steps, forms[i], bounds[i], needs_logg[i], coef[i], pows[i],
                                  counts[i], args_xs, args_ts, args_sl, xp, zp, gp, xm, zb, gb, tb, slot,
                                  at_t, at_s, at_g, at_ok, fin_x, fin_t, fin_s, fin_g, fin_ok)
                     for q in range(mm):
                         j = where[q]
                         k = k0 + j
-                        target = t_hat[j]
-                        si = fin_s[q]
-                        if fin_ok[q] and abs(fin_t[q] - target) < 0.5 and np.isfinite(si):
-                            y[k, i] = target + si * (x[k, i] - fin_x[q])
-                            s[k, i] = si
-                            gi = fin_g[q]
-                            gz[j, i] = gi if np.isfinite(gi) else 0.0
+                        good, yq, sq, gq = pseudo_observation(q, t_hat[j], x[k, i], fin_x, fin_t, fin_s, fin_g,
+                                                              fin_ok)
+                        if good:
+                            y[k, i], s[k, i], gz[j, i] = yq, sq, gq
             # per star: scatter, design, the combination (`_combine_pass`) and convergence
             for q in range(na):
                 j = act[q]
