@@ -10,14 +10,27 @@ every Dask worker).
 """
 
 import numba
+import numba.core.cpu
 import numpy as np
 
 from .kernels import BLOCK
 
 _OPTIONS = dict(cache=True, nogil=True, error_model="numpy", fastmath=False)
+# The compute functions are compiled without numba's reference-counting runtime: with it, each
+# array view or array handed to an inlined helper inside a per-star loop costs an atomic
+# incref/decref call pair that its pruning pass often cannot remove (about 100 ns a star in
+# the combination, 10x its arithmetic).  Such a function cannot allocate, so each kernel that
+# needs work arrays is a thin wrapper (`_njit_alloc`) that allocates them and calls its core.
+_NO_RUNTIME = {"_nrt": False} if hasattr(numba.core.cpu.CPUTargetOptions, "_nrt") else {}
 
 
 def _njit(**extra):
+    """Compile a compute function (no allocation inside)."""
+    return numba.njit(**_OPTIONS, **_NO_RUNTIME, **extra)
+
+
+def _njit_alloc(**extra):
+    """Compile a function that allocates arrays (the work arrays of a kernel's core)."""
     return numba.njit(**_OPTIONS, **extra)
 
 
@@ -284,11 +297,19 @@ def combine_star(s, g, used, var_m, blue, red, same, scatter, feh_var, a, v, y, 
     return np.nan, info_known
 
 
-@_njit()
+@_njit_alloc()
 def combine_cells(s, g, used, var_m, blue, red, same, scatter, feh_var, a, v, y, fit, ebv_var,
                   prior_prec, prior_d, est, cov, chi2, l_y, l_p, c_diag, info_known):
-    n, r = s.shape
-    c, rhs, low, z, sol, idx = combine_scratch(r)
+    combine_rows(s, g, used, var_m, blue, red, same, scatter, feh_var, a, v, y, fit, ebv_var,
+                 prior_prec, prior_d, est, cov, chi2, l_y, l_p, c_diag, info_known, combine_scratch(s.shape[1]))
+
+
+@_njit()
+def combine_rows(s, g, used, var_m, blue, red, same, scatter, feh_var, a, v, y, fit, ebv_var,
+                 prior_prec, prior_d, est, cov, chi2, l_y, l_p, c_diag, info_known, work):
+    """The loop of `combine_cells` over its work arrays."""
+    n = s.shape[0]
+    c, rhs, low, z, sol, idx = work
     for k in range(n):
         chi2[k], info_known[k] = combine_star(
             s[k], g[k], used[k], var_m[k], blue, red, same, scatter[k], feh_var[k], a[k], v[k], y[k], fit,
@@ -296,7 +317,7 @@ def combine_cells(s, g, used, var_m, blue, red, same, scatter, feh_var, a, v, y,
             c, rhs, low, z, sol, idx)
 
 
-@_njit()
+@_njit_alloc()
 def combine_scratch(r):
     """Work arrays of `combine_star` for r relations."""
     return (np.empty((r, r)), np.empty((r, 3)), np.zeros((r, r)), np.empty((r, 3)), np.empty((r, 3)),
@@ -392,7 +413,7 @@ def relation_block(x, z, g, m, form, bounds, needs_logg, coef, pows, counts, xs,
         elif zj < floor:  # held at the floor: no [Fe/H] dependence
             d_z[j] = 0.0
 
-@_njit()
+@_njit_alloc()
 def relation_scratch(coef_pows, m):
     """Blocks of the powers of X, [Fe/H] and log g that a relation's terms use."""
     top = np.ones(3, np.int64)
@@ -402,11 +423,19 @@ def relation_scratch(coef_pows, m):
                 top[v] = max(top[v], coef_pows[d, i, v])
     return np.empty((top[0] + 1, m)), np.empty((top[1] + 1, m)), np.empty((top[2] + 1, m))
 
-@_njit()
+@_njit_alloc()
 def relation_cells(x, z, g, form, bounds, needs_logg, coef, pows, counts, xs, ts, slopes,
                    t, d_x, d_z, inside):
+    relation_rows(x, z, g, form, bounds, needs_logg, coef, pows, counts, xs, ts, slopes,
+                  t, d_x, d_z, inside, relation_scratch(pows, BLOCK))
+
+
+@_njit()
+def relation_rows(x, z, g, form, bounds, needs_logg, coef, pows, counts, xs, ts, slopes,
+                  t, d_x, d_z, inside, powers):
+    """The loop of `relation_cells` over its work arrays."""
     n = x.size
-    xp, zp, gp = relation_scratch(pows, BLOCK)
+    xp, zp, gp = powers
     for k0 in range(0, n, BLOCK):
         m = min(BLOCK, n - k0)
         relation_block(x[k0:k0 + m], z[k0:k0 + m], g[k0:k0 + m], m, form, bounds, needs_logg, coef, pows,
@@ -450,7 +479,7 @@ def newton_block(m, steps, form, bounds, needs_logg, coef, pows, counts, xs, ts,
             fin_x[q], fin_t[q], fin_s[q], fin_g[q], fin_ok[q] = xm[j], at_t[j], at_s[j], at_g[j], at_ok[j]
 
 
-@_njit()
+@_njit_alloc()
 def block_scratch(size):
     """Work arrays of one block: stars' rows, colours, [Fe/H], log g, targets, slots, evaluations, finals."""
     return (np.empty(size, np.intp), np.empty(size), np.empty(size), np.empty(size), np.empty(size),
@@ -480,16 +509,24 @@ def pseudo_observation(q, target, colour, fin_x, fin_t, fin_s, fin_g, fin_ok):
     return False, 0.0, 0.0, 0.0
 
 
-@_njit()
+@_njit_alloc()
 def linearise_relation(x, t_hat, z, g, used, steps, form, bounds, needs_logg, coef, pows, counts,
                        xs, ts, slopes, y, s, gz):
+    linearise_rows(x, t_hat, z, g, used, steps, form, bounds, needs_logg, coef, pows, counts,
+                   xs, ts, slopes, y, s, gz, relation_scratch(pows, BLOCK), block_scratch(BLOCK))
+
+
+@_njit()
+def linearise_rows(x, t_hat, z, g, used, steps, form, bounds, needs_logg, coef, pows, counts,
+                   xs, ts, slopes, y, s, gz, powers, block):
+    """The loop of `linearise_relation` over its work arrays."""
     lo = bounds[0]
     hi = bounds[1]
-    xp, zp, gp = relation_scratch(pows, BLOCK)
+    xp, zp, gp = powers
     # a block of stars to invert: where each came from, its colour now and its inputs; the
     # relation's values at the current colours; per star (by its first slot) the final ones
     (where, xm, zb, gb, tb, slot, at_t, at_s, at_g, at_ok,
-     fin_x, fin_t, fin_s, fin_g, fin_ok) = block_scratch(BLOCK)
+     fin_x, fin_t, fin_s, fin_g, fin_ok) = block
     n = x.size
     k = 0
     while k < n:
@@ -507,7 +544,7 @@ def linearise_relation(x, t_hat, z, g, used, steps, form, bounds, needs_logg, co
                 y[kk], s[kk], gz[kk] = yq, sq, gq
 
 
-@_njit()
+@_njit_alloc()
 def calibrate_cells(m, var_m, feh, feh_var, logg, applies, t_start, e_start, ebv, ebv_var, prior_prec, fit,
                     patches, offsets, tab_shape, tab_grid,
                     blue, red, same, scatter0, scatter_frac,
@@ -515,6 +552,33 @@ def calibrate_cells(m, var_m, feh, feh_var, logg, applies, t_start, e_start, ebv
                     iterations, inverse_steps, tol_t, tol_e, settling, e_min, e_max, min_free,
                     x0, first_used, x, kx, y, s, used, sc, v, n_used, bad, est, cov, chi2, l_y, l_p, c_diag,
                     info_known, moving, seen_lo, seen_hi, e_lin):
+    """The Gauss–Newton passes of `combine.calibrated_teff` (its `_iterate`), compiled: the same bits.
+
+    Allocates the work arrays and runs `calibrate_passes`.
+    """
+    r = blue.size
+    nb = m.shape[1]
+    own = (np.empty(BLOCK, np.intp), np.empty(BLOCK), np.empty(BLOCK), np.empty(BLOCK), np.empty(BLOCK),
+           np.empty(BLOCK), np.empty(BLOCK, np.bool_), np.empty((BLOCK, r), np.bool_), np.empty((BLOCK, r)),
+           np.empty((BLOCK, r)), np.empty(nb), np.empty(nb), np.empty(nb), np.empty(r))
+    calibrate_passes(
+        m, var_m, feh, feh_var, logg, applies, t_start, e_start, ebv, ebv_var, prior_prec, fit, patches,
+        offsets, tab_shape, tab_grid, blue, red, same, scatter0, scatter_frac, forms, bounds, needs_logg,
+        coef, pows, counts, xs, ts, slopes, n_nodes, iterations, inverse_steps, tol_t, tol_e, settling,
+        e_min, e_max, min_free, x0, first_used, x, kx, y, s, used, sc, v, n_used, bad, est, cov, chi2, l_y,
+        l_p, c_diag, info_known, moving, seen_lo, seen_hi, e_lin,
+        relation_scratch(pows.reshape(-1, pows.shape[2], 3), BLOCK), block_scratch(BLOCK), own,
+        combine_scratch(r))
+
+
+@_njit()
+def calibrate_passes(m, var_m, feh, feh_var, logg, applies, t_start, e_start, ebv, ebv_var, prior_prec, fit,
+                     patches, offsets, tab_shape, tab_grid,
+                     blue, red, same, scatter0, scatter_frac,
+                     forms, bounds, needs_logg, coef, pows, counts, xs, ts, slopes, n_nodes,
+                     iterations, inverse_steps, tol_t, tol_e, settling, e_min, e_max, min_free,
+                     x0, first_used, x, kx, y, s, used, sc, v, n_used, bad, est, cov, chi2, l_y, l_p, c_diag,
+                     info_known, moving, seen_lo, seen_hi, e_lin, powers, block, own, work):
     """The Gauss–Newton passes of `combine.calibrated_teff` (its `_iterate`), compiled: the same bits.
 
     Stars go through in blocks of `BLOCK`.  Each pass of a block runs, for
@@ -529,18 +593,11 @@ def calibrate_cells(m, var_m, feh, feh_var, logg, applies, t_start, e_start, ebv
     """
     n, nb = m.shape
     r = blue.size
-    xp, zp, gp = relation_scratch(pows.reshape(-1, pows.shape[2], 3), BLOCK)
+    xp, zp, gp = powers
     (where, xm, zb, gb, tb, slot, at_t, at_s, at_g, at_ok,
-     fin_x, fin_t, fin_s, fin_g, fin_ok) = block_scratch(BLOCK)
-    act = np.empty(BLOCK, np.intp)
-    t_ref, el, t_hat = np.empty(BLOCK), np.empty(BLOCK), np.empty(BLOCK)
-    lo_seen, hi_seen = np.empty(BLOCK), np.empty(BLOCK)
-    still = np.empty(BLOCK, np.bool_)
-    allowed = np.empty((BLOCK, r), np.bool_)
-    kt, gz = np.empty((BLOCK, r)), np.empty((BLOCK, r))
-    ex, de, dt = np.empty(nb), np.empty(nb), np.empty(nb)
-    a = np.empty(r)
-    c, rhs, low, z, sol, idx = combine_scratch(r)
+     fin_x, fin_t, fin_s, fin_g, fin_ok) = block
+    act, t_ref, el, t_hat, lo_seen, hi_seen, still, allowed, kt, gz, ex, de, dt, a = own
+    c, rhs, low, z, sol, idx = work
     for k0 in range(0, n, BLOCK):
         nblk = min(BLOCK, n - k0)
         for j in range(nblk):
@@ -695,9 +752,23 @@ def band_point(b, lnt, ebv, patches, offsets, tab_shape, tab_grid, want_de):
                        tab_grid[b, 0], tab_grid[b, 1], tab_grid[b, 2], tab_grid[b, 3], want_de)
 
 
-@_njit()
+@_njit_alloc()
 def fit_cells(m, w, lnt, e, ebv0, prior_w, todo, fit, patches, offsets, tab_shape, tab_grid,
               iterations, tol, max_step, lnt_lo, lnt_hi, e_min, e_max):
+    """The Gauss–Newton loop of `fit.fit_blackbody`, one star at a time (its twin, the same bits).
+
+    Allocates the work arrays and runs `fit_rows`.
+    """
+    nb = m.shape[1]
+    fit_rows(
+        m, w, lnt, e, ebv0, prior_w, todo, fit, patches, offsets, tab_shape, tab_grid, iterations, tol,
+        max_step, lnt_lo, lnt_hi, e_min, e_max,
+        (np.empty(nb), np.empty(nb), np.empty(nb), np.empty(nb)))
+
+
+@_njit()
+def fit_rows(m, w, lnt, e, ebv0, prior_w, todo, fit, patches, offsets, tab_shape, tab_grid,
+             iterations, tol, max_step, lnt_lo, lnt_hi, e_min, e_max, work):
     """The Gauss–Newton loop of `fit.fit_blackbody`, one star at a time (its twin, the same bits).
 
     ``lnt`` and ``e`` hold each star's start and receive its solution; stars
@@ -705,7 +776,7 @@ def fit_cells(m, w, lnt, e, ebv0, prior_w, todo, fit, patches, offsets, tab_shap
     order, as the numpy loop's `fit._rowsum` does.
     """
     n, nb = m.shape
-    mod, d_t, d_e, r = np.empty(nb), np.empty(nb), np.empty(nb), np.empty(nb)
+    mod, d_t, d_e, r = work
     for k in range(n):
         if not todo[k]:
             continue

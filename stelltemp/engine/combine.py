@@ -159,7 +159,8 @@ def candidate_relations(keys):
 def colour_excess(keys, t_bb, ebv, law, rv):
     """Per band: excess ΔM = M(T, E) − M(T, 0), ∂M/∂E and ∂ΔM/∂ln T, arrays (n_stars, n_bands)."""
     n = len(t_bb)
-    lnt = np.log(np.where(np.isfinite(t_bb), t_bb, 5800.0))
+    # the log of the compiled passes (`kernels.calibrate_cells`), so both give the same bits
+    lnt = kernels.c_log(np.where(np.isfinite(t_bb), t_bb, 5800.0))
     e_used = np.clip(np.where(np.isfinite(ebv), ebv, 0.0), bg.E_MIN, bg.E_MAX)
     ex = np.empty((n, len(keys)))
     de = np.empty((n, len(keys)))
