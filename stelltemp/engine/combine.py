@@ -284,18 +284,42 @@ def _linearise_at(setup, t_hat, x, y, s, g, used, feh, logg):
     return y, s, g
 
 
-def _covariance(setup, s, g, used, sig_m, feh_err, scatter):
-    """C without the reddening term; unused rows and columns replaced by the identity."""
+def _covariance(setup, s, g, used, sig_m, feh_err, scatter, order=None):
+    """C without the reddening term; unused rows and columns replaced by the identity.
+
+    With ``order`` (n, w) the per-relation arrays are a star's relations in
+    that order (`_used_first`), and C is built in it.
+    """
     var_m = np.where(np.isfinite(sig_m), sig_m, 0.0) ** 2
+    pick, same = setup.pick[None], setup.same[None]
+    if order is not None:
+        pick, same = setup.pick[order], setup.same[order[:, :, None], order[:, None, :]]
     # each pick row holds one +1 and one -1, so every entry is a sum of at most two exact
     # products: the same bits in any order of summation (as `kernels.combine_cells` builds it)
-    phot = (setup.pick[None] * var_m[:, None, :]) @ setup.pick.T
+    phot = (pick * var_m[:, None, :]) @ np.swapaxes(pick, 1, 2)
     c = s[:, :, None] * s[:, None, :] * phot
-    c += np.where(setup.same[None], scatter[:, :, None] * scatter[:, None, :], 0.0)
+    c += np.where(same, scatter[:, :, None] * scatter[:, None, :], 0.0)
     c += g[:, :, None] * g[:, None, :] * (feh_err**2)[:, None, None]
     both = used[:, :, None] & used[:, None, :]
-    eye = np.eye(len(setup.rels))[None]
+    eye = np.eye(used.shape[1])[None]
     return np.where(both, c, 0.0) + np.where(used[:, :, None], 0.0, eye)
+
+
+def _used_first(used):
+    """Per star, its used relations in ascending order, then the others: (n, w) indices.
+
+    w is the most relations any star uses.  Solving on these w columns gives
+    the bits of the full padded system (an unused relation's identity row
+    adds exact zeros to every sum) with far fewer operations, and is the
+    order in which `kernels.combine_cells` takes a star's relations.
+
+    Examples
+    --------
+    >>> _used_first(np.array([[False, True, True], [True, False, False]])).tolist()
+    [[1, 2], [0, 1]]
+    """
+    order = np.argsort(~used, axis=1, kind="stable")
+    return order[:, :max(int(used.sum(axis=1).max(initial=0)), 1)]
 
 
 def _cholesky_solve(c, rhs):
@@ -346,7 +370,7 @@ def _dot(a, b):
     return acc
 
 
-def _gls(c, design, y, used, prior_prec, prior_d):
+def _gls(c, design, y, used, prior_prec, prior_d, extra=None):
     """Generalised least squares per star, with an optional Gaussian prior on parameter 1.
 
     All stars are solved at once on the full set of relations: a relation a
@@ -360,15 +384,17 @@ def _gls(c, design, y, used, prior_prec, prior_d):
 
     Returns estimate (n, p), covariance (n, p, p), χ², the linear
     estimator (estimate = Ly @ y + Lp · prior_d, Ly zero for unused
-    relations) and aᵀC⁻¹a of the first design column (without the prior).
+    relations) and aᵀC⁻¹a of the first design column (without the prior);
+    with ``extra`` (n, r), also C⁻¹·extra from the same factorisation.
     """
     n, r, p = design.shape
     if n == 0:
         return (np.full((0, p), np.nan), np.full((0, p, p), np.nan), np.full(0, np.nan),
-                np.zeros((0, p, r)), np.zeros((0, p)), np.zeros(0))
+                np.zeros((0, p, r)), np.zeros((0, p)), np.zeros(0)) + ((np.zeros((0, r)),) if extra is not None else ())
     a = np.where(used[:, :, None], design, 0.0)
     yy = np.where(used, y, 0.0)
-    sol = _cholesky_solve(c, np.concatenate([a, yy[:, :, None]], axis=2))
+    sides = [a, yy[:, :, None]] + ([] if extra is None else [extra[:, :, None]])
+    sol = _cholesky_solve(c, np.concatenate(sides, axis=2))  # each column substituted on its own
     za, w = sol[:, :, :p], sol[:, :, p]
     i00 = _dot(a[:, :, 0], za[:, :, 0])
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -406,6 +432,8 @@ def _gls(c, design, y, used, prior_prec, prior_d):
     none = ~used.any(axis=1)  # no relation: nothing estimated
     l_y[none] = 0.0
     l_p[none] = 0.0
+    if extra is not None:
+        return e, cv, chi2, l_y, l_p, i00, sol[:, :, p + 1]
     return e, cv, chi2, l_y, l_p, i00
 
 
@@ -433,19 +461,33 @@ def _combine_pass(setup, s, g, used, sig_m, feh_err, scatter, a, v, y, fit_ebv, 
                              f(feh_err**2), f(a), f(v), f(y), bool(fit_ebv), f(e2), f(prior_prec),
                              f(prior_d), *out)
         return out
-    c = _covariance(setup, s, g, used, sig_m, feh_err, scatter)
+    # the numpy twin: each star's used relations first, the others left out (the same bits)
+    order = _used_first(used)
+    s, g, scatter, a, v, y, used = (np.take_along_axis(q, order, 1) for q in (s, g, scatter, a, v, y, used))
+    c = _covariance(setup, s, g, used, sig_m, feh_err, scatter, order)
     if fit_ebv:
         est, cov, chi2, ly, lp, info = _gls(c, np.stack([a, v], axis=-1), y, used, prior_prec, prior_d)
-        return est, cov, chi2, ly, lp, np.einsum("nii->ni", c), info
+        return (est, cov, chi2, _unpack(ly, order, r, 0.0), lp,
+                _unpack(np.einsum("nii->ni", c), order, r, 1.0), info)
     vv = np.where(used, v, 0.0)
     c_red = c + vv[:, :, None] * vv[:, None, :] * e2[:, None, None]
-    est, cov, chi2, ly, lp, info = _gls(c_red, a[:, :, None], y, used, np.zeros(k), np.zeros(k))
-    # aᵀC₀⁻¹a with C₀ = C − σ_E² v vᵀ (Sherman–Morrison: no second factorisation)
-    cv_v = _cholesky_solve(c_red, vv[:, :, None])[:, :, 0]
+    # aᵀC₀⁻¹a with C₀ = C − σ_E² v vᵀ (Sherman–Morrison: no second factorisation); C⁻¹v
+    # comes from the factorisation of the fit, as one more right-hand side
+    est, cov, chi2, ly, lp, info, cv_v = _gls(c_red, a[:, :, None], y, used, np.zeros(k), np.zeros(k), extra=vv)
     av, vcv = _dot(np.where(used, a, 0.0), cv_v), _dot(vv, cv_v)
     with np.errstate(divide="ignore", invalid="ignore"):
         known = info + e2 * (av * av) / (1.0 - e2 * vcv)
-    return est, cov, chi2, ly, lp, np.einsum("nii->ni", c_red), np.where(e2 > 0, known, info)
+    return (est, cov, chi2, _unpack(ly, order, r, 0.0), lp, _unpack(np.einsum("nii->ni", c_red), order, r, 1.0),
+            np.where(e2 > 0, known, info))
+
+
+def _unpack(packed, order, r, fill):
+    """Values over a star's relations in `_used_first` order back on all r relations (``fill``
+    for those it does not use); ``packed`` (n, w) or (n, p, w)."""
+    out = np.full(packed.shape[:-1] + (r,), fill)
+    index = order if packed.ndim == 2 else np.broadcast_to(order[:, None, :], packed.shape)
+    np.put_along_axis(out, index, packed, -1)
+    return out
 
 
 def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=None, feh_err=None,
