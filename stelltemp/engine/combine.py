@@ -825,11 +825,16 @@ def _outside(setup, x, used, teff, feh, logg):
     n = x.shape[0]
     out = np.zeros(n, bool)
     covered, had = {}, {}
+    # the temperatures at a relation's colour limits depend on [Fe/H] and log g alone: once for
+    # all stars when every star has the same (the usual assumed solar [Fe/H], no log g)
+    one_feh, one_logg = _same_for_all(feh), _same_for_all(logg)
+    shared = one_feh is not None and one_logg is not None
     for i, rel in enumerate(setup.rels):
         cand = rel.applies_to(logg) & np.isfinite(x[:, i])
         if not cand.any():
             continue
-        ends = [rel.teff(np.full(n, c), feh, logg)[0] for c in rel.colour_range]
+        ends = [rel.teff(np.full(1, c), one_feh, one_logg)[0] if shared else rel.teff(np.full(n, c), feh, logg)[0]
+                for c in rel.colour_range]
         lo, hi = np.fmin(*ends), np.fmax(*ends)
         with np.errstate(invalid="ignore"):
             inside_t = cand & (teff >= lo) & (teff <= hi)
@@ -838,6 +843,21 @@ def _outside(setup, x, used, teff, feh, logg):
     for pair, c in covered.items():
         out |= c & ~had[pair]
     return out
+
+
+def _same_for_all(values):
+    """The one value every star has, as a 1-element array (NaN equals NaN), else None.
+
+    Examples
+    --------
+    >>> _same_for_all(np.array([np.nan, np.nan])), _same_for_all(np.array([0.0, 0.1]))
+    (array([nan]), None)
+    """
+    v = np.asarray(values, float).ravel()
+    if v.size == 0:
+        return None
+    same = np.isnan(v).all() if np.isnan(v[0]) else (v == v[0]).all()
+    return v[:1].copy() if same else None
 
 
 def _nothing(n, setup, outside, notes):
