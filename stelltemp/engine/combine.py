@@ -743,8 +743,8 @@ def _iterate_compiled(setup, m, sig_m, keys, feh, feh_err, logg, law, rv, fit_eb
     if not keep.all():
         setup = setup.subset(keep)
         for name in ("x", "kx", "y", "s", "used", "sc", "v", "c_diag"):
-            out[name] = out[name][:, keep]
-        out["ly"] = out["ly"][:, :, keep]
+            out[name] = out[name].compress(keep, axis=1)  # twice as fast as [:, keep]
+        out["ly"] = out["ly"].compress(keep, axis=2)
     if not keep.any():
         return setup, keep, x0, None, None, None, None, e_lin
     return setup, keep, x0, out, moving, seen_lo, seen_hi, e_lin
