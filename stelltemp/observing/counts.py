@@ -297,13 +297,33 @@ def star_electron_rate(instrument: Instrument, filter_name: str, mag, band=None,
     return float(out) if np.ndim(out) == 0 else out
 
 
+#: zero-point rates of the recent instruments, by identity: id → (instrument, {filter: e⁻ s⁻¹}).
+#: An Instrument is frozen, so its rates never change; it is kept alive by its entry (so its id
+#: is not reused while the entry exists).  A night plan asks for each filter's rate hundreds of times.
+_ZERO_POINTS = {}
+_ZERO_POINT_INSTRUMENTS = 16
+
+
 def zero_point_rate(instrument: Instrument, filter_name: str):
     """Electrons per second from a 0-mag source with the band's zero-point spectrum, above the atmosphere.
 
     Vega-system bands: the Vega spectrum scaled to magnitude 0 (Vega itself
     has the passband's adopted magnitude).  AB and ST bands: F_ν = 3631 Jy
     or F_λ = 3.63×10⁻⁹ erg s⁻¹ cm⁻² Å⁻¹ exactly (magnitude 0 by definition).
+    Computed once per instrument and filter.
     """
+    entry = _ZERO_POINTS.get(id(instrument))
+    if entry is None or entry[0] is not instrument:
+        while len(_ZERO_POINTS) >= _ZERO_POINT_INSTRUMENTS:
+            _ZERO_POINTS.pop(next(iter(_ZERO_POINTS)), None)
+        entry = _ZERO_POINTS[id(instrument)] = (instrument, {})
+    rates = entry[1]
+    if filter_name not in rates:
+        rates[filter_name] = _zero_point_rate(instrument, filter_name)
+    return rates[filter_name]
+
+
+def _zero_point_rate(instrument, filter_name):
     spec = instrument.filter(filter_name)
     pb = spec.passband
     if pb.magsys == "Vega":
