@@ -155,6 +155,18 @@ def test_ab_zero_point_photon_rate_is_exact(ideal):
     assert got == pytest.approx(expected, rel=1e-9)
 
 
+def test_zero_point_rate_computed_once_per_instrument_and_filter(rig, monkeypatch):
+    calls = []
+    real = counts._zero_point_rate
+    monkeypatch.setattr(counts, "_zero_point_rate", lambda inst, f: calls.append(f) or real(inst, f))
+    monkeypatch.setattr(counts, "_ZERO_POINTS", {})
+    first = counts.zero_point_rate(rig, "V")
+    assert counts.zero_point_rate(rig, "V") == first == real(rig, "V")
+    assert calls == ["V"]  # the second call read the stored rate
+    other = load_instrument(DEMO / "quillmere_04m_ccd.toml")  # another object: its own entry
+    assert counts.zero_point_rate(other, "V") == first and calls == ["V", "V"]
+
+
 def test_reddening_moves_counts_to_the_red_as_the_colours_say(rig):
     # At the same observed V, a reddened star is redder: more electrons in I, fewer in B.
     # The I ratio follows the reddened blackbody V−Ic excess through the same curves
