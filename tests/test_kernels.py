@@ -333,3 +333,25 @@ def test_blackbody_fit_identical_compiled_and_numpy(both, fit_ebv, ebv_err):
     assert np.isfinite(slow["t"]).sum() > 400
     for name in slow:
         _same(np.asarray(fast[name]), np.asarray(slow[name]))
+
+
+def test_c_log_is_the_compiled_kernels_log():
+    """The numpy twins take the C library's log (`kernels.c_log`), the one numba's compiled code calls;
+    numpy's own vectorised log can differ from it in the last bit (AVX-512 builds of numpy 2)."""
+    import math
+
+    rng = np.random.default_rng(8)
+    t = np.exp(rng.uniform(np.log(500.0), np.log(2e5), 200_000))
+    edge = np.array([0.0, -1.0, np.nan, np.inf, 1.0])
+    got = kernels.c_log(np.concatenate([t, edge]))
+    assert np.array_equal(got[:t.size], np.array([math.log(v) for v in t]))
+    assert np.array_equal(got[t.size:], [-np.inf, np.nan, np.nan, np.inf, 0.0], equal_nan=True)
+
+    @numba.njit
+    def compiled_log(x):
+        out = np.empty_like(x)
+        for i in range(x.size):
+            out[i] = np.log(x[i])
+        return out
+
+    assert np.array_equal(compiled_log(t), got[:t.size])
