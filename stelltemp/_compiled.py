@@ -444,20 +444,23 @@ def relation_rows(x, z, g, form, bounds, needs_logg, coef, pows, counts, xs, ts,
 
 @_njit()
 def newton_block(m, steps, form, bounds, needs_logg, coef, pows, counts, xs, ts, slopes, xp, zp, gp,
-                 xm, zb, gb, tb, slot, at_t, at_s, at_g, at_ok, fin_x, fin_t, fin_s, fin_g, fin_ok):
+                 xm, zb, gb, tb, slot, at_t, at_s, at_g, at_ok, fin_x, fin_t, fin_s, fin_g, fin_ok, primed):
     """Newton steps from colours xm towards the temperatures tb, for the first m stars of a block.
 
     Each star's final colour and the relation's values there land in
     ``fin_*`` at its ``slot``; the block's arrays are reordered on the way
-    (the stars still moving kept at the front).
+    (the stars still moving kept at the front).  ``primed``: ``at_*`` already
+    hold the relation at the starting colours (the first step evaluates
+    nothing).
     """
     lo = bounds[0]
     hi = bounds[1]
-    for _ in range(steps):
+    for step_no in range(steps):
         if m == 0:
             break
-        relation_block(xm, zb, gb, m, form, bounds, needs_logg, coef, pows, counts, xs, ts, slopes,
-                       xp, zp, gp, at_t, at_s, at_g, at_ok)
+        if step_no or not primed:
+            relation_block(xm, zb, gb, m, form, bounds, needs_logg, coef, pows, counts, xs, ts, slopes,
+                           xp, zp, gp, at_t, at_s, at_g, at_ok)
         # keep the stars still moving at the front; an exact fixed point ends a star's steps
         # with the evaluation just made
         keep = 0
@@ -536,7 +539,7 @@ def linearise_rows(x, t_hat, z, g, used, steps, form, bounds, needs_logg, coef, 
                 m = stage_star(m, k, x[k], lo, hi, z[k], g[k], t_hat[k], where, xm, zb, gb, tb, slot)
             k += 1
         newton_block(m, steps, form, bounds, needs_logg, coef, pows, counts, xs, ts, slopes, xp, zp, gp,
-                     xm, zb, gb, tb, slot, at_t, at_s, at_g, at_ok, fin_x, fin_t, fin_s, fin_g, fin_ok)
+                     xm, zb, gb, tb, slot, at_t, at_s, at_g, at_ok, fin_x, fin_t, fin_s, fin_g, fin_ok, False)
         for q in range(m):
             kk = where[q]
             good, yq, sq, gq = pseudo_observation(q, t_hat[kk], x[kk], fin_x, fin_t, fin_s, fin_g, fin_ok)
@@ -682,11 +685,14 @@ def calibrate_passes(m, var_m, feh, feh_var, logg, applies, t_start, e_start, eb
                         j = act[q]
                         k = k0 + j
                         if used[k, i] and np.isfinite(t_hat[j]):
+                            # a used star's colour is inside the relation's range, so Newton starts at the
+                            # very colour just evaluated: its first evaluation is the one above
+                            at_t[mm], at_s[mm], at_g[mm], at_ok[mm] = y[k, i], s[k, i], gz[j, i], True
                             mm = stage_star(mm, j, x[k, i], lo, hi, feh[k], logg[k], t_hat[j], where, xm, zb,
                                             gb, tb, slot)
                     newton_block(mm, inverse_steps, forms[i], bounds[i], needs_logg[i], coef[i], pows[i],
                                  counts[i], args_xs, args_ts, args_sl, xp, zp, gp, xm, zb, gb, tb, slot,
-                                 at_t, at_s, at_g, at_ok, fin_x, fin_t, fin_s, fin_g, fin_ok)
+                                 at_t, at_s, at_g, at_ok, fin_x, fin_t, fin_s, fin_g, fin_ok, True)
                     for q in range(mm):
                         j = where[q]
                         k = k0 + j
