@@ -324,6 +324,15 @@ def combine_scratch(r):
             np.empty(r, np.intp))
 
 
+@_njit(inline="always")
+def inside_range(x, z, g, bounds, needs_logg):
+    """Whether colour x, [Fe/H] z (and log g g) lie in a relation's validity ranges."""
+    inside = x >= bounds[0] and x <= bounds[1] and z >= bounds[2] and z <= bounds[3]
+    if needs_logg:
+        inside = inside and g >= bounds[4] and g < bounds[5]
+    return inside
+
+
 @_njit()
 def relation_block(x, z, g, m, form, bounds, needs_logg, coef, pows, counts, xs, ts, slopes,
                    xp, zp, gp, t, d_x, d_z, ok):
@@ -398,11 +407,8 @@ def relation_block(x, z, g, m, form, bounds, needs_logg, coef, pows, counts, xs,
                 d_z[j] = scale * d_z[j]
                 ok[j] = t[j] > 0.0
     for j in range(m):
-        xj = x[j]
         zj = z[j]
-        inside = xj >= bounds[0] and xj <= bounds[1] and zj >= bounds[2] and zj <= bounds[3]
-        if needs_logg:
-            inside = inside and g[j] >= bounds[4] and g[j] < bounds[5]
+        inside = inside_range(x[j], zj, g[j], bounds, needs_logg)
         if form != 2:
             inside = inside and ok[j]
         ok[j] = inside
@@ -653,7 +659,9 @@ def calibrate_passes(m, var_m, feh, feh_var, logg, applies, t_start, e_start, eb
                     y[k, i] = np.nan
                     s[k, i] = 0.0
                     gz[j, i] = 0.0
-                    if applies[k, i] and np.isfinite(x[k, i]) and (it == 0 or allowed[j, i]):
+                    # a star outside the relation's ranges would come out of it unused: not evaluated
+                    if (applies[k, i] and (it == 0 or allowed[j, i])
+                            and inside_range(x[k, i], feh[k], logg[k], bounds[i], needs_logg[i])):
                         where[mm] = j
                         xm[mm] = x[k, i]
                         zb[mm] = feh[k]
