@@ -670,8 +670,9 @@ def calibrate_passes(m, var_m, feh, feh_var, logg, applies, t_start, e_start, eb
                     elif it == 0:
                         first_used[k, i] = False
                         allowed[j, i] = fit  # with E(B−V) given, a star keeps its first-pass relations
-                relation_block(xm, zb, gb, mm, forms[i], bounds[i], needs_logg[i], coef[i], pows[i], counts[i],
-                               args_xs, args_ts, args_sl, xp, zp, gp, at_t, at_s, at_g, at_ok)
+                if mm:  # (a call costs about as much as a few stars)
+                    relation_block(xm, zb, gb, mm, forms[i], bounds[i], needs_logg[i], coef[i], pows[i],
+                                   counts[i], args_xs, args_ts, args_sl, xp, zp, gp, at_t, at_s, at_g, at_ok)
                 for q in range(mm):
                     j = where[q]
                     k = k0 + j
@@ -698,9 +699,10 @@ def calibrate_passes(m, var_m, feh, feh_var, logg, applies, t_start, e_start, eb
                             at_t[mm], at_s[mm], at_g[mm], at_ok[mm] = y[k, i], s[k, i], gz[j, i], True
                             mm = stage_star(mm, j, x[k, i], lo, hi, feh[k], logg[k], t_hat[j], where, xm, zb,
                                             gb, tb, slot)
-                    newton_block(mm, inverse_steps, forms[i], bounds[i], needs_logg[i], coef[i], pows[i],
-                                 counts[i], args_xs, args_ts, args_sl, xp, zp, gp, xm, zb, gb, tb, slot,
-                                 at_t, at_s, at_g, at_ok, fin_x, fin_t, fin_s, fin_g, fin_ok, True)
+                    if mm:
+                        newton_block(mm, inverse_steps, forms[i], bounds[i], needs_logg[i], coef[i], pows[i],
+                                     counts[i], args_xs, args_ts, args_sl, xp, zp, gp, xm, zb, gb, tb, slot,
+                                     at_t, at_s, at_g, at_ok, fin_x, fin_t, fin_s, fin_g, fin_ok, True)
                     for q in range(mm):
                         j = where[q]
                         k = k0 + j
