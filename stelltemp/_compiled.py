@@ -569,7 +569,8 @@ def calibrate_cells(m, var_m, feh, feh_var, logg, applies, t_start, e_start, ebv
     nb = m.shape[1]
     own = (np.empty(BLOCK, np.intp), np.empty(BLOCK), np.empty(BLOCK), np.empty(BLOCK), np.empty(BLOCK),
            np.empty(BLOCK), np.empty(BLOCK, np.bool_), np.empty((BLOCK, r), np.bool_), np.empty((BLOCK, r)),
-           np.empty((BLOCK, r)), np.empty(nb), np.empty(nb), np.empty(nb), np.empty(r))
+           np.empty((BLOCK, r)), np.empty(nb), np.empty(nb), np.empty(nb), np.empty(r), np.empty((r, BLOCK), np.intp),
+           np.empty(r, np.intp))
     calibrate_passes(
         m, var_m, feh, feh_var, logg, applies, t_start, e_start, ebv, ebv_var, prior_prec, fit, patches,
         offsets, tab_shape, tab_grid, blue, red, same, scatter0, scatter_frac, forms, bounds, needs_logg,
@@ -605,7 +606,7 @@ def calibrate_passes(m, var_m, feh, feh_var, logg, applies, t_start, e_start, eb
     xp, zp, gp = powers
     (where, xm, zb, gb, tb, slot, at_t, at_s, at_g, at_ok,
      fin_x, fin_t, fin_s, fin_g, fin_ok) = block
-    act, t_ref, el, t_hat, lo_seen, hi_seen, still, allowed, kt, gz, ex, de, dt, a = own
+    act, t_ref, el, t_hat, lo_seen, hi_seen, still, allowed, kt, gz, ex, de, dt, a, takers, n_takers = own
     c, rhs, low, z, sol, idx = work
     for k0 in range(0, n, BLOCK):
         nblk = min(BLOCK, n - k0)
@@ -624,6 +625,17 @@ def calibrate_passes(m, var_m, feh, feh_var, logg, applies, t_start, e_start, eb
                     na += 1
             if na == 0:
                 break
+            if it == 1 and not fit:
+                # with E(B−V) given a star keeps its first-pass relations: list each relation's
+                # stars once, so that the passes visit only them (a relation's other stars keep
+                # the values of the first pass: unused, NaN, 0, 0)
+                for i in range(r):
+                    count = 0
+                    for j in range(nblk):
+                        if allowed[j, i]:
+                            takers[i, count] = j
+                            count += 1
+                    n_takers[i] = count
             # `colour_excess` (every band at (T_ref, E) minus at (T_ref, 0)) and the colours
             for q in range(na):
                 j = act[q]
@@ -652,8 +664,11 @@ def calibrate_passes(m, var_m, feh, feh_var, logg, applies, t_start, e_start, eb
                 # `_evaluate`: the relation at the dereddened colours of its candidates (a star
                 # that is not one gets what the numpy code gives it: unused, NaN, 0, 0)
                 mm = 0
-                for q in range(na):
-                    j = act[q]
+                listed = it > 0 and not fit
+                for q in range(n_takers[i] if listed else na):
+                    j = takers[i, q] if listed else act[q]
+                    if listed and not still[j]:
+                        continue
                     k = k0 + j
                     used[k, i] = False
                     y[k, i] = np.nan
@@ -690,8 +705,10 @@ def calibrate_passes(m, var_m, feh, feh_var, logg, applies, t_start, e_start, eb
                 if it:
                     lo, hi = bounds[i, 0], bounds[i, 1]
                     mm = 0
-                    for q in range(na):
-                        j = act[q]
+                    for q in range(n_takers[i] if listed else na):
+                        j = takers[i, q] if listed else act[q]
+                        if listed and not still[j]:
+                            continue
                         k = k0 + j
                         if used[k, i] and np.isfinite(t_hat[j]):
                             # a used star's colour is inside the relation's range, so Newton starts at the
