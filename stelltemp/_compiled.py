@@ -9,6 +9,8 @@ compiled them afresh (about 7 s at the first large call of a run, and in
 every Dask worker).
 """
 
+import math
+
 import numba
 import numba.core.cpu
 import numpy as np
@@ -891,6 +893,13 @@ def fit_rows(m, w, lnt, e, ebv0, prior_w, todo, fit, patches, offsets, tab_shape
         e[k] = ek
 
 
+@_njit()
+def erfc_cells(x, out):
+    """erfc of each value (the C library's, as ``math.erfc``), for the χ² survival function."""
+    for k in range(x.size):
+        out[k] = math.erfc(x[k])
+
+
 KERNELS = {"invert_cells": invert_cells, "evaluate_cells": evaluate_cells, "combine_cells": combine_cells,
            "relation_cells": relation_cells, "linearise_relation": linearise_relation,
-           "calibrate_cells": calibrate_cells, "fit_cells": fit_cells}
+           "calibrate_cells": calibrate_cells, "fit_cells": fit_cells, "erfc_cells": erfc_cells}

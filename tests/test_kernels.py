@@ -355,3 +355,16 @@ def test_c_log_is_the_compiled_kernels_log():
         return out
 
     assert np.array_equal(compiled_log(t), got[:t.size])
+
+
+def test_erfc_identical_compiled_and_numpy(both):
+    """The χ² survival function's erfc: compiled and per value by ``math.erfc``, the same bits."""
+    from stelltemp.engine import chisq
+
+    rng = np.random.default_rng(9)
+    x = np.concatenate([rng.uniform(0.0, 30.0, 5000), [0.0, np.inf, np.nan]])
+    fast, slow = both(chisq._erfc, x)
+    _same(fast, slow)
+    dof = rng.integers(1, 12, 5000)
+    fast, slow = both(chisq.chi2_survival, dof, x[:5000] ** 2)
+    _same(fast, slow)

@@ -18,12 +18,25 @@ import math
 
 import numpy as np
 
+from .. import kernels
+
 __all__ = ["chi2_survival"]
 
 #: largest number of degrees of freedom taken (the engine's fits have a few)
 MAX_DOF = 1000
 
-_erfc = np.frompyfunc(math.erfc, 1, 1)
+_erfc_each = np.frompyfunc(math.erfc, 1, 1)
+
+
+def _erfc(x):
+    """erfc of an array: the C library's, element by element (compiled for large arrays, the same bits)."""
+    x = np.ascontiguousarray(x, dtype=float)
+    jit = kernels.jit_for(x.size)
+    if jit is None:
+        return _erfc_each(x).astype(float)
+    out = np.empty(x.shape)
+    jit["erfc_cells"](x.ravel(), out.ravel())
+    return out
 
 
 def chi2_survival(dof, x):
@@ -75,7 +88,7 @@ def _survival_whole(k, h):
     big = h > 700.0
     finite = np.isfinite(h)
     if odd:
-        q = _erfc(np.sqrt(h)).astype(float)
+        q = _erfc(np.sqrt(h))
         powers = [i + 0.5 for i in range(m)]
         term = 2.0 * np.sqrt(h / math.pi) * np.exp(-h)  # h^½ e^(−h) / Γ(3/2)
     else:
