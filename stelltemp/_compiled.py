@@ -569,6 +569,7 @@ def calibrate_cells(m, var_m, feh, feh_var, logg, applies, t_start, e_start, ebv
     """
     r = blue.size
     nb = m.shape[1]
+    # in the order `calibrate_passes` unpacks them: act … a, then each relation's listed stars and their count
     own = (np.empty(BLOCK, np.intp), np.empty(BLOCK), np.empty(BLOCK), np.empty(BLOCK), np.empty(BLOCK),
            np.empty(BLOCK), np.empty(BLOCK, np.bool_), np.empty((BLOCK, r), np.bool_), np.empty((BLOCK, r)),
            np.empty((BLOCK, r)), np.empty(nb), np.empty(nb), np.empty(nb), np.empty(r), np.empty((r, BLOCK), np.intp),
