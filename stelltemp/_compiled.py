@@ -569,11 +569,12 @@ def calibrate_cells(m, var_m, feh, feh_var, logg, applies, t_start, e_start, ebv
     """
     r = blue.size
     nb = m.shape[1]
-    # in the order `calibrate_passes` unpacks them: act … a, then each relation's listed stars and their count
+    # in the order `calibrate_passes` unpacks them: act … a, each relation's listed stars and their count,
+    # the stars a pass visits for one relation
     own = (np.empty(BLOCK, np.intp), np.empty(BLOCK), np.empty(BLOCK), np.empty(BLOCK), np.empty(BLOCK),
            np.empty(BLOCK), np.empty(BLOCK, np.bool_), np.empty((BLOCK, r), np.bool_), np.empty((BLOCK, r)),
            np.empty((BLOCK, r)), np.empty(nb), np.empty(nb), np.empty(nb), np.empty(r), np.empty((r, BLOCK), np.intp),
-           np.empty(r, np.intp))
+           np.empty(r, np.intp), np.empty(BLOCK, np.intp))
     calibrate_passes(
         m, var_m, feh, feh_var, logg, applies, t_start, e_start, ebv, ebv_var, prior_prec, fit, patches,
         offsets, tab_shape, tab_grid, blue, red, same, scatter0, scatter_frac, forms, bounds, needs_logg,
@@ -582,6 +583,22 @@ def calibrate_cells(m, var_m, feh, feh_var, logg, applies, t_start, e_start, ebv
         l_p, c_diag, info_known, moving, seen_lo, seen_hi, e_lin,
         relation_scratch(pows.reshape(-1, pows.shape[2], 3), BLOCK), block_scratch(BLOCK), own,
         combine_scratch(r))
+
+
+@_njit(inline="always")
+def relation_visits(i, listed, takers, n_takers, act, na, still, visit):
+    """The stars of the block a pass visits for relation i and their number: every moving star
+    (``act``), or with ``listed`` the moving ones among the relation's listed stars (into ``visit``).
+    Both in ascending order."""
+    if not listed:
+        return act, na
+    count = 0
+    for q in range(n_takers[i]):
+        j = takers[i, q]
+        if still[j]:
+            visit[count] = j
+            count += 1
+    return visit, count
 
 
 @_njit()
@@ -609,7 +626,7 @@ def calibrate_passes(m, var_m, feh, feh_var, logg, applies, t_start, e_start, eb
     xp, zp, gp = powers
     (where, xm, zb, gb, tb, slot, at_t, at_s, at_g, at_ok,
      fin_x, fin_t, fin_s, fin_g, fin_ok) = block
-    act, t_ref, el, t_hat, lo_seen, hi_seen, still, allowed, kt, gz, ex, de, dt, a, takers, n_takers = own
+    act, t_ref, el, t_hat, lo_seen, hi_seen, still, allowed, kt, gz, ex, de, dt, a, takers, n_takers, visit = own
     c, rhs, low, z, sol, idx = work
     for k0 in range(0, n, BLOCK):
         nblk = min(BLOCK, n - k0)
@@ -667,11 +684,9 @@ def calibrate_passes(m, var_m, feh, feh_var, logg, applies, t_start, e_start, eb
                 # `_evaluate`: the relation at the dereddened colours of its candidates (a star
                 # that is not one gets what the numpy code gives it: unused, NaN, 0, 0)
                 mm = 0
-                listed = it > 0 and not fit
-                for q in range(n_takers[i] if listed else na):
-                    j = takers[i, q] if listed else act[q]
-                    if listed and not still[j]:
-                        continue
+                stars, n_stars = relation_visits(i, it > 0 and not fit, takers, n_takers, act, na, still, visit)
+                for q in range(n_stars):
+                    j = stars[q]
                     k = k0 + j
                     used[k, i] = False
                     y[k, i] = np.nan
@@ -708,10 +723,8 @@ def calibrate_passes(m, var_m, feh, feh_var, logg, applies, t_start, e_start, eb
                 if it:
                     lo, hi = bounds[i, 0], bounds[i, 1]
                     mm = 0
-                    for q in range(n_takers[i] if listed else na):
-                        j = takers[i, q] if listed else act[q]
-                        if listed and not still[j]:
-                            continue
+                    for q in range(n_stars):
+                        j = stars[q]
                         k = k0 + j
                         if used[k, i] and np.isfinite(t_hat[j]):
                             # a used star's colour is inside the relation's range, so Newton starts at the
