@@ -714,15 +714,24 @@ def _iterate_compiled(setup, m, sig_m, keys, feh, feh_err, logg, law, rv, fit_eb
                       e_lin, t_ref):
     """`_iterate` by `kernels.calibrate_cells`: every pass of a star fused in one loop (the same bits).
 
-    The kernel runs on every candidate relation; the ones no star can use
-    are left out afterwards, as `_iterate` leaves them out after its first
-    pass (they add nothing to any sum, so no bit changes).
+    The kernel runs on the candidate relations that apply to some star (and
+    on any other whose colour no such relation has); the ones no star could
+    use are left out afterwards, as `_iterate` leaves them out after its
+    first pass (they add nothing to any sum, so no bit changes).
     """
     n, nb = m.shape
-    r = len(setup.rels)
     p = 2 if fit_ebv else 1
     f = np.ascontiguousarray
-    applies = np.column_stack([rel.applies_to(logg) for rel in setup.rels]).reshape(n, r)
+    applies_all = np.column_stack([rel.applies_to(logg) for rel in setup.rels]).reshape(n, len(setup.rels))
+    # a relation that applies to no star of the call (a giant relation without log g) adds nothing
+    # to any sum and is dropped after the first pass anyway: it stays out of the kernel when another
+    # relation has its colour, whose first-pass colours x0 are then its own (the same bits)
+    run, colour_of = _relations_to_run(setup, applies_all.any(axis=0))
+    everyone = setup
+    if not run.all():
+        setup = setup.subset(run)
+    applies = applies_all[:, run]
+    r = len(setup.rels)
     out = dict(x0=np.empty((n, r)), first_used=np.empty((n, r), bool), x=np.empty((n, r)), kx=np.empty((n, r)),
                y=np.empty((n, r)), s=np.empty((n, r)), used=np.empty((n, r), bool), sc=np.empty((n, r)),
                v=np.empty((n, r)), n_used=np.empty(n, np.int64), bad=np.empty(n, bool), est=np.empty((n, p)),
@@ -735,19 +744,44 @@ def _iterate_compiled(setup, m, sig_m, keys, feh, feh_err, logg, law, rv, fit_eb
         f(prior_prec), bool(fit_ebv), *bg.table_stack(keys, law, rv), setup.blue, setup.red, f(setup.same),
         *_relation_stack(setup.rels), _ITERATIONS, _INVERSE_STEPS, _TOL_T, _TOL_E, _SETTLING_PASSES,
         bg.E_MIN, bg.E_MAX, MIN_RELATIONS_FREE_EBV, *out.values())
-    x0 = out.pop("x0")
+    x0 = out.pop("x0")[:, colour_of]  # back to every candidate: a dropped relation takes its colour's
     first = out.pop("first_used")
     moving, seen_lo, seen_hi, e_lin = (out.pop(name) for name in ("moving", "seen_lo", "seen_hi", "e_lin"))
     out["n_used"] = out["n_used"].astype(int)
-    keep = (applies & np.isfinite(x0)).any(axis=0) if fit_ebv else first.any(axis=0)
-    if not keep.all():
-        setup = setup.subset(keep)
+    # of the candidates: the relations the run keeps (a dropped one never applies, so is never kept)
+    keep = np.zeros(run.size, bool)
+    keep[run] = (applies & np.isfinite(x0[:, run])).any(axis=0) if fit_ebv else first.any(axis=0)
+    if not keep[run].all():
+        setup = everyone.subset(keep)
         for name in ("x", "kx", "y", "s", "used", "sc", "v", "c_diag"):
-            out[name] = out[name].compress(keep, axis=1)  # twice as fast as [:, keep]
-        out["ly"] = out["ly"].compress(keep, axis=2)
+            out[name] = out[name].compress(keep[run], axis=1)  # twice as fast as [:, keep]
+        out["ly"] = out["ly"].compress(keep[run], axis=2)
     if not keep.any():
         return setup, keep, x0, None, None, None, None, e_lin
     return setup, keep, x0, out, moving, seen_lo, seen_hi, e_lin
+
+
+def _relations_to_run(setup, live):
+    """Which candidates the kernel runs (``live`` ones, and any whose colour no live one has), and
+    for each candidate the column of the run that holds its colour.
+
+    Examples
+    --------
+    >>> s = _Setup(["B_JC", "V_JC"])
+    >>> [rel.key for rel in s.rels]
+    ['c10_bv', 'ghb09_bv_giant', 'pm13_bv_hot']
+    >>> _relations_to_run(s, np.array([True, False, True]))
+    (array([ True, False,  True]), array([0, 0, 1]))
+    """
+    first = {}
+    for i, rel in enumerate(setup.rels):
+        if live[i]:
+            first.setdefault(rel.bands, i)
+    run = np.array([bool(live[i]) or rel.bands not in first for i, rel in enumerate(setup.rels)], bool)
+    column = np.cumsum(run) - 1  # a candidate's column among the run
+    colour_of = np.array([column[i] if run[i] else column[first[rel.bands]] for i, rel in enumerate(setup.rels)],
+                         np.intp)
+    return run, colour_of
 
 
 def _relation_stack(rels):
