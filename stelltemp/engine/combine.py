@@ -46,6 +46,7 @@ different relations calibrated on the same stars.
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass
 
 import numpy as np
@@ -71,6 +72,32 @@ _SETTLING_PASSES = 2
 UNSETTLED_SHARE = 0.1
 #: relations needed to fit E(B−V) from the calibrations alone (no prior)
 MIN_RELATIONS_FREE_EBV = 3
+
+
+class PerRelation:
+    """Each relation's own T_eff and error (``teff``, ``err``, K, shape (n_stars, n_candidates), NaN
+    where not used), made when first read from the kept relations' columns ``cols``.
+
+    Most calls never read them (only ``estimate(cal_detail=True)`` does), and two fresh
+    (n, r) arrays cost a fifth of a 5-band call.
+    """
+
+    def __init__(self, n, r, cols=(), used=None, y=None, c_diag=None):
+        self._shape, self._cols, self._used, self._y, self._c_diag = (n, r), cols, used, y, c_diag
+
+    def _full(self, kept):
+        out = np.full(self._shape, np.nan)
+        if len(self._cols):
+            out[:, self._cols] = np.where(self._used, kept(), np.nan)
+        return out
+
+    @functools.cached_property
+    def teff(self):
+        return self._full(lambda: self._y)
+
+    @functools.cached_property
+    def err(self):
+        return self._full(lambda: np.sqrt(self._c_diag))
 
 
 @dataclass
@@ -125,12 +152,19 @@ class CalibratedTeff:
     n_used: np.ndarray
     used: np.ndarray
     keys: tuple
-    teff_each: np.ndarray
-    err_each: np.ndarray
+    per_relation: PerRelation
     outside: np.ndarray
     notes: np.ndarray
     ebv_share: np.ndarray = None
     not_settled: np.ndarray = None
+
+    @property
+    def teff_each(self):
+        return self.per_relation.teff
+
+    @property
+    def err_each(self):
+        return self.per_relation.err
 
     @property
     def flags(self):
@@ -559,10 +593,10 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
                          e_lin)
     iterate = _iterate if kernels.jit_for(n) is None else _iterate_compiled
     setup0 = setup
-    setup, keep, x0, last, moving, seen_lo, seen_hi, e_lin = iterate(
+    setup, keep, (x0, x0_col), last, moving, seen_lo, seen_hi, e_lin = iterate(
         setup, m, sig_m, keys, feh, feh_err, logg, law, rv, fit_ebv, ebv, ebv_err, prior_prec, e_lin, t_ref)
     if last is None:
-        notes = _notes(setup0, x0, logg, feh_given, fit_ebv, prior_prec, np.zeros(n, int))
+        notes = _notes(setup0, x0, x0_col, logg, feh_given, fit_ebv, prior_prec, np.zeros(n, int))
         return _nothing(n, setup0, np.zeros(n, bool), notes)
     x, kx, y, s, used, sc, v, n_used, bad, est, cov, chi2, ly, lp, c_diag, info_known = (
         last[name] for name in ("x", "kx", "y", "s", "used", "sc", "v", "n_used", "bad", "est",
@@ -593,11 +627,7 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
         ebv_fit = ebv_fit_err = nan
     # per relation, over every candidate of the run (the same columns in every block of rows)
     cols = np.flatnonzero(keep)
-    err_each = np.full((n, len(setup0.rels)), np.nan)
-    teff_each = np.full((n, len(setup0.rels)), np.nan)
     used_all = np.zeros((n, len(setup0.rels)), bool)
-    err_each[:, cols] = np.where(used, np.sqrt(c_diag), np.nan)
-    teff_each[:, cols] = np.where(used, y, np.nan)
     used_all[:, cols] = used
 
     lo, hi = teff - teff_err, teff + teff_err
@@ -608,10 +638,11 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
         hi = np.where(bad, np.nan, hi)
 
     share = np.where(bad, np.nan, _reddening_share(info_known, teff_err))
-    notes = _notes(setup0, x0, logg, feh_given, fit_ebv, prior_prec, n_used)
+    notes = _notes(setup0, x0, x0_col, logg, feh_given, fit_ebv, prior_prec, n_used)
     return CalibratedTeff(teff, teff_err, lo, hi, ebv_fit, ebv_fit_err, chi2, dof, p_value, n_used,
-                          used_all, tuple(rel.key for rel in setup0.rels), teff_each, err_each,
-                          _outside(setup0, x0, used_all, teff, feh, logg), notes, share, not_settled)
+                          used_all, tuple(rel.key for rel in setup0.rels),
+                          PerRelation(n, len(setup0.rels), cols, used, y, c_diag),
+                          _outside(setup0, x0, x0_col, used_all, teff, feh, logg), notes, share, not_settled)
 
 
 
@@ -620,7 +651,8 @@ def _iterate(setup, m, sig_m, keys, feh, feh_err, logg, law, rv, fit_ebv, ebv, e
     """The Gauss–Newton passes of `calibrated_teff`, in numpy, over all stars at once.
 
     Returns the run's relations (those no star can use left out), which of
-    the candidates they are (``keep``), the colours of the first pass, the
+    the candidates they are (``keep``), the colours of the first pass (and
+    for each candidate, the column of them that holds its colour), the
     quantities of each star's last pass (a dict of arrays; None when no
     relation is left), whether it was still moving, the range of its
     estimates after the settling passes and the final E(B−V) of the
@@ -657,7 +689,7 @@ def _iterate(setup, m, sig_m, keys, feh, feh_err, logg, law, rv, fit_ebv, ebv, e
                 x, kx, kt, y, s, g, used = (q[:, keep] for q in (x, kx, kt, y, s, g, used))
             allowed = None if fit_ebv else used.copy()
             if r == 0:
-                return setup, keep, x0, None, None, None, None, e_lin
+                return setup, keep, (x0, np.arange(x0.shape[1])), None, None, None, None, e_lin
         if t_hat is not None:
             y, s, g = _linearise_at(setup, t_hat[rows], x, y, s, g, used, fz, lg)
         sc = _scatter(setup, tr)
@@ -707,7 +739,7 @@ def _iterate(setup, m, sig_m, keys, feh, feh_err, logg, law, rv, fit_ebv, ebv, e
         if not moving.any() or it == _ITERATIONS - 1:
             break
         e_lin[rows] = np.where(moving[rows], np.clip(el + step_e, bg.E_MIN, bg.E_MAX), el)
-    return setup, keep, x0, last, moving, seen_lo, seen_hi, e_lin
+    return setup, keep, (x0, np.arange(x0.shape[1])), last, moving, seen_lo, seen_hi, e_lin
 
 
 def _iterate_compiled(setup, m, sig_m, keys, feh, feh_err, logg, law, rv, fit_ebv, ebv, ebv_err, prior_prec,
@@ -744,21 +776,21 @@ def _iterate_compiled(setup, m, sig_m, keys, feh, feh_err, logg, law, rv, fit_eb
         f(prior_prec), bool(fit_ebv), *bg.table_stack(keys, law, rv), setup.blue, setup.red, f(setup.same),
         *_relation_stack(setup.rels), _ITERATIONS, _INVERSE_STEPS, _TOL_T, _TOL_E, _SETTLING_PASSES,
         bg.E_MIN, bg.E_MAX, MIN_RELATIONS_FREE_EBV, *out.values())
-    x0 = out.pop("x0")[:, colour_of]  # back to every candidate: a dropped relation takes its colour's
+    x0 = out.pop("x0")  # of the run: a dropped candidate's colours are those of column colour_of
     first = out.pop("first_used")
     moving, seen_lo, seen_hi, e_lin = (out.pop(name) for name in ("moving", "seen_lo", "seen_hi", "e_lin"))
     out["n_used"] = out["n_used"].astype(int)
     # of the candidates: the relations the run keeps (a dropped one never applies, so is never kept)
     keep = np.zeros(run.size, bool)
-    keep[run] = (applies & np.isfinite(x0[:, run])).any(axis=0) if fit_ebv else first.any(axis=0)
+    keep[run] = (applies & np.isfinite(x0)).any(axis=0) if fit_ebv else first.any(axis=0)
     if not keep[run].all():
         setup = everyone.subset(keep)
         for name in ("x", "kx", "y", "s", "used", "sc", "v", "c_diag"):
             out[name] = out[name].compress(keep[run], axis=1)  # twice as fast as [:, keep]
         out["ly"] = out["ly"].compress(keep[run], axis=2)
     if not keep.any():
-        return setup, keep, x0, None, None, None, None, e_lin
-    return setup, keep, x0, out, moving, seen_lo, seen_hi, e_lin
+        return setup, keep, (x0, colour_of), None, None, None, None, e_lin
+    return setup, keep, (x0, colour_of), out, moving, seen_lo, seen_hi, e_lin
 
 
 def _relations_to_run(setup, live):
@@ -848,13 +880,14 @@ def _reddening_share(info_known, teff_err):
     return np.clip(share, 0.0, 1.0)
 
 
-def _outside(setup, x, used, teff, feh, logg):
+def _outside(setup, x, col, used, teff, feh, logg):
     """Stars with a measured colour left unused although their T_eff is one its relations cover.
 
     A colour with no relation for the star's temperature (U−B of a cool
     star, V−Ic of an A star) is simply not calibrated there; a colour whose
     relations do cover the star's calibrated T_eff but whose observed value
     fell outside them points at the photometry or the reddening.
+    ``x[:, col[i]]`` is the colour of relation i.
     """
     n = x.shape[0]
     out = np.zeros(n, bool)
@@ -864,7 +897,7 @@ def _outside(setup, x, used, teff, feh, logg):
     one_feh, one_logg = _same_for_all(feh), _same_for_all(logg)
     shared = one_feh is not None and one_logg is not None
     for i, rel in enumerate(setup.rels):
-        cand = rel.applies_to(logg) & np.isfinite(x[:, i])
+        cand = rel.applies_to(logg) & np.isfinite(x[:, col[i]])
         if not cand.any():
             continue
         ends = [rel.teff(np.full(1, c), one_feh, one_logg)[0] if shared else rel.teff(np.full(n, c), feh, logg)[0]
@@ -899,8 +932,8 @@ def _nothing(n, setup, outside, notes):
     nan = np.full(n, np.nan)
     r = len(setup.rels)
     return CalibratedTeff(nan, nan, nan, nan, nan, nan, nan, np.zeros(n, int), nan, np.zeros(n, int),
-                          np.zeros((n, r), bool), tuple(rel.key for rel in setup.rels),
-                          np.full((n, r), np.nan), np.full((n, r), np.nan), outside, notes, nan)
+                          np.zeros((n, r), bool), tuple(rel.key for rel in setup.rels), PerRelation(n, r),
+                          outside, notes, nan)
 
 
 #: E(B−V) grid, mag, scanned for the start of a fit without a prior
@@ -967,11 +1000,12 @@ def _monte_carlo(setup, samples, seed, teff, x, kx, s, used, sig_m, feh, feh_err
     return lo, hi
 
 
-def _notes(setup, x, logg, feh, fit_ebv, prior_prec, n_used):
-    """Per star: the class assumed and why no relation applied (`calibrations.coverage_notes`)."""
+def _notes(setup, x, col, logg, feh, fit_ebv, prior_prec, n_used):
+    """Per star: the class assumed and why no relation applied (`calibrations.coverage_notes`);
+    ``x[:, col[i]]`` is the colour of relation i."""
     colours = {}
     for i, rel in enumerate(setup.rels):
-        colours.setdefault(rel.bands, x[:, i])
+        colours.setdefault(rel.bands, x[:, col[i]])
     notes = coverage_notes(colours, feh=feh, logg=logg, applied=n_used > 0).astype(object)
     short = fit_ebv & (prior_prec == 0) & (n_used > 0) & (n_used < MIN_RELATIONS_FREE_EBV)
     for j in np.nonzero(short)[0]:
