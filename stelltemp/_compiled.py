@@ -199,7 +199,9 @@ def combine_star(s, g, used, var_m, blue, red, same, scatter, feh_var, a, v, y, 
         i = idx[ii]
         bi, ri = blue[i], red[i]
         vi = v[i]
-        for jj in range(u):
+        # the lower triangle only, all that `cholesky_solve` reads: the numpy twin's full matrix is
+        # exactly symmetric (each entry a sum of at most two nonzero terms, in either order the same)
+        for jj in range(ii + 1):
             j = idx[jj]
             bj, rj = blue[j], red[j]
             # D Σ_m Dᵀ: the bands the two colours share, with their signs
