@@ -356,13 +356,12 @@ def relation_block(x, z, g, m, form, bounds, needs_logg, coef, pows, counts, xs,
             if not (xc >= bounds[0] and xc <= bounds[1]):
                 continue  # outside: NaN below, no search
             xc = xs[0] if xc < xs[0] else (xs[n - 1] if xc > xs[n - 1] else xc)
-            # branch-free search: the last node at or below xc (searchsorted "right", minus one)
+            # the last node at or below xc (searchsorted "right", minus one), as a count of the nodes
+            # at or below it: no branch to mispredict, and the loop runs in vector lanes (a binary
+            # search compiled to jumps that went the wrong way half the time)
             lo = 0
-            span = n
-            while span > 1:
-                half = span >> 1
-                lo += half * (xs[lo + half] <= xc)
-                span -= half
+            for q in range(1, n):
+                lo += xs[q] <= xc
             seg = min(lo, n - 2)
             t[j] = ts[lo] if xs[lo] == xc else slopes[seg] * (xc - xs[seg]) + ts[seg]
             d_x[j] = slopes[seg]
