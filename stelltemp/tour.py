@@ -26,6 +26,10 @@ README) and, in a fresh output folder:
 6. prints a short summary (with any Sun-safety warning of the observing
    module) and the paths.
 
+With two or more usable cores the figures are drawn by a second process
+while the next step computes (`stelltemp.sidecar`): the same files, in
+about three quarters of the time.
+
 The demo folder sits at the top of the source tree (``catalogs_demo/``);
 the build copies the same files into the package (``stelltemp/demo_scenario``,
 see ``setup.py``), so an installed copy runs the tour from any directory.
@@ -46,6 +50,7 @@ import numpy as np
 from .errors import StelltempError
 from .jsonable import json_ready, table_ready
 from .safeio import atomic_path, save_table
+from .sidecar import Sidecar
 
 __all__ = ["run_tour", "find_demo_dir", "load_scenario", "DEMO_DIRNAME", "SCENARIO_FILE"]
 
@@ -245,6 +250,18 @@ def run_tour(out_dir=DEFAULT_OUT, *, replace=False, demo_dir=None, quiet=False, 
         Counts, the comparison with the truth, plan facts, Sun warnings and
         the ``files`` written (name → path); also written as ``summary.json``.
     """
+    demo = find_demo_dir(demo_dir)
+    sc = load_scenario(demo)
+    out = prepare_output(out_dir, replace)
+    with Sidecar() as side:  # figures drawn on a second core while the next step computes
+        summary = _tour_steps(demo, sc, out, side)
+    if not quiet:
+        print_summary(summary, stream or sys.stdout)
+    return summary
+
+
+def _tour_steps(demo, sc, out, side):
+    """The steps of `run_tour` (figures through ``side``, a `Sidecar`); returns the summary."""
     from astropy.table import Table
 
     from . import plots
@@ -255,9 +272,6 @@ def run_tour(out_dir=DEFAULT_OUT, *, replace=False, demo_dir=None, quiet=False, 
     from .observing.instrument import load_instrument
     from .observing.plan import night_tracks, parse_targets, plan_night, plan_target, target_photometry
 
-    demo = find_demo_dir(demo_dir)
-    sc = load_scenario(demo)
-    out = prepare_output(out_dir, replace)
     law, rv, snr = sc["extinction_law"], float(sc["r_v"]), float(sc["snr_goal"])
     files = {}
 
@@ -281,21 +295,21 @@ def run_tour(out_dir=DEFAULT_OUT, *, replace=False, demo_dir=None, quiet=False, 
     if not rows:
         raise StelltempError(f"showcase star {star} is not in {sc['targets']}")
     star_row = targets[rows[0]]
-    files["catalogue_figure"] = plots.plot_catalogue_results(results, out / "catalogue_diagram.png", law=law, rv=rv,
-                                                                replace=True)
-    files["colour_figure"] = plots.plot_colour_temperature(list(COLOUR_BANDS), out / "blackbody_colours.png",
-                                                           law=law, rv=rv, replace=True)
+    files["catalogue_figure"] = str(out / "catalogue_diagram.png")
+    side.run(plots.plot_catalogue_results, results, files["catalogue_figure"], law=law, rv=rv, replace=True)
+    files["colour_figure"] = str(out / "blackbody_colours.png")
+    side.run(plots.plot_colour_temperature, list(COLOUR_BANDS), files["colour_figure"], law=law, rv=rv, replace=True)
     bands = [b for b in results.meta.get("passbands", "").split(",") if b] or \
         [c for c in targets.colnames if c in SPECTRUM_BANDS]
     fit_table, typed = _showcase_fit(star_row, bands, law, rv)
-    files["fit_figure"] = plots.plot_star_fit(fit_table, typed, out / f"fit_{star}.png", law=law, rv=rv,
-                                              replace=True)
+    files["fit_figure"] = str(out / f"fit_{star}.png")
+    side.run(plots.plot_star_fit, fit_table, typed, files["fit_figure"], law=law, rv=rv, replace=True)
     star_t = float(fit_table["t_bb"][0].value)
     star_ebv = float(fit_table["ebv_used"][0].value) if "ebv_used" in fit_table.colnames else 0.0
     fitted = [k for k, m, _ in typed if m is not None and math.isfinite(float(m))]  # the bands of the fit
-    files["spectrum_figure"] = plots.plot_spectrum_with_passbands(
-        star_t, fitted or list(SPECTRUM_BANDS), out / f"spectrum_{star}.png", replace=True,
-        ebv=star_ebv if math.isfinite(star_ebv) else 0.0, law=law, rv=rv)
+    files["spectrum_figure"] = str(out / f"spectrum_{star}.png")
+    side.run(plots.plot_spectrum_with_passbands, star_t, fitted or list(SPECTRUM_BANDS), files["spectrum_figure"],
+             replace=True, ebv=star_ebv if math.isfinite(star_ebv) else 0.0, law=law, rv=rv)
 
     # 4. the night plan
     instrument = load_instrument(sc["instrument"])
@@ -324,14 +338,16 @@ def run_tour(out_dir=DEFAULT_OUT, *, replace=False, demo_dir=None, quiet=False, 
     reason = (f"the showcase star {star} (its {len(companions)} cluster companions share its track) and "
               f"{len(chart_names) - 1} others spread through the night by best time") if companions else \
         f"the showcase star {star} and {len(chart_names) - 1} others spread through the night by best time"
-    files["night_figure"] = plot_night(tracks, str(out / "night_altitude.png"), plan.meta["min_altitude_deg"],
-                                       replace=True, plan=plan, chosen=chart_names, reason=reason)
+    files["night_figure"] = str(out / "night_altitude.png")
+    side.run(plot_night, tracks, files["night_figure"], plan.meta["min_altitude_deg"], replace=True, plan=plan,
+             chosen=chart_names, reason=reason)
     star_plan = plan[plan["target"] == star]
     airmass = float(np.nanmin(np.asarray(star_plan["min_airmass"], float))) if len(star_plan) else 1.0
     p = by_name[star]
     one = plan_target(instrument, teff=p["teff"], photometry=target_photometry(instrument, p), ebv=p["ebv"], snr=snr,
                       airmass=airmass if math.isfinite(airmass) else 1.0, name=star)
-    files["snr_figure"] = plot_snr_curves(one, str(out / f"snr_{star}.png"), replace=True)
+    files["snr_figure"] = str(out / f"snr_{star}.png")
+    side.run(plot_snr_curves, one, files["snr_figure"], replace=True)
 
     # 5. the night's reduction to the standard system (when the demo has the night's files)
     reduction = _reduction_step(demo, out, sc["instrument"], files)
@@ -359,10 +375,9 @@ def run_tour(out_dir=DEFAULT_OUT, *, replace=False, demo_dir=None, quiet=False, 
     }
     files["summary"] = str(out / "summary.json")
     summary["files"]["summary"] = files["summary"]
+    side.finish()  # every figure written before the summary that lists them
     with atomic_path(files["summary"], overwrite=True) as tmp:
         tmp.write_text(json.dumps(json_ready(summary), indent=1, ensure_ascii=False) + "\n", encoding="utf-8")
-    if not quiet:
-        print_summary(summary, stream or sys.stdout)
     return summary
 
 
