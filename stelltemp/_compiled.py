@@ -566,7 +566,10 @@ def calibrate_cells(m, var_m, feh, feh_var, logg, applies, t_start, e_start, ebv
                     info_known, moving, seen_lo, seen_hi, e_lin):
     """The Gauss–Newton passes of `combine.calibrated_teff` (its `_iterate`), compiled: the same bits.
 
-    Allocates the work arrays and runs `calibrate_passes`.
+    Allocates the work arrays and runs `calibrate_passes`.  ``x``, ``kx``,
+    ``s``, ``sc``, ``v``, ``l_y`` and ``l_p`` may have `BLOCK` rows instead
+    of one per star, when the caller does not read them: they are then the
+    working rows of the block in hand.
     """
     r = blue.size
     nb = m.shape[1]
@@ -629,6 +632,9 @@ def calibrate_passes(m, var_m, feh, feh_var, logg, applies, t_start, e_start, eb
      fin_x, fin_t, fin_s, fin_g, fin_ok) = block
     act, t_ref, el, t_hat, lo_seen, hi_seen, still, allowed, kt, gz, ex, de, dt, a, takers, n_takers, visit = own
     c, rhs, low, z, sol, idx = work
+    # x, kx, s, sc, v, l_y and l_p: per star (detail) or, when only the Monte Carlo reads them and
+    # there is none, rows of one block (kd = the star in its block): no memory to fault in and fill
+    detail = x.shape[0] == n
     for k0 in range(0, n, BLOCK):
         nblk = min(BLOCK, n - k0)
         for j in range(nblk):
@@ -661,6 +667,7 @@ def calibrate_passes(m, var_m, feh, feh_var, logg, applies, t_start, e_start, eb
             for q in range(na):
                 j = act[q]
                 k = k0 + j
+                kd = k if detail else j
                 if it and np.isfinite(t_hat[j]):
                     t_ref[j] = t_hat[j]
                 lnt = np.log(t_ref[j] if np.isfinite(t_ref[j]) else 5800.0)
@@ -674,11 +681,11 @@ def calibrate_passes(m, var_m, feh, feh_var, logg, applies, t_start, e_start, eb
                     dt[b] = red_t - int_t
                 for i in range(r):
                     bi, ri = blue[i], red[i]
-                    x[k, i] = m[k, bi] - m[k, ri] - (ex[bi] - ex[ri])
-                    kx[k, i] = de[bi] - de[ri]
+                    x[kd, i] = m[k, bi] - m[k, ri] - (ex[bi] - ex[ri])
+                    kx[kd, i] = de[bi] - de[ri]
                     kt[j, i] = dt[bi] - dt[ri]
                     if it == 0:
-                        x0[k, i] = x[k, i]
+                        x0[k, i] = x[kd, i]
             for i in range(r):
                 nx = n_nodes[i]
                 args_xs, args_ts, args_sl = xs[i, :nx], ts[i, :nx], slopes[i, :nx - 1]
@@ -689,15 +696,16 @@ def calibrate_passes(m, var_m, feh, feh_var, logg, applies, t_start, e_start, eb
                 for q in range(n_stars):
                     j = stars[q]
                     k = k0 + j
+                    kd = k if detail else j
                     used[k, i] = False
                     y[k, i] = np.nan
-                    s[k, i] = 0.0
+                    s[kd, i] = 0.0
                     gz[j, i] = 0.0
                     # a star outside the relation's ranges would come out of it unused: not evaluated
                     if (applies[k, i] and (it == 0 or allowed[j, i])
-                            and inside_range(x[k, i], feh[k], logg[k], bounds[i], needs_logg[i])):
+                            and inside_range(x[kd, i], feh[k], logg[k], bounds[i], needs_logg[i])):
                         where[mm] = j
-                        xm[mm] = x[k, i]
+                        xm[mm] = x[kd, i]
                         zb[mm] = feh[k]
                         gb[mm] = logg[k]
                         mm += 1
@@ -710,6 +718,7 @@ def calibrate_passes(m, var_m, feh, feh_var, logg, applies, t_start, e_start, eb
                 for q in range(mm):
                     j = where[q]
                     k = k0 + j
+                    kd = k if detail else j
                     ti, si, gi = at_t[q], at_s[q], at_g[q]
                     ok = at_ok[q] and np.isfinite(ti) and np.isfinite(si)
                     if it == 0:
@@ -718,7 +727,7 @@ def calibrate_passes(m, var_m, feh, feh_var, logg, applies, t_start, e_start, eb
                     if ok:
                         used[k, i] = True
                         y[k, i] = ti
-                        s[k, i] = si
+                        s[kd, i] = si
                         gz[j, i] = gi if np.isfinite(gi) else 0.0
                 # `_linearise_at`: the relation at the colour it would give at the current T_eff
                 if it:
@@ -727,11 +736,12 @@ def calibrate_passes(m, var_m, feh, feh_var, logg, applies, t_start, e_start, eb
                     for q in range(n_stars):
                         j = stars[q]
                         k = k0 + j
+                        kd = k if detail else j
                         if used[k, i] and np.isfinite(t_hat[j]):
                             # a used star's colour is inside the relation's range, so Newton starts at the
                             # very colour just evaluated: its first evaluation is the one above
-                            at_t[mm], at_s[mm], at_g[mm], at_ok[mm] = y[k, i], s[k, i], gz[j, i], True
-                            mm = stage_star(mm, j, x[k, i], lo, hi, feh[k], logg[k], t_hat[j], where, xm, zb,
+                            at_t[mm], at_s[mm], at_g[mm], at_ok[mm] = y[k, i], s[kd, i], gz[j, i], True
+                            mm = stage_star(mm, j, x[kd, i], lo, hi, feh[k], logg[k], t_hat[j], where, xm, zb,
                                             gb, tb, slot)
                     if mm:
                         newton_block(mm, inverse_steps, forms[i], bounds[i], needs_logg[i], coef[i], pows[i],
@@ -740,30 +750,32 @@ def calibrate_passes(m, var_m, feh, feh_var, logg, applies, t_start, e_start, eb
                     for q in range(mm):
                         j = where[q]
                         k = k0 + j
-                        good, yq, sq, gq = pseudo_observation(q, t_hat[j], x[k, i], fin_x, fin_t, fin_s, fin_g,
+                        kd = k if detail else j
+                        good, yq, sq, gq = pseudo_observation(q, t_hat[j], x[kd, i], fin_x, fin_t, fin_s, fin_g,
                                                               fin_ok)
                         if good:
-                            y[k, i], s[k, i], gz[j, i] = yq, sq, gq
+                            y[k, i], s[kd, i], gz[j, i] = yq, sq, gq
             # per star: scatter, design, the combination (`_combine_pass`) and convergence
             for q in range(na):
                 j = act[q]
                 k = k0 + j
+                kd = k if detail else j
                 tr = t_ref[j]
                 nu = 0
                 for i in range(r):
                     # hypot(x, ±0) is |x| exactly (C99 F.10.4.3), and most scatters are constant
                     frac = scatter_frac[i] * tr
-                    sc[k, i] = abs(scatter0[i]) if frac == 0.0 else np.hypot(scatter0[i], frac)
-                    v[k, i] = s[k, i] * kx[k, i]
-                    a[i] = 1.0 + s[k, i] * kt[j, i] / tr if used[k, i] else 1.0
+                    sc[kd, i] = abs(scatter0[i]) if frac == 0.0 else np.hypot(scatter0[i], frac)
+                    v[kd, i] = s[kd, i] * kx[kd, i]
+                    a[i] = 1.0 + s[kd, i] * kt[j, i] / tr if used[k, i] else 1.0
                     y[k, i] = y[k, i] - (1.0 - a[i]) * tr
                     nu += used[k, i]
                 n_used[k] = nu
                 pp = prior_prec[k] if fit else 0.0
                 pd = ebv[k] - el[j] if fit else 0.0
                 chi2[k], info_known[k] = combine_star(
-                    s[k], gz[j], used[k], var_m[k], blue, red, same, sc[k], feh_var[k], a, v[k], y[k], fit,
-                    0.0 if fit else ebv_var[k], pp, pd, est[k], cov[k], l_y[k], l_p[k], c_diag[k],
+                    s[kd], gz[j], used[k], var_m[k], blue, red, same, sc[kd], feh_var[k], a, v[kd], y[k], fit,
+                    0.0 if fit else ebv_var[k], pp, pd, est[k], cov[k], l_y[kd], l_p[kd], c_diag[k],
                     c, rhs, low, z, sol, idx)
                 if fit:
                     bd = nu == 0 or (pp == 0 and nu < min_free)

@@ -594,7 +594,8 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
     iterate = _iterate if kernels.jit_for(n) is None else _iterate_compiled
     setup0 = setup
     setup, keep, (x0, x0_col), last, moving, seen_lo, seen_hi, e_lin = iterate(
-        setup, m, sig_m, keys, feh, feh_err, logg, law, rv, fit_ebv, ebv, ebv_err, prior_prec, e_lin, t_ref)
+        setup, m, sig_m, keys, feh, feh_err, logg, law, rv, fit_ebv, ebv, ebv_err, prior_prec, e_lin, t_ref,
+        detail=bool(monte_carlo))
     if last is None:
         notes = _notes(setup0, x0, x0_col, logg, feh_given, fit_ebv, prior_prec, np.zeros(n, int))
         return _nothing(n, setup0, np.zeros(n, bool), notes)
@@ -647,7 +648,7 @@ def calibrated_teff(m, sig_m, keys, t_bb, ebv, ebv_err, *, fit_ebv=False, feh=No
 
 
 def _iterate(setup, m, sig_m, keys, feh, feh_err, logg, law, rv, fit_ebv, ebv, ebv_err, prior_prec,
-             e_lin, t_ref):
+             e_lin, t_ref, detail=True):
     """The Gauss–Newton passes of `calibrated_teff`, in numpy, over all stars at once.
 
     Returns the run's relations (those no star can use left out), which of
@@ -657,7 +658,9 @@ def _iterate(setup, m, sig_m, keys, feh, feh_err, logg, law, rv, fit_ebv, ebv, e
     relation is left), whether it was still moving, the range of its
     estimates after the settling passes and the final E(B−V) of the
     linearisation.  `_iterate_compiled` is the same computation, one star
-    at a time, compiled.
+    at a time, compiled; without ``detail`` it leaves out what only the
+    Monte Carlo reads (``x``, ``kx``, ``s``, ``sc``, ``v``, ``ly``, ``lp``:
+    None), here all computed anyway.
     """
     n = m.shape[0]
     r = len(setup.rels)
@@ -743,7 +746,7 @@ def _iterate(setup, m, sig_m, keys, feh, feh_err, logg, law, rv, fit_ebv, ebv, e
 
 
 def _iterate_compiled(setup, m, sig_m, keys, feh, feh_err, logg, law, rv, fit_ebv, ebv, ebv_err, prior_prec,
-                      e_lin, t_ref):
+                      e_lin, t_ref, detail=True):
     """`_iterate` by `kernels.calibrate_cells`: every pass of a star fused in one loop (the same bits).
 
     The kernel runs on the candidate relations that apply to some star (and
@@ -764,11 +767,13 @@ def _iterate_compiled(setup, m, sig_m, keys, feh, feh_err, logg, law, rv, fit_eb
         setup = setup.subset(run)
     applies = applies_all[:, run]
     r = len(setup.rels)
-    out = dict(x0=np.empty((n, r)), first_used=np.empty((n, r), bool), x=np.empty((n, r)), kx=np.empty((n, r)),
-               y=np.empty((n, r)), s=np.empty((n, r)), used=np.empty((n, r), bool), sc=np.empty((n, r)),
-               v=np.empty((n, r)), n_used=np.empty(n, np.int64), bad=np.empty(n, bool), est=np.empty((n, p)),
-               cov=np.empty((n, p, p)), chi2=np.empty(n), ly=np.empty((n, p, r)), lp=np.empty((n, p)),
-               c_diag=np.empty((n, r)), info_known=np.empty(n), moving=np.empty(n, bool),
+    # what only the Monte Carlo reads: per star, or the rows of one block the kernel works in
+    rows = n if detail else kernels.BLOCK
+    out = dict(x0=np.empty((n, r)), first_used=np.empty((n, r), bool), x=np.empty((rows, r)),
+               kx=np.empty((rows, r)), y=np.empty((n, r)), s=np.empty((rows, r)), used=np.empty((n, r), bool),
+               sc=np.empty((rows, r)), v=np.empty((rows, r)), n_used=np.empty(n, np.int64), bad=np.empty(n, bool),
+               est=np.empty((n, p)), cov=np.empty((n, p, p)), chi2=np.empty(n), ly=np.empty((rows, p, r)),
+               lp=np.empty((rows, p)), c_diag=np.empty((n, r)), info_known=np.empty(n), moving=np.empty(n, bool),
                seen_lo=np.empty(n), seen_hi=np.empty(n), e_lin=np.empty(n))
     var_m = np.where(np.isfinite(sig_m), sig_m, 0.0) ** 2
     kernels.jit_for(n)["calibrate_cells"](
@@ -780,14 +785,18 @@ def _iterate_compiled(setup, m, sig_m, keys, feh, feh_err, logg, law, rv, fit_eb
     first = out.pop("first_used")
     moving, seen_lo, seen_hi, e_lin = (out.pop(name) for name in ("moving", "seen_lo", "seen_hi", "e_lin"))
     out["n_used"] = out["n_used"].astype(int)
+    if not detail and rows != n:
+        out.update(dict.fromkeys(("x", "kx", "s", "sc", "v", "ly", "lp")))
     # of the candidates: the relations the run keeps (a dropped one never applies, so is never kept)
     keep = np.zeros(run.size, bool)
     keep[run] = (applies & np.isfinite(x0)).any(axis=0) if fit_ebv else first.any(axis=0)
     if not keep[run].all():
         setup = everyone.subset(keep)
         for name in ("x", "kx", "y", "s", "used", "sc", "v", "c_diag"):
-            out[name] = out[name].compress(keep[run], axis=1)  # twice as fast as [:, keep]
-        out["ly"] = out["ly"].compress(keep[run], axis=2)
+            if out[name] is not None:
+                out[name] = out[name].compress(keep[run], axis=1)  # twice as fast as [:, keep]
+        if out["ly"] is not None:
+            out["ly"] = out["ly"].compress(keep[run], axis=2)
     if not keep.any():
         return setup, keep, (x0, colour_of), None, None, None, None, e_lin
     return setup, keep, (x0, colour_of), out, moving, seen_lo, seen_hi, e_lin
