@@ -921,12 +921,91 @@ def fit_rows(m, w, lnt, e, ebv0, prior_w, todo, fit, patches, offsets, tab_shape
 
 
 @_njit()
+def fit_final(m, w, lnt, e, ebv0, prior_w, too_few, fit, patches, offsets, tab_shape, tab_grid,
+              mod, d_t, d_e, a, chi2, cov, dlnt_de, cols, normal):
+    """The last step of `fit.fit_blackbody` at its solution, one star at a time (its twin
+    `fit._final`, the same bits): the band models and their slopes, the profiled offset ``a``,
+    χ², the covariance of (ln T, a[, E]) from the normal matrix and, with E(B−V) fixed, ∂ln T/∂E.
+
+    Every sum runs over the bands in order.  ``cols`` (n_bands, 3) and ``normal`` (3, 3) are
+    work arrays.
+    """
+    n, nb = m.shape
+    p = 3 if fit else 2
+    for k in range(n):
+        for b in range(nb):
+            mod[k, b], d_t[k, b], d_e[k, b] = band_point(b, lnt[k], e[k], patches, offsets, tab_shape, tab_grid,
+                                                         True)
+        num = 0.0
+        wsum = 0.0
+        for b in range(nb):
+            num += w[k, b] * (m[k, b] - mod[k, b])
+            wsum += w[k, b]
+        ak = num / wsum
+        a[k] = ak
+        cur = 0.0
+        for b in range(nb):
+            r = m[k, b] - mod[k, b] - ak
+            cur += w[k, b] * r * r
+        if fit:
+            cur = cur + prior_w[k] * (e[k] - ebv0[k]) ** 2
+        chi2[k] = cur
+        # the normal matrix Σ_b (J_bi w_b) J_bj of the columns ∂M/∂ln T, 1 [, ∂M/∂E]
+        for b in range(nb):
+            cols[b, 0], cols[b, 1], cols[b, 2] = d_t[k, b], 1.0, d_e[k, b]
+        for i in range(p):
+            for j in range(p):
+                acc = 0.0
+                for b in range(nb):
+                    acc += (cols[b, i] * w[k, b]) * cols[b, j]
+                normal[i, j] = acc
+        if fit:
+            normal[2, 2] = normal[2, 2] + prior_w[k]
+        if too_few[k]:
+            for i in range(p):
+                for j in range(p):
+                    normal[i, j] = 1.0 if i == j else 0.0
+        c = cov[k]
+        g = normal
+        if fit:  # cofactors c[j, i] = (−1)^(i+j) · minor(i, j), as `fit._inverse_symmetric`
+            c[0, 0] = g[1, 1] * g[2, 2] - g[1, 2] * g[2, 1]
+            c[1, 0] = -(g[1, 0] * g[2, 2] - g[1, 2] * g[2, 0])
+            c[2, 0] = g[1, 0] * g[2, 1] - g[1, 1] * g[2, 0]
+            c[0, 1] = -(g[0, 1] * g[2, 2] - g[0, 2] * g[2, 1])
+            c[1, 1] = g[0, 0] * g[2, 2] - g[0, 2] * g[2, 0]
+            c[2, 1] = -(g[0, 0] * g[2, 1] - g[0, 1] * g[2, 0])
+            c[0, 2] = g[0, 1] * g[1, 2] - g[0, 2] * g[1, 1]
+            c[1, 2] = -(g[0, 0] * g[1, 2] - g[0, 2] * g[1, 0])
+            c[2, 2] = g[0, 0] * g[1, 1] - g[0, 1] * g[1, 0]
+            det = 0.0
+            for j in range(3):
+                det += g[0, j] * c[j, 0]
+        else:
+            det = g[0, 0] * g[1, 1] - g[0, 1] ** 2
+            c[0, 0], c[1, 1] = g[1, 1], g[0, 0]
+            c[0, 1] = -g[0, 1]
+            c[1, 0] = -g[0, 1]
+        div = det if abs(det) > 1e-300 else np.nan
+        for i in range(p):
+            for j in range(p):
+                c[i, j] = np.nan if too_few[k] else c[i, j] / div
+        if fit:
+            dlnt_de[k] = 0.0
+        else:
+            acc = 0.0
+            for b in range(nb):
+                for q in range(p):
+                    acc += (c[0, q] * (cols[b, q] * w[k, b])) * d_e[k, b]
+            dlnt_de[k] = -acc
+
+
+@_njit()
 def erfc_cells(x, out):
     """erfc of each value (the C library's, as ``math.erfc``), for the χ² survival function."""
     for k in range(x.size):
         out[k] = math.erfc(x[k])
 
 
-KERNELS = {"invert_cells": invert_cells, "evaluate_cells": evaluate_cells, "combine_cells": combine_cells,
+KERNELS = {"invert_cells": invert_cells, "fit_final": fit_final, "evaluate_cells": evaluate_cells, "combine_cells": combine_cells,
            "relation_cells": relation_cells, "linearise_relation": linearise_relation,
            "calibrate_cells": calibrate_cells, "fit_cells": fit_cells, "erfc_cells": erfc_cells}

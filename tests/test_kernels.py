@@ -335,6 +335,21 @@ def test_blackbody_fit_identical_compiled_and_numpy(both, fit_ebv, ebv_err):
         _same(np.asarray(fast[name]), np.asarray(slow[name]))
 
 
+@pytest.mark.parametrize("fit_ebv", [False, True])
+def test_blackbody_fit_identical_compiled_and_numpy_with_many_bands(both, fit_ebv):
+    """Ten bands, beyond the eight at which numpy's own row sums start summing in pairs: both sides
+    sum over the bands in order."""
+    from stelltemp.engine.fit import fit_blackbody
+    from test_combine_batched import _stars
+
+    keys = ["U_JC", "B_JC", "V_JC", "Rc_JC", "Ic_JC", "g_PS1", "z_PS1", "J_2MASS", "H_2MASS", "Ks_2MASS"]
+    m, sig, tbb, e, feh, feh_err, logg = _stars(300, keys, 37)
+    fast, slow = both(fit_blackbody, m, sig, keys, ebv=np.clip(e, 0, None), ebv_err=0.1, fit_ebv=fit_ebv)
+    assert np.isfinite(slow["t"]).sum() > 250
+    for name in slow:
+        _same(np.asarray(fast[name]), np.asarray(slow[name]))
+
+
 def test_c_log_is_the_compiled_kernels_log():
     """The numpy twins take the C library's log (`kernels.c_log`), the one numba's compiled code calls;
     numpy's own vectorised log can differ from it in the last bit (AVX-512 builds of numpy 2)."""

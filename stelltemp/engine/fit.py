@@ -73,6 +73,40 @@ def _rowsum(x):
     return acc
 
 
+def _final(m, w, mod, d_t, d_e, e, ebv0, prior_w, too_few, fit_ebv):
+    """At the solution: the offset a, χ², the covariance of (ln T, a[, E]) and ∂ln T/∂E (E fixed).
+
+    Every sum runs over the bands in order, as `kernels.fit_final` sums.
+    """
+    n = m.shape[0]
+    n_par = 3 if fit_ebv else 2
+    with np.errstate(invalid="ignore", divide="ignore"):
+        a = _rowsum(w * (m - mod)) / _rowsum(w)
+    resid = m - mod - a[:, None]
+    current = _rowsum(w * resid * resid)
+    if fit_ebv:
+        current = current + prior_w * (e - ebv0) ** 2
+    cols = [d_t, np.ones_like(d_t)] + ([d_e] if fit_ebv else [])
+    weighted = [col * w for col in cols]  # the columns of J·W
+    normal = np.empty((n, n_par, n_par))
+    for i in range(n_par):
+        for j in range(n_par):
+            normal[:, i, j] = _rowsum(weighted[i] * cols[j])
+    if fit_ebv:
+        normal[:, 2, 2] += prior_w
+    normal[too_few] = np.eye(n_par)
+    cov = _inverse_symmetric(normal)
+    cov[too_few] = np.nan
+    # with E(B−V) fixed: how the best ln T moves per unit E, −[N⁻¹ Jᵀ W ∂M/∂E]_lnT
+    dlnt_de = np.zeros(n)
+    if not fit_ebv:
+        for b in range(m.shape[1]):
+            for q in range(n_par):
+                dlnt_de = dlnt_de + (cov[:, 0, q] * weighted[q][:, b]) * d_e[:, b]
+        dlnt_de = -dlnt_de
+    return a, current, cov, dlnt_de
+
+
 def _inverse_symmetric(a):
     """Inverses of a stack of symmetric 2×2 or 3×3 matrices by cofactors (NaN where singular)."""
     if a.shape[-1] == 2:
@@ -168,11 +202,6 @@ def fit_blackbody(mags, errs, keys, ebv=0.0, ebv_err=np.inf, fit_ebv=False,
             mod[:, b], d_t[:, b] = tab.horner(cached_q[b, rows], t)
         return mod, d_t, d_e
 
-    def profile_a(mod):
-        # best offset for a fixed shape: weighted mean residual
-        with np.errstate(invalid="ignore", divide="ignore"):
-            return (w * (m - mod)).sum(axis=1) / w.sum(axis=1)
-
     # Gauss–Newton with the offset a profiled out (variable projection), one
     # model evaluation per iteration; a step that raises χ² is halved instead.
     # Converged stars drop out of the active set.
@@ -235,22 +264,15 @@ def fit_blackbody(mags, errs, keys, ebv=0.0, ebv_err=np.inf, fit_ebv=False,
         active = active[moving[active]]
 
     # the final pass always needs ∂M/∂E, for the reddening sensitivity
-    mod, d_t, d_e = model_rows(np.arange(n), lnt, e, True)
-    a = profile_a(mod)
-    resid = m - mod - a[:, None]
-    current = (w * resid * resid).sum(axis=1)
-    if fit_ebv:
-        current = current + prior_w * (e - ebv0) ** 2
-    cols = [d_t, np.ones_like(d_t)] + ([d_e] if fit_ebv else [])
-    jac = np.stack(cols, axis=-1)
-    normal = np.einsum("nbp,nbq->npq", jac * w[..., None], jac)
-    if fit_ebv:
-        normal[:, 2, 2] += prior_w
-    normal[too_few] = np.eye(n_par)
-    cov = _inverse_symmetric(normal)
-    cov[too_few] = np.nan
-    # with E(B−V) fixed: how the best ln T moves per unit E, −[N⁻¹ Jᵀ W ∂M/∂E]_lnT
-    dlnt_de = -np.einsum("np,nbp,nb->n", cov[:, 0, :], jac * w[..., None], d_e) if not fit_ebv else np.zeros(n)
+    if jit is not None:  # the same steps, one star at a time, compiled (the same bits)
+        mod, d_t, d_e = (np.empty((n, nb)) for _ in range(3))
+        a, current, dlnt_de, cov = np.empty(n), np.empty(n), np.empty(n), np.empty((n, n_par, n_par))
+        jit["fit_final"](m, w, lnt, e, ebv0, np.ascontiguousarray(prior_w), too_few, bool(fit_ebv),
+                         *bg.table_stack(keys, law, rv), mod, d_t, d_e, a, current, cov, dlnt_de,
+                         np.empty((nb, 3)), np.empty((3, 3)))
+    else:
+        mod, d_t, d_e = model_rows(np.arange(n), lnt, e, True)
+        a, current, cov, dlnt_de = _final(m, w, mod, d_t, d_e, e, ebv0, prior_w, too_few, fit_ebv)
     dof = n_bands - n_par + (1 if fit_ebv else 0) * (prior_w > 0)
     from .chisq import chi2_survival as chdtrc  # P(χ² ≥ x); scipy.special costs 0.25 s to import
 
