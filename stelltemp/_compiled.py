@@ -920,15 +920,29 @@ def fit_rows(m, w, lnt, e, ebv0, prior_w, todo, fit, patches, offsets, tab_shape
         e[k] = ek
 
 
+@_njit(inline="always")
+def fit_column(q, d_t, d_e, k, b):
+    """Column q of the fit's Jacobian at band b of star k: ∂M/∂ln T, 1 (the offset) or ∂M/∂E."""
+    return d_t[k, b] if q == 0 else (1.0 if q == 1 else d_e[k, b])
+
+
+@_njit(inline="always")
+def normal_entry(i, j, w, d_t, d_e, k):
+    """Σ_b (J_bi w_b) J_bj over the bands in order: an entry of `fit._final`'s normal matrix."""
+    acc = 0.0
+    for b in range(w.shape[1]):
+        acc += (fit_column(i, d_t, d_e, k, b) * w[k, b]) * fit_column(j, d_t, d_e, k, b)
+    return acc
+
+
 @_njit()
 def fit_final(m, w, lnt, e, ebv0, prior_w, too_few, fit, patches, offsets, tab_shape, tab_grid,
-              mod, d_t, d_e, a, chi2, cov, dlnt_de, cols, normal):
+              mod, d_t, d_e, a, chi2, cov, dlnt_de):
     """The last step of `fit.fit_blackbody` at its solution, one star at a time (its twin
     `fit._final`, the same bits): the band models and their slopes, the profiled offset ``a``,
     χ², the covariance of (ln T, a[, E]) from the normal matrix and, with E(B−V) fixed, ∂ln T/∂E.
 
-    Every sum runs over the bands in order.  ``cols`` (n_bands, 3) and ``normal`` (3, 3) are
-    work arrays.
+    Every sum runs over the bands in order.
     """
     n, nb = m.shape
     p = 3 if fit else 2
@@ -950,41 +964,35 @@ def fit_final(m, w, lnt, e, ebv0, prior_w, too_few, fit, patches, offsets, tab_s
         if fit:
             cur = cur + prior_w[k] * (e[k] - ebv0[k]) ** 2
         chi2[k] = cur
-        # the normal matrix Σ_b (J_bi w_b) J_bj of the columns ∂M/∂ln T, 1 [, ∂M/∂E]
-        for b in range(nb):
-            cols[b, 0], cols[b, 1], cols[b, 2] = d_t[k, b], 1.0, d_e[k, b]
-        for i in range(p):
-            for j in range(p):
-                acc = 0.0
-                for b in range(nb):
-                    acc += (cols[b, i] * w[k, b]) * cols[b, j]
-                normal[i, j] = acc
+        g00, g01 = normal_entry(0, 0, w, d_t, d_e, k), normal_entry(0, 1, w, d_t, d_e, k)
+        g10, g11 = normal_entry(1, 0, w, d_t, d_e, k), normal_entry(1, 1, w, d_t, d_e, k)
+        g02 = g12 = g20 = g21 = g22 = 0.0
         if fit:
-            normal[2, 2] = normal[2, 2] + prior_w[k]
+            g02, g12 = normal_entry(0, 2, w, d_t, d_e, k), normal_entry(1, 2, w, d_t, d_e, k)
+            g20, g21 = normal_entry(2, 0, w, d_t, d_e, k), normal_entry(2, 1, w, d_t, d_e, k)
+            g22 = normal_entry(2, 2, w, d_t, d_e, k) + prior_w[k]
         if too_few[k]:
-            for i in range(p):
-                for j in range(p):
-                    normal[i, j] = 1.0 if i == j else 0.0
+            g00, g01, g02, g10, g11, g12, g20, g21, g22 = 1.0, 0.0, 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 1.0
         c = cov[k]
-        g = normal
         if fit:  # cofactors c[j, i] = (−1)^(i+j) · minor(i, j), as `fit._inverse_symmetric`
-            c[0, 0] = g[1, 1] * g[2, 2] - g[1, 2] * g[2, 1]
-            c[1, 0] = -(g[1, 0] * g[2, 2] - g[1, 2] * g[2, 0])
-            c[2, 0] = g[1, 0] * g[2, 1] - g[1, 1] * g[2, 0]
-            c[0, 1] = -(g[0, 1] * g[2, 2] - g[0, 2] * g[2, 1])
-            c[1, 1] = g[0, 0] * g[2, 2] - g[0, 2] * g[2, 0]
-            c[2, 1] = -(g[0, 0] * g[2, 1] - g[0, 1] * g[2, 0])
-            c[0, 2] = g[0, 1] * g[1, 2] - g[0, 2] * g[1, 1]
-            c[1, 2] = -(g[0, 0] * g[1, 2] - g[0, 2] * g[1, 0])
-            c[2, 2] = g[0, 0] * g[1, 1] - g[0, 1] * g[1, 0]
+            c[0, 0] = g11 * g22 - g12 * g21
+            c[1, 0] = -(g10 * g22 - g12 * g20)
+            c[2, 0] = g10 * g21 - g11 * g20
+            c[0, 1] = -(g01 * g22 - g02 * g21)
+            c[1, 1] = g00 * g22 - g02 * g20
+            c[2, 1] = -(g00 * g21 - g01 * g20)
+            c[0, 2] = g01 * g12 - g02 * g11
+            c[1, 2] = -(g00 * g12 - g02 * g10)
+            c[2, 2] = g00 * g11 - g01 * g10
             det = 0.0
-            for j in range(3):
-                det += g[0, j] * c[j, 0]
+            det += g00 * c[0, 0]
+            det += g01 * c[1, 0]
+            det += g02 * c[2, 0]
         else:
-            det = g[0, 0] * g[1, 1] - g[0, 1] ** 2
-            c[0, 0], c[1, 1] = g[1, 1], g[0, 0]
-            c[0, 1] = -g[0, 1]
-            c[1, 0] = -g[0, 1]
+            det = g00 * g11 - g01 ** 2
+            c[0, 0], c[1, 1] = g11, g00
+            c[0, 1] = -g01
+            c[1, 0] = -g01
         div = det if abs(det) > 1e-300 else np.nan
         for i in range(p):
             for j in range(p):
@@ -995,7 +1003,7 @@ def fit_final(m, w, lnt, e, ebv0, prior_w, too_few, fit, patches, offsets, tab_s
             acc = 0.0
             for b in range(nb):
                 for q in range(p):
-                    acc += (c[0, q] * (cols[b, q] * w[k, b])) * d_e[k, b]
+                    acc += (c[0, q] * (fit_column(q, d_t, d_e, k, b) * w[k, b])) * d_e[k, b]
             dlnt_de[k] = -acc
 
 

@@ -48,7 +48,7 @@ class Sidecar:
 
     def __init__(self, use=None):
         self._pool = None
-        self._jobs = []  # (future or None, fn, args, kwargs)
+        self._jobs = []  # (future, fn, args, kwargs): the job kept to run here if the process dies
         if use is None:
             use = engine_threads() > 1
         if not use:

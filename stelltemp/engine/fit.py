@@ -268,8 +268,7 @@ def fit_blackbody(mags, errs, keys, ebv=0.0, ebv_err=np.inf, fit_ebv=False,
         mod, d_t, d_e = (np.empty((n, nb)) for _ in range(3))
         a, current, dlnt_de, cov = np.empty(n), np.empty(n), np.empty(n), np.empty((n, n_par, n_par))
         jit["fit_final"](m, w, lnt, e, ebv0, np.ascontiguousarray(prior_w), too_few, bool(fit_ebv),
-                         *bg.table_stack(keys, law, rv), mod, d_t, d_e, a, current, cov, dlnt_de,
-                         np.empty((nb, 3)), np.empty((3, 3)))
+                         *bg.table_stack(keys, law, rv), mod, d_t, d_e, a, current, cov, dlnt_de)
     else:
         mod, d_t, d_e = model_rows(np.arange(n), lnt, e, True)
         a, current, cov, dlnt_de = _final(m, w, mod, d_t, d_e, e, ebv0, prior_w, too_few, fit_ebv)
