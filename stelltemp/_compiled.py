@@ -139,13 +139,18 @@ def cubic_in_t(q0, q1, q2, q3, t, h_t):
     return q0 + t * (q1 + t * (q2 + t * q3)), (q1 + t * (2 * q2 + 3 * t * q3)) / h_t
 
 @_njit(inline="always")
-def table_point(lnt, ebv, patches, nt, ne, lnt0, h_t, e0, h_e, want_de):
-    """Value, ∂/∂lnT and ∂/∂E (0.0 unless ``want_de``) of a bicubic Hermite table at one point."""
-    i, t = temperature_cell(lnt, nt, lnt0, h_t)
+def reddening_cell(ebv, ne, e0, h_e):
+    """A table's E(B−V) cell and the position in it (as `temperature_cell`)."""
     v = (ebv - e0) / h_e
     vv = v if v > 0.0 else 0.0
     j = int(min(vv, ne - 2.0))
-    s = v - j
+    return j, v - j
+
+@_njit(inline="always")
+def table_point(lnt, ebv, patches, nt, ne, lnt0, h_t, e0, h_e, want_de):
+    """Value, ∂/∂lnT and ∂/∂E (0.0 unless ``want_de``) of a bicubic Hermite table at one point."""
+    i, t = temperature_cell(lnt, nt, lnt0, h_t)
+    j, s = reddening_cell(ebv, ne, e0, h_e)
     base = (i * (ne - 1) + j) * 16
     q0, q1, q2, q3 = cell_cubic(patches, base, s)
     value, d_lnt = cubic_in_t(q0, q1, q2, q3, t, h_t)
@@ -174,10 +179,7 @@ def unreddened_cubics(patches, offsets, tab_shape, tab_grid):
     rows = np.empty((nb, cells, 4))
     for b in range(nb):
         nt, ne = tab_shape[b, 0], tab_shape[b, 1]
-        v = (0.0 - tab_grid[b, 2]) / tab_grid[b, 3]
-        vv = v if v > 0.0 else 0.0
-        j = int(min(vv, ne - 2.0))
-        s = v - j
+        j, s = reddening_cell(0.0, ne, tab_grid[b, 2], tab_grid[b, 3])
         band = patches[offsets[b]:offsets[b + 1]]
         for i in range(nt - 1):
             rows[b, i, 0], rows[b, i, 1], rows[b, i, 2], rows[b, i, 3] = cell_cubic(band, (i * (ne - 1) + j) * 16, s)
