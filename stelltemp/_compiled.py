@@ -169,7 +169,7 @@ def unreddened_cubics(patches, offsets, tab_shape, tab_grid):
 
     They are `cell_cubic` at the E cell and position that `table_point`
     finds for E(B−V) = 0 (0.5 / 0.1 is not exactly 5, so the position is not
-    0), so `unreddened_point` gives `band_point`'s bits at E = 0 from 32 bytes
+    0), so `excess_block` gives `band_point`'s bits at E = 0 from 32 bytes
     a cell instead of the cell's 128, in a few kB instead of the table's MB.
     """
     nb = tab_shape.shape[0]
@@ -186,11 +186,26 @@ def unreddened_cubics(patches, offsets, tab_shape, tab_grid):
     return rows
 
 @_njit(inline="always")
-def unreddened_point(b, lnt, cubics, tab_shape, tab_grid):
-    """`band_point` of band b at E(B−V) = 0 (value, ∂/∂lnT), from `unreddened_cubics`."""
-    h_t = tab_grid[b, 1]
-    i, t = temperature_cell(lnt, tab_shape[b, 0], tab_grid[b, 0], h_t)
-    return cubic_in_t(cubics[b, i, 0], cubics[b, i, 1], cubics[b, i, 2], cubics[b, i, 3], t, h_t)
+def excess_block(na, lnt, ebv, patches, offsets, tab_shape, tab_grid, unreddened, ex, de, dt):
+    """Each band's colour excess (at (ln T, E) minus at (ln T, 0)), its ∂/∂E and its ∂/∂lnT for the
+    first ``na`` stars of a block, into ``ex[b, q]``, ``de[b, q]``, ``dt[b, q]``.
+
+    A band at a time over the stars, so that the loop over stars has no calls and compiles to
+    vector instructions (the same operations per star, so the same bits); E(B−V) = 0 from the
+    band's `unreddened_cubics`, which give `table_point`'s bits there.
+    """
+    for b in range(tab_shape.shape[0]):
+        band = patches[offsets[b]:offsets[b + 1]]
+        nt, ne = tab_shape[b, 0], tab_shape[b, 1]
+        lnt0, h_t, e0, h_e = tab_grid[b, 0], tab_grid[b, 1], tab_grid[b, 2], tab_grid[b, 3]
+        for q in range(na):
+            red_v, red_t, red_e = table_point(lnt[q], ebv[q], band, nt, ne, lnt0, h_t, e0, h_e, True)
+            i, t = temperature_cell(lnt[q], nt, lnt0, h_t)
+            int_v, int_t = cubic_in_t(unreddened[b, i, 0], unreddened[b, i, 1], unreddened[b, i, 2],
+                                      unreddened[b, i, 3], t, h_t)
+            ex[b, q] = red_v - int_v
+            de[b, q] = red_e
+            dt[b, q] = red_t - int_t
 
 @_njit()
 def evaluate_cells(lnt, ebv, patches, nt, ne, lnt0, h_t, e0, h_e, want_de, value, d_lnt, d_e):
@@ -617,11 +632,12 @@ def calibrate_cells(m, var_m, feh, feh_var, logg, applies, t_start, e_start, ebv
     r = blue.size
     nb = m.shape[1]
     # in the order `calibrate_passes` unpacks them: act … a, each relation's listed stars and their count,
-    # the stars a pass visits for one relation
+    # the stars a pass visits for one relation, the ln T and E(B−V) of a pass's moving stars
     own = (np.empty(BLOCK, np.intp), np.empty(BLOCK), np.empty(BLOCK), np.empty(BLOCK), np.empty(BLOCK),
            np.empty(BLOCK), np.empty(BLOCK, np.bool_), np.empty((BLOCK, r), np.bool_), np.empty((BLOCK, r)),
-           np.empty((BLOCK, r)), np.empty(nb), np.empty(nb), np.empty(nb), np.empty(r), np.empty((r, BLOCK), np.intp),
-           np.empty(r, np.intp), np.empty(BLOCK, np.intp))
+           np.empty((BLOCK, r)), np.empty((nb, BLOCK)), np.empty((nb, BLOCK)), np.empty((nb, BLOCK)), np.empty(r),
+           np.empty((r, BLOCK), np.intp), np.empty(r, np.intp), np.empty(BLOCK, np.intp), np.empty(BLOCK),
+           np.empty(BLOCK))
     calibrate_passes(
         m, var_m, feh, feh_var, logg, applies, t_start, e_start, ebv, ebv_var, prior_prec, fit, patches,
         offsets, tab_shape, tab_grid, blue, red, same, scatter0, scatter_frac, forms, bounds, needs_logg,
@@ -673,7 +689,8 @@ def calibrate_passes(m, var_m, feh, feh_var, logg, applies, t_start, e_start, eb
     xp, zp, gp = powers
     (where, xm, zb, gb, tb, slot, at_t, at_s, at_g, at_ok,
      fin_x, fin_t, fin_s, fin_g, fin_ok) = block
-    act, t_ref, el, t_hat, lo_seen, hi_seen, still, allowed, kt, gz, ex, de, dt, a, takers, n_takers, visit = own
+    (act, t_ref, el, t_hat, lo_seen, hi_seen, still, allowed, kt, gz, ex, de, dt, a, takers, n_takers, visit,
+     lnt_q, e_q) = own
     c, rhs, low, z, sol, idx = work
     # x, kx, s, sc, v, l_y and l_p: per star (detail) or, when only the Monte Carlo reads them and
     # there is none, rows of one block (kd = the star in its block): no memory to fault in and fill
@@ -709,24 +726,21 @@ def calibrate_passes(m, var_m, feh, feh_var, logg, applies, t_start, e_start, eb
             # `colour_excess` (every band at (T_ref, E) minus at (T_ref, 0)) and the colours
             for q in range(na):
                 j = act[q]
-                k = k0 + j
-                kd = k if detail else j
                 if it and np.isfinite(t_hat[j]):
                     t_ref[j] = t_hat[j]
-                lnt = np.log(t_ref[j] if np.isfinite(t_ref[j]) else 5800.0)
+                lnt_q[q] = np.log(t_ref[j] if np.isfinite(t_ref[j]) else 5800.0)
                 eu = el[j] if np.isfinite(el[j]) else 0.0
-                eu = e_min if eu < e_min else (e_max if eu > e_max else eu)
-                for b in range(nb):
-                    red_v, red_t, red_e = band_point(b, lnt, eu, patches, offsets, tab_shape, tab_grid, True)
-                    int_v, int_t = unreddened_point(b, lnt, unreddened, tab_shape, tab_grid)
-                    ex[b] = red_v - int_v
-                    de[b] = red_e
-                    dt[b] = red_t - int_t
+                e_q[q] = e_min if eu < e_min else (e_max if eu > e_max else eu)
+            excess_block(na, lnt_q, e_q, patches, offsets, tab_shape, tab_grid, unreddened, ex, de, dt)
+            for q in range(na):
+                j = act[q]
+                k = k0 + j
+                kd = k if detail else j
                 for i in range(r):
                     bi, ri = blue[i], red[i]
-                    x[kd, i] = m[k, bi] - m[k, ri] - (ex[bi] - ex[ri])
-                    kx[kd, i] = de[bi] - de[ri]
-                    kt[j, i] = dt[bi] - dt[ri]
+                    x[kd, i] = m[k, bi] - m[k, ri] - (ex[bi, q] - ex[ri, q])
+                    kx[kd, i] = de[bi, q] - de[ri, q]
+                    kt[j, i] = dt[bi, q] - dt[ri, q]
                     if it == 0:
                         x0[k, i] = x[kd, i]
             for i in range(r):
