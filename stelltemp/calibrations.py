@@ -501,6 +501,8 @@ class Relation:
             return np.asarray(unknown_ok)
         g = _float_array(logg, "log g")
         known = np.isfinite(g)
+        if not known.any():  # the usual case, no log g at all: every star is an assumed dwarf
+            return np.full(g.shape, unknown_ok)
         with np.errstate(invalid="ignore"):
             in_range = (g >= self.logg_range[0]) & (g < self.logg_range[1])
         return np.where(known, in_range, unknown_ok)
