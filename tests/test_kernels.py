@@ -55,6 +55,32 @@ def test_evaluate_identical_including_off_grid_and_nan(both):
     assert fast[2] is None and slow[2] is None
 
 
+def test_colour_excess_of_the_fused_passes_identical_to_the_tables():
+    """The fused passes' colour excesses (`excess_block`, E(B−V) = 0 from `unreddened_cubics`)
+    give the bits of each table's own evaluation, off the grid and for NaN temperatures too."""
+    from stelltemp import _compiled
+
+    keys = ["B_JC", "V_JC", "Ic_JC", "Ks_2MASS"]
+    stack = bg.table_stack(keys, "G23", 3.1)
+    rng = np.random.default_rng(11)
+    na = 200
+    lnt = rng.uniform(np.log(500.0), np.log(2e5), na)
+    lnt[::23] = np.nan
+    e = rng.uniform(bg.E_MIN, bg.E_MAX, na)
+    e[:5] = 0.0
+    ex, de, dt = (np.full((len(keys), 256), -1.0) for _ in range(3))
+    _compiled.excess_block(na, lnt, e, *stack, _compiled.unreddened_cubics(*stack), ex, de, dt)
+    for b, key in enumerate(keys):
+        table = bg.band_table(key, "G23", 3.1)
+        with np.errstate(invalid="ignore"):
+            red, red_t, red_e = table.evaluate(lnt, e)
+            zero, zero_t, _ = table.evaluate(lnt, np.zeros(na), want_de=False)
+        _same(ex[b, :na], red - zero)
+        _same(de[b, :na], red_e)
+        _same(dt[b, :na], red_t - zero_t)
+        assert np.all(ex[b, na:] == -1.0)  # nothing written past the stars given
+
+
 def test_inversion_identical_on_every_branch(both):
     rng = np.random.default_rng(4)
     t = np.exp(rng.uniform(np.log(700.0), np.log(2e5), 6000))
