@@ -215,8 +215,14 @@ def evaluate_cells(lnt, ebv, patches, nt, ne, lnt0, h_t, e0, h_e, want_de, value
             d_e[k] = de
 
 @_njit()
-def cholesky_solve(c, rhs, q, r, low, z, x):
-    """x[:r, :q] with c x = rhs (r × r, Cholesky); NaN when c is not positive definite."""
+def cholesky_solve(c, rhs, r, low, z, x):
+    """x[:r, :3] with c x = rhs (r × r, Cholesky); NaN when c is not positive definite.
+
+    The three right-hand sides are substituted side by side: each column's
+    operations are those of substituting it alone, in the same order (the
+    same bits), but the three chains of dependent divisions overlap in the
+    processor instead of running one after another.
+    """
     for j in range(r):
         d = c[j, j]
         for k in range(j):
@@ -227,17 +233,24 @@ def cholesky_solve(c, rhs, q, r, low, z, x):
             for k in range(j):
                 acc -= low[i, k] * low[j, k]
             low[i, j] = acc / low[j, j]
-    for col in range(q):
-        for i in range(r):
-            acc = rhs[i, col]
-            for k in range(i):
-                acc -= low[i, k] * z[k, col]
-            z[i, col] = acc / low[i, i]
-        for i in range(r - 1, -1, -1):
-            acc = z[i, col]
-            for k in range(i + 1, r):
-                acc -= low[k, i] * x[k, col]
-            x[i, col] = acc / low[i, i]
+    for i in range(r):
+        a0, a1, a2 = rhs[i, 0], rhs[i, 1], rhs[i, 2]
+        for k in range(i):
+            lik = low[i, k]
+            a0 -= lik * z[k, 0]
+            a1 -= lik * z[k, 1]
+            a2 -= lik * z[k, 2]
+        d = low[i, i]
+        z[i, 0], z[i, 1], z[i, 2] = a0 / d, a1 / d, a2 / d
+    for i in range(r - 1, -1, -1):
+        a0, a1, a2 = z[i, 0], z[i, 1], z[i, 2]
+        for k in range(i + 1, r):
+            lki = low[k, i]
+            a0 -= lki * x[k, 0]
+            a1 -= lki * x[k, 1]
+            a2 -= lki * x[k, 2]
+        d = low[i, i]
+        x[i, 0], x[i, 1], x[i, 2] = a0 / d, a1 / d, a2 / d
 
 @_njit(inline="always")
 def combine_star(s, g, used, var_m, blue, red, same, scatter, feh_var, a, v, y, fit, ebv_var,
@@ -281,7 +294,7 @@ def combine_star(s, g, used, var_m, blue, red, same, scatter, feh_var, a, v, y, 
         rhs[ii, 0] = a[i]
         rhs[ii, 1] = vi
         rhs[ii, 2] = y[i]
-    cholesky_solve(c, rhs, 3, u, low, z, sol)
+    cholesky_solve(c, rhs, u, low, z, sol)
     i00 = 0.0
     av = 0.0
     va = 0.0
