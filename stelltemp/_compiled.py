@@ -236,21 +236,20 @@ def cholesky_solve(c, rhs, r, low, z, x):
     for i in range(r):
         a0, a1, a2 = rhs[i, 0], rhs[i, 1], rhs[i, 2]
         for k in range(i):
-            lik = low[i, k]
-            a0 -= lik * z[k, 0]
-            a1 -= lik * z[k, 1]
-            a2 -= lik * z[k, 2]
+            a0, a1, a2 = less_multiple(a0, a1, a2, low[i, k], z, k)
         d = low[i, i]
         z[i, 0], z[i, 1], z[i, 2] = a0 / d, a1 / d, a2 / d
     for i in range(r - 1, -1, -1):
         a0, a1, a2 = z[i, 0], z[i, 1], z[i, 2]
         for k in range(i + 1, r):
-            lki = low[k, i]
-            a0 -= lki * x[k, 0]
-            a1 -= lki * x[k, 1]
-            a2 -= lki * x[k, 2]
+            a0, a1, a2 = less_multiple(a0, a1, a2, low[k, i], x, k)
         d = low[i, i]
         x[i, 0], x[i, 1], x[i, 2] = a0 / d, a1 / d, a2 / d
+
+@_njit(inline="always")
+def less_multiple(a0, a1, a2, f, rows, k):
+    """(a0, a1, a2) minus f times row k of ``rows`` (three columns)."""
+    return a0 - f * rows[k, 0], a1 - f * rows[k, 1], a2 - f * rows[k, 2]
 
 @_njit(inline="always")
 def combine_star(s, g, used, var_m, blue, red, same, scatter, feh_var, a, v, y, fit, ebv_var,
