@@ -190,9 +190,10 @@ def excess_block(na, lnt, ebv, patches, offsets, tab_shape, tab_grid, unreddened
     """Each band's colour excess (at (ln T, E) minus at (ln T, 0)), its ∂/∂E and its ∂/∂lnT for the
     first ``na`` stars of a block, into ``ex[b, q]``, ``de[b, q]``, ``dt[b, q]``.
 
-    A band at a time over the stars, so that the loop over stars has no calls and compiles to
-    vector instructions (the same operations per star, so the same bits); E(B−V) = 0 from the
-    band's `unreddened_cubics`, which give `table_point`'s bits there.
+    A band at a time over the stars: the loop over stars has no calls, so the processor overlaps
+    consecutive stars' independent table reads (it does not run in vector lanes: see
+    DEVELOPERS.md on gathers); the same operations per star, so the same bits.  E(B−V) = 0 from
+    the band's `unreddened_cubics`, which give `table_point`'s bits there.
     """
     for b in range(tab_shape.shape[0]):
         band = patches[offsets[b]:offsets[b + 1]]
