@@ -60,69 +60,92 @@ def clamped_cell(v, last):
         j = last
     return j, v - j
 
-@_njit()
+@_njit_alloc()
 def invert_cells(c, e, nodes, patches, nt, ne, lnt0, h_t, e0, h_e,
                  rj, rj_e0, rj_h, e_min, e_max, steps, bad, no_sol, edge,
                  lnt, slope, flags):
+    """Allocates the work arrays of a block of stars and runs `invert_rows`."""
+    invert_rows(c, e, nodes, patches, nt, ne, lnt0, h_t, e0, h_e, rj, rj_e0, rj_h, e_min, e_max, steps,
+                bad, no_sol, edge, lnt, slope, flags,
+                (np.empty(BLOCK, np.intp), np.empty(BLOCK), np.empty(BLOCK, np.intp), np.empty(BLOCK),
+                 np.empty((BLOCK, 4)), np.empty(BLOCK, np.intp)))
+
+
+@_njit()
+def invert_rows(c, e, nodes, patches, nt, ne, lnt0, h_t, e0, h_e,
+                rj, rj_e0, rj_h, e_min, e_max, steps, bad, no_sol, edge,
+                lnt, slope, flags, work):
+    """`invert_colour` star by star (the same steps as `colour._invert_block`), in blocks of `BLOCK`.
+
+    The bisection runs level by level over the block's stars: each star's
+    steps are its own, in its own order (the same bits), but the steps of
+    different stars, which do not depend on each other, overlap in the
+    processor instead of one star's chain of dependent reads after another.
+    """
     n = c.size
     n_rj = rj.size
-    for k in range(n):
-        ck = c[k]
-        ek = e[k]
-        lnt[k] = np.nan
-        slope[k] = np.nan
-        e_ok = np.isfinite(ek) and ek >= e_min and ek <= e_max
-        if not (e_ok and np.isfinite(ck)):
-            flags[k] = bad
-            continue
-        j, s = clamped_cell((ek - e0) / h_e, ne - 2)
-        s2 = s * s
-        s3 = s2 * s
-        as0 = 2 * s3 - 3 * s2 + 1
-        as1 = 3 * s2 - 2 * s3
-        bs0 = s3 - 2 * s2 + s
-        bs1 = s3 - s2
-        # node colours at the star's own E(B−V): cold end (i = 0) and hot end
-        kk = j
-        c_cold = node_colour(nodes, kk, as0, as1, bs0, bs1)
-        kk = (nt - 1) * ne + j
-        c_hot = node_colour(nodes, kk, as0, as1, bs0, bs1)
-        if ck < c_hot:
-            # Rayleigh–Jeans colour at this E, linear on its uniform grid
-            m, f = clamped_cell((ek - rj_e0) / rj_h, n_rj - 2)
-            limit = rj[m] + f * (rj[m + 1] - rj[m])
-            flags[k] = no_sol if ck < limit else edge
-            continue
-        if ck > c_cold:
-            flags[k] = edge
-            continue
-        flags[k] = 0
+    where, cks, cell_e, pos_e, weights, lo = work
+    for k0 in range(0, n, BLOCK):
+        m = 0
+        for k in range(k0, min(n, k0 + BLOCK)):
+            ck = c[k]
+            ek = e[k]
+            lnt[k] = np.nan
+            slope[k] = np.nan
+            e_ok = np.isfinite(ek) and ek >= e_min and ek <= e_max
+            if not (e_ok and np.isfinite(ck)):
+                flags[k] = bad
+                continue
+            j, s = clamped_cell((ek - e0) / h_e, ne - 2)
+            s2 = s * s
+            s3 = s2 * s
+            as0 = 2 * s3 - 3 * s2 + 1
+            as1 = 3 * s2 - 2 * s3
+            bs0 = s3 - 2 * s2 + s
+            bs1 = s3 - s2
+            # node colours at the star's own E(B−V): cold end (i = 0) and hot end
+            c_cold = node_colour(nodes, j, as0, as1, bs0, bs1)
+            c_hot = node_colour(nodes, (nt - 1) * ne + j, as0, as1, bs0, bs1)
+            if ck < c_hot:
+                # Rayleigh–Jeans colour at this E, linear on its uniform grid
+                mm, f = clamped_cell((ek - rj_e0) / rj_h, n_rj - 2)
+                limit = rj[mm] + f * (rj[mm + 1] - rj[mm])
+                flags[k] = no_sol if ck < limit else edge
+                continue
+            if ck > c_cold:
+                flags[k] = edge
+                continue
+            flags[k] = 0
+            where[m], cks[m], cell_e[m], pos_e[m], lo[m] = k, ck, j, s, 0
+            weights[m, 0], weights[m, 1], weights[m, 2], weights[m, 3] = as0, as1, bs0, bs1
+            m += 1
         # branch-free bisection: the largest node i with colour(i) > c
-        lo = 0
         span = nt - 1
         while span > 1:
             half = span >> 1
-            kk = (lo + half) * ne + j
-            cm = node_colour(nodes, kk, as0, as1, bs0, bs1)
-            lo += half * (cm > ck)
+            for q in range(m):
+                cm = node_colour(nodes, (lo[q] + half) * ne + cell_e[q], weights[q, 0], weights[q, 1],
+                                 weights[q, 2], weights[q, 3])
+                lo[q] += half * (cm > cks[q])
             span -= half
-        i = min(lo, nt - 2)
-        # the cell's cubic in t with the E direction summed: q0 + q1 t + q2 t² + q3 t³
-        base = (i * (ne - 1) + j) * 16
-        q0, q1, q2, q3 = cell_cubic(patches, base, s)
-        f1 = q0 + q1 + q2 + q3
-        t = (ck - q0) / (f1 - q0)
-        t = min(max(t, 0.0), 1.0)
-        for _ in range(steps):
-            p = q0 + t * (q1 + t * (q2 + t * q3)) - ck
+        for q in range(m):
+            k, ck = where[q], cks[q]
+            i = min(lo[q], nt - 2)
+            # the cell's cubic in t with the E direction summed: q0 + q1 t + q2 t² + q3 t³
+            q0, q1, q2, q3 = cell_cubic(patches, (i * (ne - 1) + cell_e[q]) * 16, pos_e[q])
+            f1 = q0 + q1 + q2 + q3
+            t = (ck - q0) / (f1 - q0)
+            t = min(max(t, 0.0), 1.0)
+            for _ in range(steps):
+                p = q0 + t * (q1 + t * (q2 + t * q3)) - ck
+                dp = q1 + t * (2 * q2 + 3 * t * q3)
+                t_new = min(max(t - p / dp, 0.0), 1.0)
+                if t_new == t:  # converged: further steps change nothing
+                    break
+                t = t_new
             dp = q1 + t * (2 * q2 + 3 * t * q3)
-            t_new = min(max(t - p / dp, 0.0), 1.0)
-            if t_new == t:  # converged: further steps change nothing
-                break
-            t = t_new
-        dp = q1 + t * (2 * q2 + 3 * t * q3)
-        lnt[k] = lnt0 + (i + t) * h_t
-        slope[k] = dp / h_t
+            lnt[k] = lnt0 + (i + t) * h_t
+            slope[k] = dp / h_t
 
 @_njit(inline="always")
 def temperature_cell(lnt, nt, lnt0, h_t):
