@@ -68,7 +68,8 @@ def invert_cells(c, e, nodes, patches, nt, ne, lnt0, h_t, e0, h_e,
     invert_rows(c, e, nodes, patches, nt, ne, lnt0, h_t, e0, h_e, rj, rj_e0, rj_h, e_min, e_max, steps,
                 bad, no_sol, edge, lnt, slope, flags,
                 (np.empty(BLOCK, np.intp), np.empty(BLOCK), np.empty(BLOCK, np.intp), np.empty(BLOCK),
-                 np.empty((BLOCK, 4)), np.empty(BLOCK, np.intp)))
+                 np.empty((BLOCK, 4)), np.empty(BLOCK, np.intp), np.empty((BLOCK, 4)), np.empty(BLOCK),
+                 np.empty(BLOCK, np.intp)))
 
 
 @_njit()
@@ -77,14 +78,17 @@ def invert_rows(c, e, nodes, patches, nt, ne, lnt0, h_t, e0, h_e,
                 lnt, slope, flags, work):
     """`invert_colour` star by star (the same steps as `colour._invert_block`), in blocks of `BLOCK`.
 
-    The bisection runs level by level over the block's stars: each star's
-    steps are its own, in its own order (the same bits), but the steps of
-    different stars, which do not depend on each other, overlap in the
-    processor instead of one star's chain of dependent reads after another.
+    The bisection runs level by level over the block's stars, and the Newton
+    steps step by step over those still moving: each star's steps are its
+    own, in its own order (the same bits), but the steps of different stars,
+    which do not depend on each other, overlap in the processor instead of
+    one star's chain of dependent reads and divisions after another.
     """
     n = c.size
     n_rj = rj.size
-    where, cks, cell_e, pos_e, weights, lo = work
+    # per star of the block: its row, colour, E cell and position, Hermite weights in E, T node (the
+    # bisection's low end, then its cell), the cell's cubic in t, the position in it; the stars still moving
+    where, cks, cell_e, pos_e, weights, lo, cubic, t_in, moving = work
     for k0 in range(0, n, BLOCK):
         m = 0
         for k in range(k0, min(n, k0 + BLOCK)):
@@ -129,22 +133,35 @@ def invert_rows(c, e, nodes, patches, nt, ne, lnt0, h_t, e0, h_e,
                 lo[q] += half * (cm > cks[q])
             span -= half
         for q in range(m):
-            k, ck = where[q], cks[q]
             i = min(lo[q], nt - 2)
+            lo[q] = i
             # the cell's cubic in t with the E direction summed: q0 + q1 t + q2 t² + q3 t³
             q0, q1, q2, q3 = cell_cubic(patches, (i * (ne - 1) + cell_e[q]) * 16, pos_e[q])
+            cubic[q, 0], cubic[q, 1], cubic[q, 2], cubic[q, 3] = q0, q1, q2, q3
             f1 = q0 + q1 + q2 + q3
-            t = (ck - q0) / (f1 - q0)
-            t = min(max(t, 0.0), 1.0)
-            for _ in range(steps):
-                p = q0 + t * (q1 + t * (q2 + t * q3)) - ck
+            t = (cks[q] - q0) / (f1 - q0)
+            t_in[q] = min(max(t, 0.0), 1.0)
+            moving[q] = q
+        # Newton steps in t, also step by step over the stars still moving
+        na = m
+        for _ in range(steps):
+            keep = 0
+            for a in range(na):
+                q = moving[a]
+                t = t_in[q]
+                q0, q1, q2, q3 = cubic[q, 0], cubic[q, 1], cubic[q, 2], cubic[q, 3]
+                p = q0 + t * (q1 + t * (q2 + t * q3)) - cks[q]
                 dp = q1 + t * (2 * q2 + 3 * t * q3)
                 t_new = min(max(t - p / dp, 0.0), 1.0)
-                if t_new == t:  # converged: further steps change nothing
-                    break
-                t = t_new
-            dp = q1 + t * (2 * q2 + 3 * t * q3)
-            lnt[k] = lnt0 + (i + t) * h_t
+                if t_new != t:  # else converged: further steps change nothing
+                    t_in[q] = t_new
+                    moving[keep] = q
+                    keep += 1
+            na = keep
+        for q in range(m):
+            k, t = where[q], t_in[q]
+            dp = cubic[q, 1] + t * (2 * cubic[q, 2] + 3 * t * cubic[q, 3])
+            lnt[k] = lnt0 + (lo[q] + t) * h_t
             slope[k] = dp / h_t
 
 @_njit(inline="always")
