@@ -160,9 +160,8 @@ def invert_rows(c, e, nodes, patches, nt, ne, lnt0, h_t, e0, h_e,
             na = keep
         for q in range(m):
             k, t = where[q], t_in[q]
-            dp = cubic[q, 1] + t * (2 * cubic[q, 2] + 3 * t * cubic[q, 3])
             lnt[k] = lnt0 + (lo[q] + t) * h_t
-            slope[k] = dp / h_t
+            _, slope[k] = cubic_in_t(cubic[q, 0], cubic[q, 1], cubic[q, 2], cubic[q, 3], t, h_t)
 
 @_njit(inline="always")
 def temperature_cell(lnt, nt, lnt0, h_t):
